@@ -1,0 +1,55 @@
+// Package assign forms matched sets: it decides which control units stand
+// in for which treated units.
+//
+// # Greedy nearest-neighbour matching
+//
+// Greedy matches on one scalar score, normally the logit of the propensity
+// score (Rosenbaum & Rubin 1985, Am Stat 39:33, recommend matching on the
+// logit with a caliper; Austin 2011, Pharm Stat 10:150, gives the usual
+// caliper width of 0.2 standard deviations of the logit). The caller converts
+// such a relative width into the absolute Options.Caliper, so this package
+// never has to decide which standard deviation is meant.
+//
+// The conventions, stated once so that every caller and test reads them the
+// same way:
+//
+//   - Treated units are processed one at a time in Options.Order
+//     (high-score-first, low-score-first, seeded random, or input order;
+//     equal scores are processed in ascending input index). See Austin
+//     (2014), Stat Med 33:1057, for how the order affects greedy matching.
+//   - Per treated, k nearest in turn: the unit being processed takes its
+//     nearest available control, then its next nearest, up to
+//     Options.Controls, before the next treated unit takes any. A treated
+//     unit may therefore end with fewer than Options.Controls controls (a
+//     partial set); one with no available control at all gets no set.
+//   - Distance is d = |score_t - score_c| computed in float64. A control is
+//     inside the caliper when d <= Caliper (equality counts as inside).
+//     Caliper 0 means no caliper.
+//   - Ties in d are broken by the lower input index of the control. This
+//     covers equal control scores and controls on opposite sides of the
+//     treated score at the same distance.
+//   - Units match only within an exact-match stratum (equal stratum values)
+//     and only when eligible (for example inside common support).
+//   - Without reuse a control serves at most one treated unit; with reuse it
+//     may serve any number, and each treated unit simply gets its k nearest.
+//   - Output is a deterministic function of the inputs and Options (the
+//     random order draws from math/rand/v2's PCG seeded with Options.Seed).
+//
+// # Cost
+//
+// Controls are sorted once per stratum by (score, index): O(n log n).
+// Without reuse, two union-find arrays with path halving over that sorted
+// array ("next unused position to the right / left", Tarjan & van Leeuwen
+// 1984, J ACM 31:245) find the nearest unused control on each side of a
+// binary-search position in amortised near-constant time. With reuse, the k
+// nearest are read off by walking outwards from the binary-search position.
+// No step scans all controls for a treated unit.
+//
+// # What this package must not do
+//
+// It is a pure function of plain slices. It must not touch databases, files,
+// the network or the terminal, must not import counterpart/warehouse or any
+// database package, and keeps no global state. Length mismatches between
+// the input slices are programmer errors and panic; bad data (a non-finite
+// score) and bad options are returned as errors.
+package assign

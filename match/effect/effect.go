@@ -34,6 +34,12 @@ type Estimate struct {
 	NTreated, NControl, NMissing int
 	// Method names the estimator and its standard error.
 	Method string
+	// Contrast is "" or ContrastDifference for a difference in means or
+	// risks. For ContrastRiskRatio and ContrastOddsRatio (set by
+	// Contrasts) Estimate is the ratio, SE the standard error of its
+	// natural logarithm, the interval exp(ln ratio ± ZCrit·SE) and Z is
+	// ln(ratio)/SE.
+	Contrast string
 }
 
 // Method names reported in Estimate.Method.

@@ -279,6 +279,17 @@ type item struct {
 	k    Cost
 	v    int32
 	virt bool // drawn from the hub's segment tree: a relaxation hub -> v
+	term bool // v has a deficit: among equal keys it pops first
+}
+
+// before orders heap items by key, deficit nodes first among equal keys,
+// so a search on a plateau of zero reduced costs (tied scores) stops as
+// soon as it can instead of settling the whole plateau.
+func (a item) before(b item) bool {
+	if a.k != b.k {
+		return a.k.Less(b.k)
+	}
+	return a.term && !b.term
 }
 
 func (g *Network) push(it item) {
@@ -286,7 +297,7 @@ func (g *Network) push(it item) {
 	i := len(h) - 1
 	for i > 0 {
 		p := (i - 1) / 2
-		if !h[i].k.Less(h[p].k) {
+		if !h[i].before(h[p]) {
 			break
 		}
 		h[i], h[p] = h[p], h[i]
@@ -308,10 +319,10 @@ func (g *Network) pop() item {
 			break
 		}
 		m := l
-		if r := l + 1; r < n && h[r].k.Less(h[l].k) {
+		if r := l + 1; r < n && h[r].before(h[l]) {
 			m = r
 		}
-		if !h[m].k.Less(h[i].k) {
+		if !h[m].before(h[i]) {
 			break
 		}
 		h[i], h[m] = h[m], h[i]
@@ -337,7 +348,7 @@ func (g *Network) relax(v int, d Cost, from int, arc int32) {
 	g.dist[v] = d
 	g.parent[v] = int32(from)
 	g.parentArc[v] = arc
-	g.push(item{k: d, v: int32(v)})
+	g.push(item{k: d, v: int32(v), term: g.excess[v] < 0})
 }
 
 // drawHub pushes the next hub neighbour from the segment tree, if any.

@@ -1,0 +1,176 @@
+// Command counterpart builds matched and weighted comparison cohorts inside
+// a data warehouse. It only turns flags into a study run and errors into
+// exit codes; the work is in package study and below.
+package main
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"strings"
+	"syscall"
+
+	"github.com/urfave/cli/v2"
+	"golang.org/x/term"
+
+	"counterpart/report"
+	"counterpart/study"
+	"counterpart/warehouse"
+)
+
+// version is set at build time with -ldflags "-X main.version=...".
+var version = "0.1.0-dev"
+
+// Exit codes, documented in README.md and --help.
+const (
+	exitOK        = 0
+	exitRuntime   = 1
+	exitBadInput  = 2
+	exitRejected  = 3
+	exitLocked    = 4
+	exitUnchanged = 5
+)
+
+const exitHelp = `EXIT CODES:
+   0  success
+   1  runtime or database error
+   2  bad study file or bad input data (nothing written)
+   3  balance gate rejected the run (recorded as rejected; current views untouched)
+   4  another run of the same study holds the lock
+   5  skipped: nothing changed since the last succeeded run (when asked for)`
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	code := run(ctx, os.Args, os.Stdout, os.Stderr)
+	stop()
+	os.Exit(code)
+}
+
+// run is main without the process: tests call it with their own writers.
+func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
+	code := exitOK
+	app := &cli.App{
+		Name:  "counterpart",
+		Usage: "matched and weighted comparison cohorts, built inside your warehouse",
+		Description: "Reads a cohort with your SQL, fits propensity scores, matches and weights,\n" +
+			"checks covariate balance, estimates effects and writes everything back\n" +
+			"as tables and views. See README.md for the study file.",
+		Version:               version,
+		Writer:                stdout,
+		ErrWriter:             stderr,
+		HideHelpCommand:       true,
+		CustomAppHelpTemplate: cli.AppHelpTemplate + "\n" + exitHelp + "\n",
+		ExitErrHandler:        func(*cli.Context, error) {},
+		Commands: []*cli.Command{
+			{
+				Name:      "run",
+				Usage:     "run a study and publish its tables",
+				ArgsUsage: "STUDY.yaml",
+				Flags: []cli.Flag{
+					&cli.BoolFlag{Name: "dry-run", Usage: "validate, read, fit and match; write nothing"},
+					&cli.BoolFlag{Name: "json", Usage: "print a machine-readable summary on stdout"},
+				},
+				Action: func(c *cli.Context) error {
+					if c.NArg() != 1 {
+						return usageError("run takes one study file: counterpart run STUDY.yaml")
+					}
+					code = runStudy(ctx, c.Args().First(), c.Bool("dry-run"), c.Bool("json"), stdout, stderr)
+					return nil
+				},
+			},
+			{
+				Name:  "demo",
+				Usage: "write a synthetic warehouse and study, run it, and compare with the planted effect",
+				Flags: []cli.Flag{
+					&cli.StringFlag{Name: "dir", Value: "demo", Usage: "directory for the demo warehouse and study file"},
+					&cli.IntFlag{Name: "units", Value: 20000, Usage: "number of synthetic members"},
+					&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "seed of the synthetic data"},
+				},
+				Action: func(c *cli.Context) error {
+					code = runDemo(ctx, c.String("dir"), c.Int("units"), c.Uint64("seed"), stdout, stderr)
+					return nil
+				},
+			},
+		},
+	}
+	if err := app.RunContext(ctx, args); err != nil {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+		return exitBadInput
+	}
+	return code
+}
+
+type usageError string
+
+func (u usageError) Error() string { return string(u) }
+
+// exitCode maps an error to the documented exit codes.
+func exitCode(err error) int {
+	switch {
+	case err == nil:
+		return exitOK
+	case errors.Is(err, warehouse.ErrLocked):
+		return exitLocked
+	case errors.Is(err, study.ErrRejected):
+		return exitRejected
+	case errors.Is(err, warehouse.ErrBadInput):
+		return exitBadInput
+	default:
+		return exitRuntime
+	}
+}
+
+// oneLine keeps stderr to one line per error, as schedulers' logs expect.
+func oneLine(s string) string {
+	s = strings.ReplaceAll(s, "\r", " ")
+	s = strings.ReplaceAll(s, "\n", " ")
+	s = strings.ReplaceAll(s, warehouse.ErrBadInput.Error()+": ", "")
+	return s
+}
+
+func runStudy(ctx context.Context, path string, dry, asJSON bool, stdout, stderr io.Writer) int {
+	spec, err := study.Load(path)
+	if err != nil {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+		return exitCode(err)
+	}
+	return execute(ctx, spec, dry, asJSON, stdout, stderr)
+}
+
+func execute(ctx context.Context, spec *study.Spec, dry, asJSON bool, stdout, stderr io.Writer) int {
+	wh, err := study.Open(ctx, spec, dry)
+	if err != nil {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+		return exitCode(err)
+	}
+	defer wh.Close()
+	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version})
+	if asJSON && sum != nil && (err == nil || errors.Is(err, study.ErrRejected)) {
+		enc := json.NewEncoder(stdout)
+		enc.SetIndent("", "  ")
+		if e := enc.Encode(sum); e != nil {
+			fmt.Fprintln(stderr, "counterpart: write summary: "+e.Error())
+			return exitRuntime
+		}
+	} else if sum != nil && (err == nil || errors.Is(err, study.ErrRejected)) {
+		printSummary(stdout, sum)
+	}
+	if err != nil {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+		return exitCode(err)
+	}
+	return exitOK
+}
+
+func printSummary(w io.Writer, sum *study.Summary) {
+	report.Terminal(w, sum, report.TerminalOptions{Color: isTTY(w)})
+}
+
+func isTTY(w io.Writer) bool {
+	f, ok := w.(*os.File)
+	return ok && term.IsTerminal(int(f.Fd()))
+}

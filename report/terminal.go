@@ -1,0 +1,168 @@
+// Package report renders a run's summary for people: the terminal summary
+// now, the HTML report later. It formats values it is given and must not
+// read databases, files or flags.
+package report
+
+import (
+	"fmt"
+	"io"
+	"math"
+	"strings"
+
+	"counterpart/study"
+)
+
+// TerminalOptions tune the terminal summary.
+type TerminalOptions struct {
+	// Color adds ANSI colour; only for a terminal, never for logs.
+	Color bool
+}
+
+// Caution is printed under every summary and report: the estimates are
+// only as good as their assumptions.
+const Caution = "Observational estimates rest on no unmeasured confounding and adequate overlap; " +
+	"they support, not replace, clinical and policy judgement. Follow your organisation's data-governance and privacy rules."
+
+// Terminal writes the compact human summary of a run. It prints counts and
+// aggregates only, never a unit's row.
+func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
+	p := printer{w: w, color: o.Color}
+	total := 0.0
+	for _, v := range s.Timings {
+		total += v
+	}
+	status := s.Status
+	switch status {
+	case "succeeded", "dry-run":
+		status = p.green(status)
+	case "rejected", "failed":
+		status = p.red(status)
+	}
+	p.line("%s  run %s  on %s  %s  %.1fs", p.bold(s.Study), s.RunID, s.Engine, status, total)
+	p.line("")
+	c := s.Counts
+	p.row("cohort", "%s units: %s treated, %s comparison", thousands(c.Units), thousands(c.Treated), thousands(c.Control))
+	sup := s.Support
+	if sup.Rule == "none" {
+		p.row("support", "none applied")
+	} else {
+		p.row("support", "%s keeps ps in [%.3f, %.3f]; %s units outside", sup.Rule, float64(sup.Low), float64(sup.High), thousands(sup.Dropped))
+	}
+	m := s.Model
+	p.row("score", "%s, %d terms, %d IRLS steps, c-statistic %.3f", m.Kind, len(m.Terms), m.Iterations, float64(m.CStatistic))
+	if mt := s.Matching; mt != nil {
+		cal := "no caliper"
+		if mt.CaliperSD > 0 {
+			cal = fmt.Sprintf("caliper %.2g SD = %.3f on logit(ps)", float64(mt.CaliperSD), float64(mt.CaliperWidth))
+		}
+		reuse := "without reuse"
+		if mt.Reuse {
+			reuse = "with reuse"
+		}
+		p.row("matching", "%s 1:%d %s, %s, %d exact strata", mt.Algorithm, mt.Controls, reuse, cal, mt.Strata)
+		p.row("", "%s of %s treated matched to %s comparison units (%s unmatched)",
+			thousands(mt.MatchedTreated), thousands(c.SupportTreated), thousands(mt.MatchedControls), thousands(mt.UnmatchedTreated))
+	}
+	p.line("")
+	vr := float64(s.Gate.VRLimit)
+	p.line("%s", p.bold("balance")+fmt.Sprintf("  limits: |SMD| < %g, variance ratio within %.3g..%g", float64(s.Gate.SMDLimit), 1/vr, vr))
+	p.line("  %-12s %-6s %-10s %-24s %s", "adjustment", "", "max |SMD|", "at", "effective n (treated / comparison)")
+	for _, b := range s.Balance {
+		mark := p.green("pass")
+		if !b.Pass {
+			mark = p.red("FAIL")
+		}
+		head := " "
+		if b.Adjustment == s.Primary {
+			head = "*"
+		}
+		p.line(" %s%-12s %-6s %-10.3f %-24s %s / %s", head, b.Adjustment, mark, math.Abs(float64(b.WorstSMD)), b.WorstVariable,
+			thousands(int(math.Round(float64(b.ESSTreated)))), thousands(int(math.Round(float64(b.ESSControl)))))
+	}
+	p.line("")
+	p.line("%s", p.bold("effects")+"  treated minus comparison, 95% interval")
+	last := ""
+	for _, e := range s.Effects {
+		name := ""
+		if e.Outcome != last {
+			name = e.Outcome
+			last = e.Outcome
+		}
+		head := " "
+		if e.Adjustment == s.Primary {
+			head = "*"
+		}
+		p.line("  %-14s%s%-12s %12s  [%s, %s]  %s", name, head, e.Adjustment, signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh)), e.Estimand)
+	}
+	p.line("  (* marks the headline adjustment, %s; the balance gate judges it)", s.Primary)
+	if s.Message != "" {
+		p.line("")
+		p.line("%s", p.red("note: ")+s.Message)
+	}
+	p.line("")
+	p.line("%s", wrap(Caution, 78))
+}
+
+type printer struct {
+	w     io.Writer
+	color bool
+}
+
+func (p printer) line(format string, args ...any) { fmt.Fprintf(p.w, format+"\n", args...) }
+
+func (p printer) row(label, format string, args ...any) {
+	fmt.Fprintf(p.w, "  %-10s %s\n", label, fmt.Sprintf(format, args...))
+}
+
+func (p printer) wrapANSI(code, s string) string {
+	if !p.color {
+		return s
+	}
+	return "\x1b[" + code + "m" + s + "\x1b[0m"
+}
+
+func (p printer) green(s string) string { return p.wrapANSI("32", s) }
+func (p printer) red(s string) string   { return p.wrapANSI("31", s) }
+func (p printer) bold(s string) string  { return p.wrapANSI("1", s) }
+
+// thousands formats an integer with thin separators for reading at a glance.
+func thousands(n int) string {
+	s := fmt.Sprint(n)
+	neg := strings.HasPrefix(s, "-")
+	s = strings.TrimPrefix(s, "-")
+	var b strings.Builder
+	for i, r := range s {
+		if i > 0 && (len(s)-i)%3 == 0 {
+			b.WriteByte(',')
+		}
+		b.WriteRune(r)
+	}
+	if neg {
+		return "-" + b.String()
+	}
+	return b.String()
+}
+
+// signed prints a number with its sign and four significant digits.
+func signed(x float64) string {
+	if math.IsNaN(x) {
+		return "n/a"
+	}
+	return fmt.Sprintf("%+.4g", x)
+}
+
+func wrap(s string, width int) string {
+	var out, line strings.Builder
+	for _, word := range strings.Fields(s) {
+		if line.Len() > 0 && line.Len()+1+len(word) > width {
+			out.WriteString(line.String() + "\n")
+			line.Reset()
+		}
+		if line.Len() > 0 {
+			line.WriteByte(' ')
+		}
+		line.WriteString(word)
+	}
+	out.WriteString(line.String())
+	return out.String()
+}

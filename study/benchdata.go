@@ -1,0 +1,61 @@
+package study
+
+import "fmt"
+
+// BenchCohortSQL returns DuckDB SQL that creates bench.cohort: n synthetic
+// units, about 10 % treated, 17 numeric and 3 categorical covariates and
+// two outcomes. It is the fixed workload of the whole-run benchmark, built
+// inside DuckDB so that generating a million rows costs seconds, not the
+// benchmark's time. Synthetic numbers only; no scenario, no people.
+func BenchCohortSQL(n int) string {
+	num := ""
+	lin := "-2.6"
+	for j := 1; j <= 17; j++ {
+		num += fmt.Sprintf(", (random() * 2 - 1) * %d + sin(i * %d) AS x%02d", 1+j%4, j, j)
+	}
+	for j := 1; j <= 6; j++ {
+		lin += fmt.Sprintf(" + 0.%d * x%02d / %d", j, j, 1+j%4)
+	}
+	return fmt.Sprintf(`
+SELECT setseed(0.42);
+CREATE SCHEMA IF NOT EXISTS bench;
+CREATE OR REPLACE TABLE bench.base AS
+SELECT i AS unit_id%s,
+       ['north','south','east','west','centre'][1 + (hash(i * 7) %% 5)::INT] AS c1,
+       ['a','b','c','d','e'][1 + floor(random() * 5)::INT] AS c2,
+       ['p','q','r','s','t'][1 + floor(random() * 5)::INT] AS c3,
+       random() AS u1, random() AS u2, random() AS u3
+FROM range(%d) t(i);
+CREATE OR REPLACE TABLE bench.cohort AS
+SELECT unit_id,
+       u1 < 1 / (1 + exp(-(%s + CASE c1 WHEN 'north' THEN 0.3 WHEN 'east' THEN -0.2 ELSE 0 END))) AS treated,
+       * EXCLUDE (unit_id, u1, u2, u3),
+       (u2 < 0.2 + 0.05 * (x01 > 0)::INT)::INT AS y_bin,
+       100 + 3 * x01 - 2 * x02 + 10 * u3 AS y_cont
+FROM bench.base;
+DROP TABLE bench.base;
+`, num, n, lin)
+}
+
+// BenchStudy is the study file of the whole-run benchmark; %s is the DSN.
+const BenchStudy = `study: bench_run
+warehouse:
+  engine: duckdb
+  dsn: %s
+cohort:
+  sql: select * from bench.cohort
+  unit: unit_id
+  treatment: treated
+  outcomes: [y_bin, y_cont]
+  covariates: [x01, x02, x03, x04, x05, x06, x07, x08, x09, x10, x11, x12, x13, x14, x15, x16, x17, c1, c2, c3]
+support: minmax
+matching:
+  algorithm: greedy
+  caliper: 0.2
+weighting: [att, ate, overlap]
+balance:
+  on_fail: warn
+output:
+  prefix: bench_run_
+  keep_runs: 2
+`

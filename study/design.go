@@ -1,0 +1,229 @@
+package study
+
+import (
+	"crypto/sha256"
+	"encoding/binary"
+	"encoding/hex"
+	"fmt"
+	"math"
+	"sort"
+	"strconv"
+	"strings"
+
+	"counterpart/match/balance"
+	"counterpart/warehouse"
+)
+
+// design is the cohort turned into the plain values the stages take.
+type design struct {
+	// model columns: numeric covariates as they are, categorical
+	// covariates as 0/1 indicators of every level but the reference.
+	x     [][]float64
+	names []string
+	// vars are the balance variables: each numeric covariate and every
+	// level of each categorical covariate (the reference level included,
+	// because readers look for it).
+	vars []balance.Variable
+}
+
+// buildDesign expands covariates. It shares the cohort's numeric columns
+// rather than copying them: at ten million units a copy is real memory.
+func buildDesign(c *warehouse.Cohort) (*design, error) {
+	d := &design{}
+	n := c.N()
+	for _, cov := range c.Covariates {
+		switch cov.Kind {
+		case warehouse.Numeric:
+			d.x = append(d.x, cov.Values)
+			d.names = append(d.names, cov.Name)
+			d.vars = append(d.vars, balance.Variable{Name: cov.Name, Values: cov.Values})
+		case warehouse.Categorical:
+			if len(cov.Levels) < 2 {
+				lvl := ""
+				if len(cov.Levels) == 1 {
+					lvl = cov.Levels[0]
+				}
+				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every unit is %q); remove it from cohort.covariates", warehouse.ErrBadInput, cov.Name, lvl)
+			}
+			ind := make([][]float64, len(cov.Levels))
+			for l := range ind {
+				ind[l] = make([]float64, n)
+			}
+			for i, code := range cov.Codes {
+				ind[code][i] = 1
+			}
+			for l, lvl := range cov.Levels {
+				d.vars = append(d.vars, balance.Variable{Name: cov.Name, Level: lvl, Binary: true, Values: ind[l]})
+				if l > 0 {
+					d.x = append(d.x, ind[l])
+					d.names = append(d.names, cov.Name+"="+lvl)
+				}
+			}
+		}
+	}
+	return d, nil
+}
+
+// strata numbers the distinct combinations of the exact_on covariates so
+// matching stays inside them; nil when there are none.
+func strata(c *warehouse.Cohort, exactOn []string) ([]int32, int) {
+	if len(exactOn) == 0 {
+		return nil, 1
+	}
+	var cols []*warehouse.Covariate
+	for _, name := range exactOn {
+		for i := range c.Covariates {
+			if c.Covariates[i].Name == name {
+				cols = append(cols, &c.Covariates[i])
+			}
+		}
+	}
+	ids := map[string]int32{}
+	out := make([]int32, c.N())
+	key := make([]byte, 0, 8*len(cols))
+	for i := range out {
+		key = key[:0]
+		for _, col := range cols {
+			if col.Kind == warehouse.Categorical {
+				key = binary.LittleEndian.AppendUint64(key, uint64(col.Codes[i]))
+			} else {
+				key = binary.LittleEndian.AppendUint64(key, math.Float64bits(col.Values[i]))
+			}
+		}
+		id, ok := ids[string(key)]
+		if !ok {
+			id = int32(len(ids))
+			ids[string(key)] = id
+		}
+		out[i] = id
+	}
+	return out, len(ids)
+}
+
+// fingerprint hashes the cohort rows in unit-id order, so a rerun can tell
+// whether the cohort changed whatever order the query returned rows in.
+func fingerprint(c *warehouse.Cohort) string {
+	n := c.N()
+	idx := make([]int, n)
+	for i := range idx {
+		idx[i] = i
+	}
+	if c.IDKind == warehouse.IDInt {
+		sort.Slice(idx, func(a, b int) bool { return c.IntIDs[idx[a]] < c.IntIDs[idx[b]] })
+	} else {
+		sort.Slice(idx, func(a, b int) bool { return c.TextIDs[idx[a]] < c.TextIDs[idx[b]] })
+	}
+	h := sha256.New()
+	buf := make([]byte, 0, 256)
+	put := func(f float64) { buf = binary.LittleEndian.AppendUint64(buf, math.Float64bits(f)) }
+	for _, i := range idx {
+		buf = buf[:0]
+		if c.IDKind == warehouse.IDInt {
+			buf = binary.LittleEndian.AppendUint64(buf, uint64(c.IntIDs[i]))
+		} else {
+			buf = append(buf, c.TextIDs[i]...)
+			buf = append(buf, 0)
+		}
+		if c.Treated[i] {
+			buf = append(buf, 1)
+		} else {
+			buf = append(buf, 0)
+		}
+		for _, cov := range c.Covariates {
+			if cov.Kind == warehouse.Categorical {
+				buf = append(buf, cov.Levels[cov.Codes[i]]...)
+				buf = append(buf, 0)
+			} else {
+				put(cov.Values[i])
+			}
+		}
+		for _, o := range c.Outcomes {
+			put(o.Values[i])
+		}
+		h.Write(buf)
+	}
+	return hex.EncodeToString(h.Sum(nil))
+}
+
+// pooledSD is √((s₁² + s₀²)/2) with n−1 sample variances: the SD the
+// caliper is measured in (Austin 2011, Pharm Stat 10:150, pooled reading).
+func pooledSD(x []float64, z []bool) float64 {
+	var v [2]struct{ n, mean, m2 float64 }
+	for i, xi := range x {
+		a := &v[0]
+		if z[i] {
+			a = &v[1]
+		}
+		a.n++
+		d := xi - a.mean
+		a.mean += d / a.n
+		a.m2 += d * (xi - a.mean)
+	}
+	s1 := v[1].m2 / (v[1].n - 1)
+	s0 := v[0].m2 / (v[0].n - 1)
+	return math.Sqrt((s1 + s0) / 2)
+}
+
+// auc is the c-statistic of the score: the probability that a random
+// treated unit scores above a random control, ties counting one half
+// (Mann–Whitney form; Hanley & McNeil 1982).
+func auc(ps []float64, z []bool) float64 {
+	n := len(ps)
+	idx := make([]int, n)
+	for i := range idx {
+		idx[i] = i
+	}
+	sort.Slice(idx, func(a, b int) bool { return ps[idx[a]] < ps[idx[b]] })
+	var rankSum, n1 float64
+	for i := 0; i < n; {
+		j := i
+		for j < n && ps[idx[j]] == ps[idx[i]] {
+			j++
+		}
+		mid := float64(i+j+1) / 2 // average 1-based rank of the tie block
+		for k := i; k < j; k++ {
+			if z[idx[k]] {
+				rankSum += mid
+				n1++
+			}
+		}
+		i = j
+	}
+	n0 := float64(n) - n1
+	if n1 == 0 || n0 == 0 {
+		return math.NaN()
+	}
+	return (rankSum - n1*(n1+1)/2) / (n1 * n0)
+}
+
+// checkTextNumbers refuses a text covariate whose values are numbers (all
+// or most of them): it is almost always a numeric column that picked up a
+// stray marker like "n/a", and treating it as categories would silently
+// change the model. The analyst casts it in SQL or declares it categorical.
+func checkTextNumbers(s *Spec, c *warehouse.Cohort) error {
+	declared := map[string]bool{}
+	for _, name := range s.Cohort.Categorical {
+		declared[name] = true
+	}
+	for _, cov := range c.Covariates {
+		if cov.Kind != warehouse.Categorical || declared[cov.Name] {
+			continue
+		}
+		numeric, other := 0, ""
+		for _, l := range cov.Levels {
+			if _, err := strconv.ParseFloat(strings.TrimSpace(l), 64); err == nil {
+				numeric++
+			} else if other == "" {
+				other = l
+			}
+		}
+		if numeric < 2 || float64(numeric) < 0.8*float64(len(cov.Levels)) {
+			continue
+		}
+		if other != "" {
+			return fmt.Errorf("read cohort: %w: covariate %s is text holding numbers and %q; cast it to a number in cohort.sql (with the odd values as NULL handled there)", warehouse.ErrBadInput, cov.Name, other)
+		}
+		return fmt.Errorf("read cohort: %w: covariate %s is text holding numbers; cast it to a number in cohort.sql, or list it under cohort.categorical to use its values as categories", warehouse.ErrBadInput, cov.Name)
+	}
+	return nil
+}

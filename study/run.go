@@ -1,0 +1,436 @@
+package study
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"github.com/google/uuid"
+
+	"counterpart/match/assign"
+	"counterpart/match/balance"
+	"counterpart/match/effect"
+	"counterpart/match/score"
+	"counterpart/match/weights"
+	"counterpart/warehouse"
+)
+
+// ErrRejected marks a run the balance gate rejected: exit 3.
+var ErrRejected = errors.New("balance gate rejected the run")
+
+// Options are the run's switches that are not part of the study file.
+type Options struct {
+	// DryRun validates, reads, fits and matches but writes nothing.
+	DryRun bool
+	// ToolVersion is recorded in the runs row.
+	ToolVersion string
+	// Now is the clock (tests pin it); nil means time.Now.
+	Now func() time.Time
+	// Stage, when set, is told as each stage starts (progress display).
+	Stage func(name string)
+}
+
+// Run executes one study end to end against an already open warehouse.
+// The returned Summary is filled as far as the run got, also on error.
+func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Summary, error) {
+	now := opt.Now
+	if now == nil {
+		now = time.Now
+	}
+	stage := func(name string) {
+		if opt.Stage != nil {
+			opt.Stage(name)
+		}
+	}
+	started := now()
+	id, err := uuid.NewV7()
+	if err != nil {
+		return nil, fmt.Errorf("run id: %w", err)
+	}
+	sum := &Summary{
+		Study: s.Study, RunID: id.String(), Engine: wh.Engine(), DryRun: opt.DryRun,
+		Primary: s.Primary(), Estimand: s.Estimate.Estimand, Timings: map[string]float64{},
+		StartedAt: started.UTC(),
+	}
+	lap := started
+	timed := func(name string) {
+		t := now()
+		sum.Timings[name] = t.Sub(lap).Seconds()
+		lap = t
+	}
+
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns}
+	if !opt.DryRun {
+		unlock, err := wh.Lock(ctx, out)
+		if err != nil {
+			return sum, fmt.Errorf("lock: %w", err)
+		}
+		defer unlock()
+	}
+
+	stage("read")
+	c, err := wh.ReadCohort(ctx, warehouse.CohortQuery{
+		SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
+		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
+	})
+	if err != nil {
+		return sum, fmt.Errorf("read cohort: %w", err)
+	}
+	timed("read")
+
+	res, err := analyse(s, c, sum, stage, timed)
+	if err != nil {
+		return sum, err
+	}
+	if opt.DryRun {
+		sum.Status = "dry-run"
+		return sum, nil
+	}
+
+	stage("publish")
+	out.Unit, out.IDKind, out.Treatment = c.Unit, c.IDKind, c.Treatment
+	for _, cov := range c.Covariates {
+		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: cov.Name, Kind: cov.Kind})
+	}
+	for _, o := range c.Outcomes {
+		out.Outcomes = append(out.Outcomes, o.Name)
+	}
+	out.Schemes = s.Schemes()
+	rec := warehouse.RunRecord{
+		RunID: sum.RunID, Study: s.Study, Status: warehouse.StatusRunning, StartedAt: started.UTC(),
+		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256, SpecJSON: s.Redacted(), CohortSQL: s.Cohort.SQL,
+		CohortFingerprint: sum.Fingerprint, Engine: wh.Engine(), DBUser: wh.User(ctx),
+	}
+	if err := wh.StartRun(ctx, out, rec); err != nil {
+		return sum, fmt.Errorf("start run: %w", err)
+	}
+	rec.Status = warehouse.StatusSucceeded
+	if !sum.Gate.Pass {
+		if s.Balance.OnFail == "reject" {
+			rec.Status = warehouse.StatusRejected
+			rec.Message = sum.Gate.Message
+		} else {
+			rec.Message = "balance warning: " + sum.Gate.Message
+		}
+	}
+	sum.Status = rec.Status
+	sum.Message = rec.Message
+	rec.CountsJSON = mustJSON(sum.Counts)
+	rec.ModelJSON = mustJSON(sum.Model)
+	rec.BalanceJSON = mustJSON(struct {
+		Gate        Gate                `json:"gate"`
+		Adjustments []AdjustmentBalance `json:"adjustments"`
+	}{sum.Gate, sum.Balance})
+	rec.EffectsJSON = mustJSON(sum.Effects)
+	rec.FinishedAt = now().UTC()
+	pub := &warehouse.Publication{
+		Run: rec, Cohort: c, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
+		Matches: res.matches, Weights: res.weights,
+	}
+	if err := wh.Publish(ctx, out, pub); err != nil {
+		msg := err.Error()
+		// Use a fresh context: the run's may be the one that was cancelled.
+		fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+		defer cancel()
+		_ = wh.FailRun(fctx, out, sum.RunID, msg)
+		sum.Status = warehouse.StatusFailed
+		return sum, fmt.Errorf("publish: %w", err)
+	}
+	timed("publish")
+	sum.FinishedAt = rec.FinishedAt
+	if rec.Status == warehouse.StatusRejected {
+		return sum, fmt.Errorf("%w: %s", ErrRejected, sum.Gate.Message)
+	}
+	return sum, nil
+}
+
+// results are the per-unit values publish writes.
+type results struct {
+	ps, logit []float64
+	inSupport []bool
+	matches   warehouse.MatchRows
+	weights   [][]float64
+}
+
+// badInput classes a stage error as a problem with the data or the study
+// (exit 2): the stages are pure, so their errors are never the database's.
+func badInput(step string, err error) error {
+	return fmt.Errorf("%s: %w: %w", step, warehouse.ErrBadInput, err)
+}
+
+// analyse runs every statistical stage on the cohort and fills the summary.
+func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string)) (*results, error) {
+	n := c.N()
+	z := c.Treated
+	nt := 0
+	for _, t := range z {
+		if t {
+			nt++
+		}
+	}
+	sum.Counts = Counts{Units: n, Treated: nt, Control: n - nt}
+	if nt == 0 {
+		return nil, fmt.Errorf("read cohort: %w: column %s is false for every unit; the cohort needs treated units", warehouse.ErrBadInput, c.Treatment)
+	}
+	if nt == n {
+		return nil, fmt.Errorf("read cohort: %w: column %s is true for every unit; the cohort needs comparison (untreated) units", warehouse.ErrBadInput, c.Treatment)
+	}
+	if err := checkTextNumbers(s, c); err != nil {
+		return nil, err
+	}
+	sum.Fingerprint = fingerprint(c)
+	d, err := buildDesign(c)
+	if err != nil {
+		return nil, fmt.Errorf("design: %w", err)
+	}
+
+	stage("fit")
+	model := score.Logistic
+	if s.Score.Model == "ridge" {
+		model = score.Ridge
+	}
+	fit, err := score.FitModel(d.x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+	if err != nil {
+		return nil, badInput("fit score", err)
+	}
+	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
+		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik), CStatistic: Num(auc(fit.PS, z))}
+	for j, name := range fit.Names {
+		sum.Model.Terms = append(sum.Model.Terms, Term{Name: name, Coef: Num(fit.Coef[j]), SE: Num(fit.SE[j])})
+	}
+	timed("fit")
+
+	res := &results{ps: fit.PS, logit: fit.Logit, inSupport: make([]bool, n)}
+	var low, high float64 = 0, 1
+	switch s.Support {
+	case "minmax":
+		// Keep scores inside both arms' ranges: [max of minima, min of maxima].
+		lo := [2]float64{math.Inf(1), math.Inf(1)}
+		hi := [2]float64{math.Inf(-1), math.Inf(-1)}
+		for i, p := range fit.PS {
+			a := 0
+			if z[i] {
+				a = 1
+			}
+			lo[a] = math.Min(lo[a], p)
+			hi[a] = math.Max(hi[a], p)
+		}
+		low, high = math.Max(lo[0], lo[1]), math.Min(hi[0], hi[1])
+	case "crump":
+		// Crump, Hotz, Imbens & Mitnik (2009): keep 0.1 ≤ ps ≤ 0.9.
+		low, high = 0.1, 0.9
+	}
+	var keptT, keptC int
+	for i, p := range fit.PS {
+		in := p >= low && p <= high
+		res.inSupport[i] = in
+		if in {
+			if z[i] {
+				keptT++
+			} else {
+				keptC++
+			}
+		}
+	}
+	sum.Support = Support{Rule: s.Support, Low: Num(low), High: Num(high), Dropped: n - keptT - keptC}
+	sum.Counts.SupportTreated, sum.Counts.SupportControl = keptT, keptC
+	if keptT == 0 || keptC == 0 {
+		return nil, fmt.Errorf("support: %w: the %s rule leaves %d treated and %d comparison units; relax support", warehouse.ErrBadInput, s.Support, keptT, keptC)
+	}
+
+	// Balance denominators are fixed from the unadjusted cohort so that
+	// before/after SMDs are comparable (Austin & Stuart 2015).
+	denom := make([]float64, len(d.vars))
+	for j, v := range d.vars {
+		denom[j] = balance.PooledSD(v, z)
+	}
+	adjust := func(name string, w []float64) {
+		st := balance.Compute(d.vars, z, w, denom)
+		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
+		ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
+		if w != nil {
+			ab.ESSTreated = Num(weights.ESS(w, z, true))
+			ab.ESSControl = Num(weights.ESS(w, z, false))
+		} else {
+			ab.ESSTreated, ab.ESSControl = Num(nt), Num(n-nt)
+		}
+		sum.Balance = append(sum.Balance, ab)
+	}
+	adjust("unadjusted", nil)
+
+	var effects []namedWeights
+	if s.Matching.Algorithm != "off" {
+		stage("match")
+		order, err := assign.ParseOrder(s.Matching.Order)
+		if err != nil {
+			return nil, badInput("match", err)
+		}
+		sd := pooledSD(fit.Logit, z)
+		width := s.Matching.Caliper * sd
+		st, nstrata := strata(c, s.Matching.ExactOn)
+		sets, err := assign.Greedy(fit.Logit, z, st, res.inSupport, assign.Options{
+			Controls: s.Matching.Controls, Reuse: s.Matching.Reuse, Caliper: width, Order: order, Seed: s.Matching.Seed,
+		})
+		if err != nil {
+			return nil, badInput("match", err)
+		}
+		ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
+			CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata, Sets: len(sets)}
+		treatedIdx := make([]int, len(sets))
+		controlIdx := make([][]int, len(sets))
+		used := map[int]bool{}
+		total := 0.0
+		for k, set := range sets {
+			treatedIdx[k] = set.Treated
+			controlIdx[k] = set.Controls
+			kc := float64(len(set.Controls))
+			res.matches.SetID = append(res.matches.SetID, int64(set.ID))
+			res.matches.Unit = append(res.matches.Unit, set.Treated)
+			res.matches.Treated = append(res.matches.Treated, true)
+			res.matches.SetWeight = append(res.matches.SetWeight, 1)
+			res.matches.Distance = append(res.matches.Distance, 0)
+			for j, cu := range set.Controls {
+				res.matches.SetID = append(res.matches.SetID, int64(set.ID))
+				res.matches.Unit = append(res.matches.Unit, cu)
+				res.matches.Treated = append(res.matches.Treated, false)
+				res.matches.SetWeight = append(res.matches.SetWeight, 1/kc)
+				res.matches.Distance = append(res.matches.Distance, set.Distances[j])
+				total += set.Distances[j]
+				used[cu] = true
+			}
+		}
+		ms.TotalDistance = Num(total)
+		ms.MatchedTreated = len(sets)
+		ms.UnmatchedTreated = keptT - len(sets)
+		ms.MatchedControls = len(used)
+		sum.Matching = &ms
+		sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
+		timed("match")
+		if len(sets) == 0 {
+			return nil, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
+		}
+		mw := weights.FromSets(n, treatedIdx, controlIdx)
+		adjust("matched", mw)
+		effects = append(effects, namedWeights{name: "matched", estimand: "att", w: mw, clustered: true})
+	}
+
+	stage("weight")
+	for _, scheme := range s.Schemes() {
+		fn, err := weights.ByName(scheme)
+		if err != nil {
+			return nil, badInput("weights", err)
+		}
+		w := fn(fit.PS, z)
+		for i := range w {
+			if !res.inSupport[i] {
+				w[i] = 0
+			}
+		}
+		res.weights = append(res.weights, w)
+		adjust(scheme, w)
+		effects = append(effects, namedWeights{name: scheme, estimand: estimandOf[scheme], w: w})
+	}
+	timed("weight")
+
+	// The gate judges the adjustment behind the headline estimate.
+	sum.Gate = Gate{Adjustment: s.Primary(), OnFail: s.Balance.OnFail, Pass: true,
+		SMDLimit: Num(s.Balance.SMDLimit), VRLimit: Num(s.Balance.VarianceRatioLimit)}
+	for _, ab := range sum.Balance {
+		if ab.Adjustment == sum.Gate.Adjustment {
+			sum.Gate.Pass = ab.Pass
+			sum.Gate.WorstSMD, sum.Gate.WorstVariable = ab.WorstSMD, ab.WorstVariable
+			if !ab.Pass {
+				sum.Gate.Message = fmt.Sprintf("%s balance fails the limits (|SMD| < %g, variance ratio within 1/%g..%g): %s",
+					ab.Adjustment, s.Balance.SMDLimit, s.Balance.VarianceRatioLimit, s.Balance.VarianceRatioLimit, joinFirst(ab.Failures, 5))
+			}
+		}
+	}
+
+	stage("estimate")
+	for _, o := range c.Outcomes {
+		naive, err := effect.Difference(o.Values, z, nil)
+		if err != nil {
+			return nil, badInput("estimate "+o.Name, err)
+		}
+		sum.Effects = append(sum.Effects, effectRow(o.Name, "unadjusted", "none", naive))
+		for _, e := range effects {
+			var est effect.Estimate
+			if e.clustered {
+				est, err = matchedEffect(o.Values, res.matches)
+			} else {
+				est, err = effect.Difference(o.Values, z, e.w)
+			}
+			if err != nil {
+				return nil, badInput("estimate "+o.Name+" ("+e.name+")", err)
+			}
+			sum.Effects = append(sum.Effects, effectRow(o.Name, e.name, e.estimand, est))
+		}
+	}
+	timed("estimate")
+	return res, nil
+}
+
+type namedWeights struct {
+	name, estimand string
+	w              []float64
+	clustered      bool
+}
+
+// matchedEffect expands the matches to one row per set appearance (treated
+// weight 1, each control 1/k of its set) and clusters by matched set, so a
+// control reused across sets still counts once per set it serves.
+func matchedEffect(y []float64, m warehouse.MatchRows) (effect.Estimate, error) {
+	rows := m.Len()
+	yy := make([]float64, rows)
+	zz := make([]bool, rows)
+	cl := make([]int, rows)
+	for r := 0; r < rows; r++ {
+		yy[r] = y[m.Unit[r]]
+		zz[r] = m.Treated[r]
+		cl[r] = int(m.SetID[r])
+	}
+	return effect.ClusteredDifference(yy, zz, m.SetWeight, cl)
+}
+
+func effectRow(outcome, adjustment, estimand string, e effect.Estimate) EffectRow {
+	return EffectRow{Outcome: outcome, Adjustment: adjustment, Estimand: estimand, Estimate: Num(e.Estimate), SE: Num(e.SE),
+		CILow: Num(e.CILow), CIHigh: Num(e.CIHigh), P: Num(e.P), NTreated: e.NTreated, NControl: e.NControl, NMissing: e.NMissing, Method: e.Method}
+}
+
+func joinFirst(xs []string, k int) string {
+	s := ""
+	for i, x := range xs {
+		if i == k {
+			s += fmt.Sprintf("; and %d more", len(xs)-k)
+			break
+		}
+		if i > 0 {
+			s += "; "
+		}
+		s += x
+	}
+	return s
+}
+
+func mustJSON(v any) string {
+	b, err := json.Marshal(v)
+	if err != nil {
+		// Summary types are plain structs; failure here is a programming error.
+		panic(fmt.Sprintf("encode summary: %v", err))
+	}
+	return string(b)
+}
+
+// Headline returns the effect rows of the primary adjustment.
+func (s *Summary) Headline() []EffectRow {
+	var out []EffectRow
+	for _, e := range s.Effects {
+		if e.Adjustment == s.Primary {
+			out = append(out, e)
+		}
+	}
+	return out
+}

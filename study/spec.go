@@ -1,0 +1,625 @@
+package study
+
+import (
+	"bytes"
+	"crypto/sha256"
+	"encoding/hex"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"net/url"
+	"os"
+	"path/filepath"
+	"reflect"
+	"regexp"
+	"sort"
+	"strings"
+
+	"go.yaml.in/yaml/v3"
+
+	"counterpart/warehouse"
+)
+
+// Spec is a parsed and validated study file. Field tags are the study
+// file's keys; README.md documents each one.
+type Spec struct {
+	Study     string        `yaml:"study" json:"study"`
+	Warehouse WarehouseSpec `yaml:"warehouse" json:"warehouse"`
+	Cohort    CohortSpec    `yaml:"cohort" json:"cohort"`
+	Score     ScoreSpec     `yaml:"score" json:"score"`
+	Support   string        `yaml:"support" json:"support"`
+	Matching  MatchingSpec  `yaml:"matching" json:"matching"`
+	Weighting []string      `yaml:"weighting" json:"weighting"`
+	Balance   BalanceSpec   `yaml:"balance" json:"balance"`
+	Estimate  EstimateSpec  `yaml:"estimate" json:"estimate"`
+	Output    OutputSpec    `yaml:"output" json:"output"`
+
+	// Path is the study file's path, for messages.
+	Path string `yaml:"-" json:"-"`
+	// SHA256 is the hex digest of the study file's bytes.
+	SHA256 string `yaml:"-" json:"-"`
+}
+
+// WarehouseSpec says which warehouse to open.
+type WarehouseSpec struct {
+	Engine string `yaml:"engine" json:"engine"`
+	DSN    string `yaml:"dsn" json:"dsn"`
+}
+
+// CohortSpec says how to read the cohort.
+type CohortSpec struct {
+	SQL         string   `yaml:"sql" json:"sql"`
+	Unit        string   `yaml:"unit" json:"unit"`
+	Treatment   string   `yaml:"treatment" json:"treatment"`
+	Outcomes    []string `yaml:"outcomes" json:"outcomes"`
+	Covariates  []string `yaml:"covariates" json:"covariates"`
+	Categorical []string `yaml:"categorical" json:"categorical"`
+}
+
+// ScoreSpec configures the propensity model.
+type ScoreSpec struct {
+	Model   string  `yaml:"model" json:"model"`
+	Lambda  float64 `yaml:"lambda" json:"lambda"`
+	MaxIter int     `yaml:"max_iter" json:"max_iter"`
+}
+
+// MatchingSpec configures matching.
+type MatchingSpec struct {
+	Algorithm string   `yaml:"algorithm" json:"algorithm"`
+	Controls  int      `yaml:"controls" json:"controls"`
+	Reuse     bool     `yaml:"reuse" json:"reuse"`
+	Caliper   float64  `yaml:"caliper" json:"caliper"`
+	ExactOn   []string `yaml:"exact_on" json:"exact_on"`
+	Order     string   `yaml:"order" json:"order"`
+	Seed      uint64   `yaml:"seed" json:"seed"`
+}
+
+// BalanceSpec is the balance gate.
+type BalanceSpec struct {
+	SMDLimit           float64 `yaml:"smd_limit" json:"smd_limit"`
+	VarianceRatioLimit float64 `yaml:"variance_ratio_limit" json:"variance_ratio_limit"`
+	OnFail             string  `yaml:"on_fail" json:"on_fail"`
+}
+
+// EstimateSpec picks the headline estimand.
+type EstimateSpec struct {
+	Estimand string `yaml:"estimand" json:"estimand"`
+}
+
+// OutputSpec says where results are written.
+type OutputSpec struct {
+	Schema   string `yaml:"schema" json:"schema"`
+	Prefix   string `yaml:"prefix" json:"prefix"`
+	KeepRuns int    `yaml:"keep_runs" json:"keep_runs"`
+}
+
+// SpecError is a problem with the study file. Line is 0 when the problem
+// is not tied to one line.
+type SpecError struct {
+	Path string
+	Line int
+	Msg  string
+}
+
+func (e *SpecError) Error() string {
+	if e.Line > 0 {
+		return fmt.Sprintf("%s:%d: %s", e.Path, e.Line, e.Msg)
+	}
+	return fmt.Sprintf("%s: %s", e.Path, e.Msg)
+}
+
+// Unwrap classes a spec error as bad input (exit 2).
+func (e *SpecError) Unwrap() error { return warehouse.ErrBadInput }
+
+// Defaults applied when a key is absent.
+const (
+	DefaultCaliper  = 0.2
+	DefaultSeed     = 20261201
+	DefaultKeepRuns = 30
+)
+
+// Known values of the enumerated keys.
+var (
+	engines    = []string{"duckdb", "postgres"}
+	models     = []string{"logistic", "ridge"}
+	supports   = []string{"none", "minmax", "crump"}
+	algorithms = []string{"greedy", "off"}
+	orders     = []string{"high-score-first", "low-score-first", "random", "input"}
+	schemes    = []string{"att", "ate", "atc", "overlap", "matching"}
+	onFails    = []string{"reject", "warn"}
+	estimands  = []string{"att", "ate", "atc", "ato", "atm"}
+	studyName  = regexp.MustCompile(`^[a-z][a-z0-9_]*$`)
+	envRef     = regexp.MustCompile(`\$\{([A-Za-z_][A-Za-z0-9_]*)\}`)
+)
+
+// Load reads, expands and validates a study file.
+func Load(path string) (*Spec, error) {
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, &SpecError{Path: path, Msg: fmt.Sprintf("cannot read the study file (%v)", unwrapPathErr(err))}
+	}
+	s, err := Parse(path, b, os.LookupEnv)
+	if err != nil {
+		return nil, err
+	}
+	// A DuckDB file named relative to the study file is found beside it,
+	// so a study runs the same from cron as from its own directory.
+	if s.Warehouse.Engine == "duckdb" && !filepath.IsAbs(s.Warehouse.DSN) && s.Warehouse.DSN != ":memory:" {
+		s.Warehouse.DSN = filepath.Join(filepath.Dir(path), s.Warehouse.DSN)
+	}
+	return s, nil
+}
+
+func unwrapPathErr(err error) error {
+	var pe *os.PathError
+	if errors.As(err, &pe) {
+		return pe.Err
+	}
+	return err
+}
+
+// Parse parses study file bytes; lookup resolves ${VAR} references (nil
+// means none are set). Unknown keys, wrong types and out-of-range values
+// are errors naming the key and its line.
+func Parse(path string, b []byte, lookup func(string) (string, bool)) (*Spec, error) {
+	sum := sha256.Sum256(b)
+	var root yaml.Node
+	dec := yaml.NewDecoder(bytes.NewReader(b))
+	if err := dec.Decode(&root); err != nil {
+		if errors.Is(err, io.EOF) {
+			return nil, &SpecError{Path: path, Msg: "the study file is empty; see README.md for a template"}
+		}
+		return nil, yamlError(path, err)
+	}
+	if root.Kind == 0 || len(root.Content) == 0 {
+		return nil, &SpecError{Path: path, Msg: "the study file is empty; see README.md for a template"}
+	}
+	doc := root.Content[0]
+	if err := checkKeys(path, doc, reflect.TypeOf(Spec{}), ""); err != nil {
+		return nil, err
+	}
+	if err := expandEnv(path, doc, lookup); err != nil {
+		return nil, err
+	}
+	s := &Spec{Matching: MatchingSpec{Caliper: math.NaN()}, Output: OutputSpec{KeepRuns: -1}}
+	if err := doc.Decode(s); err != nil {
+		return nil, yamlError(path, err)
+	}
+	s.Path = path
+	s.SHA256 = hex.EncodeToString(sum[:])
+	if err := s.validate(doc); err != nil {
+		return nil, err
+	}
+	return s, nil
+}
+
+var yamlLine = regexp.MustCompile(`line (\d+): (.*)`)
+
+// yamlError turns the YAML library's (sometimes multi-line) errors into one
+// line with the file and line number.
+func yamlError(path string, err error) error {
+	msg := err.Error()
+	msg = strings.TrimPrefix(msg, "yaml: ")
+	msg = strings.TrimPrefix(msg, "unmarshal errors:\n")
+	msg = strings.TrimSpace(strings.SplitN(msg, "\n", 2)[0])
+	if m := yamlLine.FindStringSubmatch(msg); m != nil {
+		var line int
+		fmt.Sscan(m[1], &line)
+		detail := m[2]
+		detail = strings.ReplaceAll(detail, "!!str", "text")
+		detail = strings.ReplaceAll(detail, "!!int", "a number")
+		detail = strings.ReplaceAll(detail, "!!seq", "a list")
+		detail = strings.ReplaceAll(detail, "!!map", "a mapping")
+		return &SpecError{Path: path, Line: line, Msg: "invalid value: " + detail}
+	}
+	return &SpecError{Path: path, Msg: "not valid YAML: " + msg}
+}
+
+// checkKeys walks a mapping node against the struct type t and reports the
+// first unknown or repeated key with its line and the nearest known key.
+func checkKeys(path string, n *yaml.Node, t reflect.Type, where string) error {
+	if n.Kind != yaml.MappingNode {
+		if n.Kind == yaml.ScalarNode && n.Tag == "!!null" {
+			return nil
+		}
+		what := "the study file"
+		if where != "" {
+			what = where
+		}
+		return &SpecError{Path: path, Line: n.Line, Msg: fmt.Sprintf("%s must be a mapping of keys to values", what)}
+	}
+	fields := map[string]reflect.StructField{}
+	var names []string
+	for i := 0; i < t.NumField(); i++ {
+		f := t.Field(i)
+		tag := strings.Split(f.Tag.Get("yaml"), ",")[0]
+		if tag == "" || tag == "-" {
+			continue
+		}
+		fields[tag] = f
+		names = append(names, tag)
+	}
+	seen := map[string]bool{}
+	for i := 0; i+1 < len(n.Content); i += 2 {
+		k, v := n.Content[i], n.Content[i+1]
+		key := k.Value
+		full := key
+		if where != "" {
+			full = where + "." + key
+		}
+		f, ok := fields[key]
+		if !ok {
+			msg := fmt.Sprintf("unknown key %q", full)
+			if s := nearest(key, names); s != "" {
+				msg += fmt.Sprintf(" (did you mean %q?)", s)
+			} else {
+				msg += fmt.Sprintf(" (known keys here: %s)", strings.Join(names, ", "))
+			}
+			return &SpecError{Path: path, Line: k.Line, Msg: msg}
+		}
+		if seen[key] {
+			return &SpecError{Path: path, Line: k.Line, Msg: fmt.Sprintf("key %q is given twice", full)}
+		}
+		seen[key] = true
+		if f.Type.Kind() == reflect.Struct {
+			if err := checkKeys(path, v, f.Type, full); err != nil {
+				return err
+			}
+		}
+	}
+	return nil
+}
+
+// nearest returns the known name closest to s by edit distance when it is
+// close enough to be a plausible typo.
+func nearest(s string, names []string) string {
+	best, bestD := "", 1<<30
+	for _, n := range names {
+		if d := editDistance(s, n); d < bestD {
+			best, bestD = n, d
+		}
+	}
+	if bestD <= 2 || (bestD <= len(s)/3 && bestD <= 4) {
+		return best
+	}
+	return ""
+}
+
+func editDistance(a, b string) int {
+	prev := make([]int, len(b)+1)
+	cur := make([]int, len(b)+1)
+	for j := range prev {
+		prev[j] = j
+	}
+	for i := 1; i <= len(a); i++ {
+		cur[0] = i
+		for j := 1; j <= len(b); j++ {
+			c := 1
+			if a[i-1] == b[j-1] {
+				c = 0
+			}
+			cur[j] = min(prev[j]+1, cur[j-1]+1, prev[j-1]+c)
+		}
+		prev, cur = cur, prev
+	}
+	return prev[len(b)]
+}
+
+// expandEnv replaces ${VAR} in every scalar value. An unset variable is an
+// error naming it and the line, never a silent empty string.
+func expandEnv(path string, n *yaml.Node, lookup func(string) (string, bool)) error {
+	if n.Kind == yaml.ScalarNode && strings.Contains(n.Value, "${") {
+		var missing string
+		n.Value = envRef.ReplaceAllStringFunc(n.Value, func(ref string) string {
+			name := envRef.FindStringSubmatch(ref)[1]
+			if lookup != nil {
+				if v, ok := lookup(name); ok {
+					return v
+				}
+			}
+			if missing == "" {
+				missing = name
+			}
+			return ""
+		})
+		if missing != "" {
+			return &SpecError{Path: path, Line: n.Line, Msg: fmt.Sprintf("environment variable %s is not set (referenced as ${%s}); export it before the run", missing, missing)}
+		}
+	}
+	for _, c := range n.Content {
+		if err := expandEnv(path, c, lookup); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
+// lineOf finds the line of a dotted key path in the document, for messages
+// about values that decoded but are out of range.
+func lineOf(doc *yaml.Node, dotted string) int {
+	n := doc
+	line := 0
+	for _, part := range strings.Split(dotted, ".") {
+		if n == nil || n.Kind != yaml.MappingNode {
+			return line
+		}
+		var next *yaml.Node
+		for i := 0; i+1 < len(n.Content); i += 2 {
+			if n.Content[i].Value == part {
+				line = n.Content[i].Line
+				next = n.Content[i+1]
+			}
+		}
+		if next == nil {
+			return line
+		}
+		n = next
+	}
+	return line
+}
+
+// present reports whether a dotted key is written in the document, so a
+// default applies only to keys the analyst left out.
+func present(doc *yaml.Node, dotted string) bool {
+	n := doc
+	for _, part := range strings.Split(dotted, ".") {
+		if n == nil || n.Kind != yaml.MappingNode {
+			return false
+		}
+		var next *yaml.Node
+		for i := 0; i+1 < len(n.Content); i += 2 {
+			if n.Content[i].Value == part {
+				next = n.Content[i+1]
+			}
+		}
+		if next == nil {
+			return false
+		}
+		n = next
+	}
+	return true
+}
+
+func oneOf(v string, allowed []string) bool {
+	for _, a := range allowed {
+		if v == a {
+			return true
+		}
+	}
+	return false
+}
+
+func (s *Spec) validate(doc *yaml.Node) error {
+	bad := func(key, format string, args ...any) error {
+		return &SpecError{Path: s.Path, Line: lineOf(doc, key), Msg: key + ": " + fmt.Sprintf(format, args...)}
+	}
+	enum := func(key string, v *string, def string, allowed []string) error {
+		if *v == "" {
+			*v = def
+		}
+		if !oneOf(*v, allowed) {
+			return bad(key, "%q is not one of %s", *v, strings.Join(allowed, " | "))
+		}
+		return nil
+	}
+	if s.Study == "" {
+		return bad("study", "missing; give the study a name like hf_coaching ([a-z][a-z0-9_]*)")
+	}
+	if !studyName.MatchString(s.Study) || len(s.Study) > 40 {
+		return bad("study", "%q is not a valid name; use lower-case letters, digits and _ (start with a letter, at most 40)", s.Study)
+	}
+	if err := enum("warehouse.engine", &s.Warehouse.Engine, "duckdb", engines); err != nil {
+		return err
+	}
+	if s.Warehouse.DSN == "" {
+		return bad("warehouse.dsn", "missing; give a DuckDB file path or a postgres:// URL")
+	}
+	c := &s.Cohort
+	if strings.TrimSpace(c.SQL) == "" {
+		return bad("cohort.sql", "missing; give the query that returns one row per unit")
+	}
+	for _, k := range []struct{ key, v string }{{"cohort.unit", c.Unit}, {"cohort.treatment", c.Treatment}} {
+		if k.v == "" {
+			return bad(k.key, "missing; name a column of the cohort query")
+		}
+		if err := warehouse.ValidIdent(k.v); err != nil {
+			return bad(k.key, "%v", err)
+		}
+	}
+	if len(c.Covariates) == 0 {
+		return bad("cohort.covariates", "missing; list the columns the propensity model uses")
+	}
+	used := map[string]string{c.Unit: "cohort.unit"}
+	if prev, ok := used[c.Treatment]; ok {
+		return bad("cohort.treatment", "column %q is already used as %s", c.Treatment, prev)
+	}
+	used[c.Treatment] = "cohort.treatment"
+	for _, group := range []struct {
+		key  string
+		cols []string
+	}{{"cohort.covariates", c.Covariates}, {"cohort.outcomes", c.Outcomes}} {
+		for _, col := range group.cols {
+			if err := warehouse.ValidIdent(col); err != nil {
+				return bad(group.key, "%v", err)
+			}
+			if prev, ok := used[col]; ok {
+				return bad(group.key, "column %q is already used as %s", col, prev)
+			}
+			used[col] = group.key
+		}
+	}
+	for _, col := range c.Categorical {
+		if used[col] != "cohort.covariates" {
+			return bad("cohort.categorical", "%q is not listed in cohort.covariates", col)
+		}
+	}
+	if err := enum("score.model", &s.Score.Model, "logistic", models); err != nil {
+		return err
+	}
+	if s.Score.Lambda < 0 || math.IsNaN(s.Score.Lambda) {
+		return bad("score.lambda", "must be >= 0 (0 picks the default penalty)")
+	}
+	if s.Score.Lambda > 0 && s.Score.Model != "ridge" {
+		return bad("score.lambda", "only applies to score.model: ridge")
+	}
+	if s.Score.MaxIter < 0 {
+		return bad("score.max_iter", "must be >= 0 (0 picks the default, 50)")
+	}
+	if err := enum("support", &s.Support, "none", supports); err != nil {
+		return err
+	}
+	m := &s.Matching
+	if err := enum("matching.algorithm", &m.Algorithm, "greedy", algorithms); err != nil {
+		return err
+	}
+	if !present(doc, "matching.controls") {
+		m.Controls = 1
+	}
+	if m.Controls < 1 {
+		return bad("matching.controls", "%d is not allowed; give at least 1 control per treated unit", m.Controls)
+	}
+	if math.IsNaN(m.Caliper) {
+		m.Caliper = DefaultCaliper
+	}
+	if m.Caliper < 0 || math.IsInf(m.Caliper, 0) {
+		return bad("matching.caliper", "%v is negative; give a width in SDs of logit(ps) (0.2 is usual) or 0 for none", m.Caliper)
+	}
+	for _, col := range m.ExactOn {
+		if used[col] != "cohort.covariates" {
+			return bad("matching.exact_on", "%q is not listed in cohort.covariates", col)
+		}
+	}
+	if err := enum("matching.order", &m.Order, "high-score-first", orders); err != nil {
+		return err
+	}
+	if !present(doc, "matching.seed") {
+		m.Seed = DefaultSeed
+	}
+	if !present(doc, "weighting") {
+		s.Weighting = []string{"att", "ate", "overlap"}
+	}
+	seenScheme := map[string]bool{}
+	for _, w := range s.Weighting {
+		if !oneOf(w, schemes) {
+			return bad("weighting", "%q is not one of %s", w, strings.Join(schemes, " | "))
+		}
+		if seenScheme[w] {
+			return bad("weighting", "%q is listed twice", w)
+		}
+		seenScheme[w] = true
+	}
+	b := &s.Balance
+	if !present(doc, "balance.smd_limit") {
+		b.SMDLimit = 0.1
+	}
+	if !present(doc, "balance.variance_ratio_limit") {
+		b.VarianceRatioLimit = 2
+	}
+	if !(b.SMDLimit > 0) {
+		return bad("balance.smd_limit", "must be > 0 (0.1 is usual)")
+	}
+	if !(b.VarianceRatioLimit > 1) {
+		return bad("balance.variance_ratio_limit", "must be > 1 (2 is usual: ratios between 1/2 and 2 pass)")
+	}
+	if err := enum("balance.on_fail", &b.OnFail, "reject", onFails); err != nil {
+		return err
+	}
+	if err := enum("estimate.estimand", &s.Estimate.Estimand, "att", estimands); err != nil {
+		return err
+	}
+	if scheme := s.PrimaryScheme(); scheme != "" && !seenScheme[scheme] {
+		s.Weighting = append(s.Weighting, scheme)
+	}
+	o := &s.Output
+	if o.Schema == "" {
+		if s.Warehouse.Engine == "postgres" {
+			o.Schema = "public"
+		} else {
+			o.Schema = "main"
+		}
+	}
+	if err := warehouse.ValidIdent(o.Schema); err != nil {
+		return bad("output.schema", "%v", err)
+	}
+	if o.Prefix == "" {
+		o.Prefix = s.Study + "_"
+	}
+	if err := warehouse.ValidIdent(o.Prefix + "balance_history"); err != nil {
+		return bad("output.prefix", "%q cannot start table names: %v", o.Prefix, err)
+	}
+	if o.KeepRuns == -1 {
+		o.KeepRuns = DefaultKeepRuns
+	}
+	if o.KeepRuns < 0 {
+		return bad("output.keep_runs", "must be >= 0 (0 keeps every run)")
+	}
+	return nil
+}
+
+// schemeFor maps an estimand to the weighting scheme that targets it.
+var schemeFor = map[string]string{"att": "att", "ate": "ate", "atc": "atc", "ato": "overlap", "atm": "matching"}
+
+// estimandOf maps a weighting scheme to the estimand it targets.
+var estimandOf = map[string]string{"att": "att", "ate": "ate", "atc": "atc", "overlap": "ato", "matching": "atm"}
+
+// PrimaryScheme is the weighting scheme behind the headline estimate, or
+// "" when the headline comes from matching. Greedy matching of controls to
+// treated units targets the ATT, so matching is the headline only when the
+// estimand is att; any other estimand is served by its weighting scheme.
+func (s *Spec) PrimaryScheme() string {
+	if s.Matching.Algorithm != "off" && s.Estimate.Estimand == "att" {
+		return ""
+	}
+	return schemeFor[s.Estimate.Estimand]
+}
+
+// Primary names the adjustment behind the headline: "matched" or a scheme.
+func (s *Spec) Primary() string {
+	if p := s.PrimaryScheme(); p != "" {
+		return p
+	}
+	return "matched"
+}
+
+// Redacted returns the spec as JSON for the runs table with any password
+// removed from the DSN.
+func (s *Spec) Redacted() string {
+	c := *s
+	c.Warehouse.DSN = RedactDSN(s.Warehouse.DSN)
+	b, _ := json.Marshal(c)
+	return string(b)
+}
+
+var kvPassword = regexp.MustCompile(`(?i)(password\s*=\s*)('[^']*'|\S+)`)
+
+// RedactDSN removes a password from a URL or key=value DSN. A file path
+// comes back unchanged.
+func RedactDSN(dsn string) string {
+	if u, err := url.Parse(dsn); err == nil && u.Scheme != "" && u.Host != "" {
+		if _, has := u.User.Password(); has {
+			u.User = url.UserPassword(u.User.Username(), "redacted")
+		}
+		q := u.Query()
+		for k := range q {
+			if strings.EqualFold(k, "password") {
+				q.Set(k, "redacted")
+			}
+		}
+		u.RawQuery = q.Encode()
+		return u.String()
+	}
+	return kvPassword.ReplaceAllString(dsn, "${1}redacted")
+}
+
+// Schemes lists the weighting schemes in a stable order for the weights
+// table: the study's order.
+func (s *Spec) Schemes() []string { return append([]string(nil), s.Weighting...) }
+
+// sortedCopy returns a sorted copy, for deterministic messages.
+func sortedCopy(xs []string) []string {
+	c := append([]string(nil), xs...)
+	sort.Strings(c)
+	return c
+}

@@ -1,0 +1,175 @@
+package study
+
+import (
+	"encoding/json"
+	"math"
+	"strconv"
+	"time"
+
+	"counterpart/match/balance"
+)
+
+// Summary is what a run reports: the JSON of --json, the runs row's JSON
+// columns, and the source of the terminal summary. It never holds
+// patient-level values.
+type Summary struct {
+	Study       string              `json:"study"`
+	RunID       string              `json:"run_id"`
+	Status      string              `json:"status"`
+	Message     string              `json:"message,omitempty"`
+	Engine      string              `json:"engine"`
+	DryRun      bool                `json:"dry_run"`
+	StartedAt   time.Time           `json:"started_at"`
+	FinishedAt  time.Time           `json:"finished_at"`
+	Fingerprint string              `json:"cohort_fingerprint,omitempty"`
+	Counts      Counts              `json:"counts"`
+	Model       ModelSummary        `json:"model"`
+	Support     Support             `json:"support"`
+	Matching    *MatchingSummary    `json:"matching,omitempty"`
+	Balance     []AdjustmentBalance `json:"balance"`
+	Gate        Gate                `json:"gate"`
+	Primary     string              `json:"headline_adjustment"`
+	Estimand    string              `json:"estimand"`
+	Effects     []EffectRow         `json:"effects"`
+	Timings     map[string]float64  `json:"stage_seconds"`
+}
+
+// Counts is the attrition of the run.
+type Counts struct {
+	Units          int `json:"units"`
+	Treated        int `json:"treated"`
+	Control        int `json:"control"`
+	SupportTreated int `json:"in_support_treated"`
+	SupportControl int `json:"in_support_control"`
+	MatchedTreated int `json:"matched_treated"`
+	MatchedControl int `json:"matched_control"`
+}
+
+// ModelSummary describes the propensity model.
+type ModelSummary struct {
+	Kind       string `json:"kind"`
+	Terms      []Term `json:"terms"`
+	Iterations int    `json:"iterations"`
+	Converged  bool   `json:"converged"`
+	LogLik     Num    `json:"log_likelihood"`
+	NullLogLik Num    `json:"null_log_likelihood"`
+	CStatistic Num    `json:"c_statistic"`
+}
+
+// Term is one model coefficient.
+type Term struct {
+	Name string `json:"term"`
+	Coef Num    `json:"coef"`
+	SE   Num    `json:"std_error"`
+}
+
+// Support is the common-support rule applied.
+type Support struct {
+	Rule    string `json:"rule"`
+	Low     Num    `json:"ps_low"`
+	High    Num    `json:"ps_high"`
+	Dropped int    `json:"units_outside"`
+}
+
+// MatchingSummary describes the matched sets.
+type MatchingSummary struct {
+	Algorithm        string `json:"algorithm"`
+	Controls         int    `json:"controls_per_treated"`
+	Reuse            bool   `json:"reuse"`
+	CaliperSD        Num    `json:"caliper_sd"`
+	LogitSD          Num    `json:"logit_pooled_sd"`
+	CaliperWidth     Num    `json:"caliper_width"`
+	Strata           int    `json:"exact_strata"`
+	Sets             int    `json:"sets"`
+	MatchedTreated   int    `json:"matched_treated"`
+	UnmatchedTreated int    `json:"unmatched_treated"`
+	MatchedControls  int    `json:"matched_controls"`
+	TotalDistance    Num    `json:"total_distance"`
+}
+
+// AdjustmentBalance is balance under one adjustment.
+type AdjustmentBalance struct {
+	Adjustment    string   `json:"adjustment"`
+	Pass          bool     `json:"pass"`
+	WorstSMD      Num      `json:"worst_abs_smd"`
+	WorstVariable string   `json:"worst_variable"`
+	Failures      []string `json:"failures,omitempty"`
+	ESSTreated    Num      `json:"ess_treated"`
+	ESSControl    Num      `json:"ess_control"`
+	Stats         []Stat   `json:"variables"`
+}
+
+// Stat is one variable's balance row.
+type Stat struct {
+	Name     string `json:"covariate"`
+	Level    string `json:"level,omitempty"`
+	MeanT    Num    `json:"mean_treated"`
+	MeanC    Num    `json:"mean_control"`
+	SDT      Num    `json:"sd_treated"`
+	SDC      Num    `json:"sd_control"`
+	SMD      Num    `json:"smd"`
+	VarRatio Num    `json:"variance_ratio"`
+}
+
+func toStats(st []balance.Stat) []Stat {
+	out := make([]Stat, len(st))
+	for i, s := range st {
+		out[i] = Stat{Name: s.Name, Level: s.Level, MeanT: Num(s.MeanT), MeanC: Num(s.MeanC), SDT: Num(s.SDT), SDC: Num(s.SDC), SMD: Num(s.SMD), VarRatio: Num(s.VarRatio)}
+	}
+	return out
+}
+
+// Gate is the balance verdict that decides exit code 3.
+type Gate struct {
+	Adjustment    string `json:"adjustment"`
+	Pass          bool   `json:"pass"`
+	OnFail        string `json:"on_fail"`
+	SMDLimit      Num    `json:"smd_limit"`
+	VRLimit       Num    `json:"variance_ratio_limit"`
+	WorstSMD      Num    `json:"worst_abs_smd"`
+	WorstVariable string `json:"worst_variable"`
+	Message       string `json:"message,omitempty"`
+}
+
+// EffectRow is one outcome under one adjustment.
+type EffectRow struct {
+	Outcome    string `json:"outcome"`
+	Adjustment string `json:"adjustment"`
+	Estimand   string `json:"estimand"`
+	Method     string `json:"se_method"`
+	Estimate   Num    `json:"estimate"`
+	SE         Num    `json:"std_error"`
+	CILow      Num    `json:"ci_low"`
+	CIHigh     Num    `json:"ci_high"`
+	P          Num    `json:"p_value"`
+	NTreated   int    `json:"n_treated"`
+	NControl   int    `json:"n_control"`
+	NMissing   int    `json:"n_missing_outcome"`
+}
+
+// Num is a float64 that encodes NaN and ±Inf as JSON null instead of
+// failing the whole summary.
+type Num float64
+
+// MarshalJSON implements json.Marshaler.
+func (n Num) MarshalJSON() ([]byte, error) {
+	f := float64(n)
+	if math.IsNaN(f) || math.IsInf(f, 0) {
+		return []byte("null"), nil
+	}
+	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
+}
+
+// UnmarshalJSON implements json.Unmarshaler (null becomes NaN).
+func (n *Num) UnmarshalJSON(b []byte) error {
+	if string(b) == "null" {
+		*n = Num(math.NaN())
+		return nil
+	}
+	var f float64
+	if err := json.Unmarshal(b, &f); err != nil {
+		return err
+	}
+	*n = Num(f)
+	return nil
+}

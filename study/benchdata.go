@@ -2,7 +2,7 @@ package study
 
 import "fmt"
 
-// BenchCohortSQL returns DuckDB SQL that creates bench.cohort: n synthetic
+// BenchCohortSQL returns DuckDB SQL that creates synth.cohort: n synthetic
 // units, about 10 % treated, 17 numeric and 3 categorical covariates and
 // two outcomes. It is the fixed workload of the whole-run benchmark, built
 // inside DuckDB so that generating a million rows costs seconds, not the
@@ -18,22 +18,22 @@ func BenchCohortSQL(n int) string {
 	}
 	return fmt.Sprintf(`
 SELECT setseed(0.42);
-CREATE SCHEMA IF NOT EXISTS bench;
-CREATE OR REPLACE TABLE bench.base AS
+CREATE SCHEMA IF NOT EXISTS synth;
+CREATE OR REPLACE TABLE synth.base AS
 SELECT i AS unit_id%s,
        ['north','south','east','west','centre'][1 + (hash(i * 7) %% 5)::INT] AS c1,
        ['a','b','c','d','e'][1 + floor(random() * 5)::INT] AS c2,
        ['p','q','r','s','t'][1 + floor(random() * 5)::INT] AS c3,
        random() AS u1, random() AS u2, random() AS u3
 FROM range(%d) t(i);
-CREATE OR REPLACE TABLE bench.cohort AS
+CREATE OR REPLACE TABLE synth.cohort AS
 SELECT unit_id,
        u1 < 1 / (1 + exp(-(%s + CASE c1 WHEN 'north' THEN 0.3 WHEN 'east' THEN -0.2 ELSE 0 END))) AS treated,
        * EXCLUDE (unit_id, u1, u2, u3),
        (u2 < 0.2 + 0.05 * (x01 > 0)::INT)::INT AS y_bin,
        100 + 3 * x01 - 2 * x02 + 10 * u3 AS y_cont
-FROM bench.base;
-DROP TABLE bench.base;
+FROM synth.base;
+DROP TABLE synth.base;
 `, num, n, lin)
 }
 
@@ -43,7 +43,7 @@ warehouse:
   engine: duckdb
   dsn: %s
 cohort:
-  sql: select * from bench.cohort
+  sql: select * from synth.cohort
   unit: unit_id
   treatment: treated
   outcomes: [y_bin, y_cont]

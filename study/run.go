@@ -243,12 +243,9 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
-	denom := make([]float64, len(d.vars))
-	for j, v := range d.vars {
-		denom[j] = balance.PooledSD(v, z)
-	}
+	prep := balance.Prepare(d.vars, z)
 	adjust := func(name string, w []float64) {
-		st := balance.Compute(d.vars, z, w, denom)
+		st := prep.Compute(w)
 		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
 		ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
 		if w != nil {

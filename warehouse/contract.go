@@ -67,17 +67,20 @@ func NewContract(out Output) (*Contract, error) {
 		return nil, fmt.Errorf("output.prefix %q: %w: use only lower-case letters, digits and _", out.Prefix, ErrBadInput)
 	}
 	c := &Contract{Schema: out.Schema, Unit: out.Unit, Treatment: out.Treatment}
-	names := map[*string]string{
-		&c.Runs.Name: "runs", &c.Cohort.Name: "cohort", &c.Scores.Name: "scores",
-		&c.Matches.Name: "matches", &c.Weights.Name: "weights",
-		&c.CurrentCohort: "current_cohort", &c.CurrentScores: "current_scores",
-		&c.CurrentMatches: "current_matches", &c.CurrentWeights: "current_weights",
-		&c.Balance: "balance", &c.BalanceHistory: "balance_history",
+	names := []struct {
+		p    *string
+		base string
+	}{
+		{&c.Runs.Name, "runs"}, {&c.Cohort.Name, "cohort"}, {&c.Scores.Name, "scores"},
+		{&c.Matches.Name, "matches"}, {&c.Weights.Name, "weights"},
+		{&c.CurrentCohort, "current_cohort"}, {&c.CurrentScores, "current_scores"},
+		{&c.CurrentMatches, "current_matches"}, {&c.CurrentWeights, "current_weights"},
+		{&c.Balance, "balance"}, {&c.BalanceHistory, "balance_history"},
 	}
-	for p, base := range names {
-		*p = out.Prefix + base
-		if err := ValidIdent(*p); err != nil {
-			return nil, fmt.Errorf("output.prefix %q gives the object name %s: %w", out.Prefix, *p, err)
+	for _, n := range names {
+		*n.p = out.Prefix + n.base
+		if err := ValidIdent(*n.p); err != nil {
+			return nil, fmt.Errorf("output.prefix %q gives the object name %s: %w", out.Prefix, *n.p, err)
 		}
 	}
 

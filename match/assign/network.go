@@ -129,6 +129,7 @@ type problem struct {
 	pos       []int32 // first control position with score >= treated score
 	lo, hi    []int32
 	l, r      []int32
+	extra     [][]int32 // arcs added outside the window, per treated
 	w0        int
 	edges     int
 	rounds    int
@@ -142,7 +143,7 @@ func newProblem(u stratumUnits, cal float64, spec flow.Spec, w0 int) *problem {
 	p := &problem{u: u, cal: cal, w0: w0,
 		net: flow.New(nt, nc, spec),
 		pos: make([]int32, nt), lo: make([]int32, nt), hi: make([]int32, nt),
-		l: make([]int32, nt), r: make([]int32, nt)}
+		l: make([]int32, nt), r: make([]int32, nt), extra: make([][]int32, nt)}
 	lo, hi := math.Inf(1), math.Inf(-1)
 	for _, s := range [][]float64{u.st, u.sc} {
 		if len(s) > 0 {
@@ -160,6 +161,17 @@ func newProblem(u stratumUnits, cal float64, spec flow.Spec, w0 int) *problem {
 		p.hi[t] = int32(x + sort.Search(nc-x, func(i int) bool { return !p.inside(u.sc[x+i] - s) }))
 		p.l[t], p.r[t] = int32(x), int32(x)
 		p.widen(t, int32(max(int(p.lo[t]), x-w0)), int32(min(int(p.hi[t]), x+w0)))
+		// The control of the same rank quantile: in one dimension without a
+		// caliper, matching the i-th treated to the i-th control is optimal
+		// when the groups are equal in size, and no nearest-neighbour window
+		// holds those long arcs when the groups' scores are shifted.
+		j := int32(int64(t) * int64(nc) / int64(max(nt, 1)))
+		for q := j - 1; q <= j+1; q++ {
+			if q >= p.lo[t] && q < p.hi[t] && (q < p.l[t] || q >= p.r[t]) {
+				p.net.AddArc(t, int(q), math.Abs(s-u.sc[q]))
+				p.extra[t] = append(p.extra[t], q)
+			}
+		}
 	}
 	return p
 }
@@ -169,11 +181,16 @@ func newProblem(u stratumUnits, cal float64, spec flow.Spec, w0 int) *problem {
 func (p *problem) widen(t int, nl, nr int32) {
 	nl, nr = max(nl, p.lo[t]), min(nr, p.hi[t])
 	s := p.u.st[t]
+	add := func(q int32) {
+		if !slices.Contains(p.extra[t], q) {
+			p.net.AddArc(t, int(q), math.Abs(s-p.u.sc[q]))
+		}
+	}
 	for q := nl; q < p.l[t]; q++ {
-		p.net.AddArc(t, int(q), math.Abs(s-p.u.sc[q]))
+		add(q)
 	}
 	for q := p.r[t]; q < nr; q++ {
-		p.net.AddArc(t, int(q), math.Abs(s-p.u.sc[q]))
+		add(q)
 	}
 	p.l[t], p.r[t] = min(nl, p.l[t]), max(nr, p.r[t])
 }
@@ -201,6 +218,9 @@ func (p *problem) coverControls() {
 // solve runs the solve / certify / widen loop.
 func (p *problem) solve() error {
 	for p.rounds = 1; ; p.rounds++ {
+		if p.rounds > 1 {
+			p.net.Reset()
+		}
 		if err := p.net.Solve(p.tol); err != nil {
 			return err
 		}
@@ -213,10 +233,17 @@ func (p *problem) solve() error {
 			break
 		}
 		for _, v := range viol {
-			t := v.t
-			wl, wr := 2*(p.pos[t]-p.l[t]), 2*(p.r[t]-p.pos[t])
-			nl, nr := min(p.pos[t]-max(wl, int32(p.w0)), v.q), max(p.pos[t]+max(wr, int32(p.w0)), v.q+1)
-			p.widen(int(t), nl, nr)
+			t := int(v.t)
+			if v.q < p.l[t] || v.q >= p.r[t] {
+				p.net.AddArc(t, int(v.q), math.Abs(p.u.st[t]-p.u.sc[v.q]))
+				p.extra[t] = append(p.extra[t], v.q)
+			}
+			// Double the window on the violating side.
+			if v.q < p.pos[t] {
+				p.widen(t, p.pos[t]-2*max(p.pos[t]-p.l[t], 1), p.r[t])
+			} else {
+				p.widen(t, p.l[t], p.pos[t]+2*max(p.r[t]-p.pos[t], 1))
+			}
 		}
 	}
 	p.edges = p.net.Arcs()
@@ -260,8 +287,10 @@ func (p *problem) violations() []violation {
 		ht := p.net.PotentialT(t)
 		ex := used[t]
 		slices.Sort(ex)
-		worst, wq := flow.Cost{Tier: math.MinInt64}, int32(-1)
+		var worst flow.Cost
+		var wq int32
 		scan := func(tree *maxTree, a, b int32, shift float64) {
+			worst, wq = flow.Cost{Tier: math.MinInt64}, -1
 			for _, x := range append(ex, b) {
 				hiEnd := min(x, b)
 				if hiEnd > a {
@@ -273,15 +302,15 @@ func (p *problem) violations() []violation {
 				}
 				a = max(a, x+1)
 				if a >= b {
-					return
+					break
 				}
+			}
+			if wq >= 0 && (worst.Tier > ht.Tier || (worst.Tier == ht.Tier && worst.Dist > ht.Dist+p.tol)) {
+				out = append(out, violation{int32(t), wq})
 			}
 		}
 		scan(&left, p.lo[t], p.pos[t], -s)
 		scan(&right, p.pos[t], p.hi[t], s)
-		if wq >= 0 && (worst.Tier > ht.Tier || (worst.Tier == ht.Tier && worst.Dist > ht.Dist+p.tol)) {
-			out = append(out, violation{int32(t), wq})
-		}
 	}
 	return out
 }

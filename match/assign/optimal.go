@@ -71,13 +71,7 @@ func Optimal(score []float64, treated []bool, stratum []int32, eligible []bool, 
 		if len(u.ts) == 0 {
 			return nil
 		}
-		m := k*int64(len(u.ts)) + 1
-		spec := flow.Spec{
-			UpT:     [2]flow.Seg{{Cap: 1, Cost: flow.Cost{Tier: m}}, {Cap: int32(k - 1), Cost: flow.Cost{Tier: 1}}},
-			UpC:     [2]flow.Seg{{Cap: 1}},
-			SupplyT: k,
-		}
-		p := newProblem(u, opt.Caliper, spec, opt.Controls+2)
+		p := newProblem(u, opt.Caliper, specOneToK(k, len(u.ts)), opt.Controls+2)
 		probs[i] = p
 		if err := p.solve(); err != nil {
 			return fmt.Errorf("stratum with %d treated: %w", len(u.ts), err)
@@ -126,6 +120,16 @@ func Optimal(score []float64, treated []bool, stratum []int32, eligible []bool, 
 	}
 	cert.Seconds = time.Since(start).Seconds()
 	return sets, cert, nil
+}
+
+// specOneToK is the network of 1:k matching for nt treated units.
+func specOneToK(k int64, nt int) flow.Spec {
+	m := k*int64(nt) + 1
+	return flow.Spec{
+		UpT:     [2]flow.Seg{{Cap: 1, Cost: flow.Cost{Tier: m}}, {Cap: int32(k - 1), Cost: flow.Cost{Tier: 1}}},
+		UpC:     [2]flow.Seg{{Cap: 1}},
+		SupplyT: k,
+	}
 }
 
 func (c *Certificate) note(p *problem) {

@@ -3,7 +3,10 @@ package balance
 import (
 	"fmt"
 	"math"
+	"runtime"
 	"slices"
+	"sync"
+	"sync/atomic"
 )
 
 // Variable is one numeric covariate, or the 0/1 indicator of one level of a
@@ -183,20 +186,168 @@ func Compute(vars []Variable, z []bool, w []float64, denom []float64) []Stat {
 		} else {
 			d = PooledSD(v, z)
 		}
-		t := armSummary(v.Values, z, w, true)
-		c := armSummary(v.Values, z, w, false)
-		out[k] = Stat{
-			Name: v.Name, Level: v.Level, Binary: v.Binary,
-			NT: t.n, NC: c.n,
-			MeanT: t.mean, MeanC: c.mean,
-			SDT: math.Sqrt(t.variance), SDC: math.Sqrt(c.variance),
-			Denom:    d,
-			SMD:      smd(t.mean, c.mean, d),
-			VarRatio: varRatio(t.variance, c.variance),
-			KS:       KS(v.Values, z, w),
-		}
+		out[k] = stat(v, z, w, d, nil)
 	}
 	return out
+}
+
+// stat computes one variable's row; order, when given, is the variable's
+// ascending sort order over all units, which turns KS from a sort into a
+// scan.
+func stat(v Variable, z []bool, w []float64, d float64, order []int32) Stat {
+	t := armSummary(v.Values, z, w, true)
+	c := armSummary(v.Values, z, w, false)
+	var ks float64
+	switch {
+	case v.Binary:
+		// For a 0/1 variable the CDFs differ only at 0, by |p_T − p_C|.
+		ks = math.Abs(t.mean - c.mean)
+	case order != nil:
+		ks = ksSorted(v.Values, z, w, order)
+	default:
+		ks = KS(v.Values, z, w)
+	}
+	return Stat{
+		Name: v.Name, Level: v.Level, Binary: v.Binary,
+		NT: t.n, NC: c.n,
+		MeanT: t.mean, MeanC: c.mean,
+		SDT: math.Sqrt(t.variance), SDC: math.Sqrt(c.variance),
+		Denom:    d,
+		SMD:      smd(t.mean, c.mean, d),
+		VarRatio: varRatio(t.variance, c.variance),
+		KS:       ks,
+	}
+}
+
+// Prepared holds what every adjustment of one cohort shares: the variables,
+// their unadjusted denominators and each continuous variable's sort order.
+// A run compares many adjustments on the same units, so sorting once and
+// scanning per adjustment keeps balance linear in n per adjustment.
+type Prepared struct {
+	vars  []Variable
+	z     []bool
+	denom []float64
+	order [][]int32
+}
+
+// Prepare sorts each continuous variable once and fixes the unadjusted
+// pooled SDs (the SMD denominators), in parallel across variables.
+func Prepare(vars []Variable, z []bool) *Prepared {
+	p := &Prepared{vars: vars, z: z, denom: make([]float64, len(vars)), order: make([][]int32, len(vars))}
+	parallel(len(vars), func(k int) {
+		v := vars[k]
+		if len(v.Values) != len(z) {
+			panic(fmt.Sprintf("balance: Prepare: %s has %d values, z has %d", v.Label(), len(v.Values), len(z)))
+		}
+		p.denom[k] = PooledSD(v, z)
+		if v.Binary {
+			return
+		}
+		idx := make([]int32, len(z))
+		for i := range idx {
+			idx[i] = int32(i)
+		}
+		x := v.Values
+		slices.SortFunc(idx, func(a, b int32) int {
+			switch {
+			case x[a] < x[b]:
+				return -1
+			case x[a] > x[b]:
+				return 1
+			}
+			return int(a - b)
+		})
+		p.order[k] = idx
+	})
+	return p
+}
+
+// Denominators returns the unadjusted pooled SD of each variable.
+func (p *Prepared) Denominators() []float64 { return p.denom }
+
+// Compute is the package-level Compute with the shared denominators and
+// sort orders, in parallel across variables; the results are identical.
+func (p *Prepared) Compute(w []float64) []Stat {
+	if w != nil && len(w) != len(p.z) {
+		panic(fmt.Sprintf("balance: Compute: len(w) = %d, len(z) = %d", len(w), len(p.z)))
+	}
+	for i, wi := range w {
+		if !(wi >= 0) || math.IsInf(wi, 1) {
+			panic(fmt.Sprintf("balance: Compute: weight %d is %v; validate weights with weights.Check", i, wi))
+		}
+	}
+	out := make([]Stat, len(p.vars))
+	parallel(len(p.vars), func(k int) {
+		out[k] = stat(p.vars[k], p.z, w, p.denom[k], p.order[k])
+	})
+	return out
+}
+
+// parallel runs f(0..n-1) over GOMAXPROCS goroutines.
+func parallel(n int, f func(int)) {
+	workers := min(runtime.GOMAXPROCS(0), n)
+	if workers <= 1 {
+		for k := 0; k < n; k++ {
+			f(k)
+		}
+		return
+	}
+	var next atomic.Int64
+	var wg sync.WaitGroup
+	for g := 0; g < workers; g++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			for {
+				k := int(next.Add(1) - 1)
+				if k >= n {
+					return
+				}
+				f(k)
+			}
+		}()
+	}
+	wg.Wait()
+}
+
+// ksSorted is KS over a precomputed ascending order of x.
+func ksSorted(x []float64, z []bool, w []float64, order []int32) float64 {
+	var st, sc float64
+	for i := range x {
+		wi := weight(w, i)
+		if wi == 0 {
+			continue
+		}
+		if z[i] {
+			st += wi
+		} else {
+			sc += wi
+		}
+	}
+	if st == 0 || sc == 0 {
+		return math.NaN()
+	}
+	var ft, fc, d float64
+	last := -1
+	for _, i32 := range order {
+		i := int(i32)
+		wi := weight(w, i)
+		if wi == 0 {
+			continue
+		}
+		// Compare the CDFs only after the last of a run of ties: when the
+		// value changes, the previous run is complete.
+		if last >= 0 && x[i] != x[last] {
+			d = math.Max(d, math.Abs(ft-fc))
+		}
+		if z[i] {
+			ft += wi / st
+		} else {
+			fc += wi / sc
+		}
+		last = i
+	}
+	return math.Max(d, math.Abs(ft-fc))
 }
 
 func smd(mt, mc, d float64) float64 {

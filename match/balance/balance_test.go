@@ -4,6 +4,7 @@ import (
 	"encoding/csv"
 	"encoding/json"
 	"math"
+	"math/rand/v2"
 	"os"
 	"path/filepath"
 	"strconv"
@@ -468,4 +469,41 @@ func BenchmarkCompute(b *testing.B) {
 		Compute(vars, z, w, nil)
 	}
 	b.ReportMetric(float64(n)*float64(b.N)/b.Elapsed().Seconds(), "units/s")
+}
+
+// TestPreparedMatchesCompute: the shared-sort path must give the same rows
+// as the plain one (same formulas; KS of a binary variable is |p_T − p_C|,
+// a property of the two-sample statistic, common practice).
+func TestPreparedMatchesCompute(t *testing.T) {
+	r := rand.New(rand.NewPCG(5, 6))
+	n := 500
+	z := make([]bool, n)
+	x := make([]float64, n)
+	b := make([]float64, n)
+	w := make([]float64, n)
+	for i := range z {
+		z[i] = r.Float64() < 0.3
+		x[i] = math.Round(r.NormFloat64()*4) / 2 // ties
+		if r.Float64() < 0.4 {
+			b[i] = 1
+		}
+		if r.Float64() < 0.8 {
+			w[i] = r.Float64() * 3
+		}
+	}
+	vars := []Variable{{Name: "x", Values: x}, {Name: "b", Level: "1", Binary: true, Values: b}}
+	p := Prepare(vars, z)
+	for _, weights := range [][]float64{nil, w} {
+		got := p.Compute(weights)
+		want := Compute(vars, z, weights, nil)
+		for k := range want {
+			g, e := got[k], want[k]
+			for _, pair := range [][2]float64{{g.MeanT, e.MeanT}, {g.MeanC, e.MeanC}, {g.SMD, e.SMD}, {g.VarRatio, e.VarRatio}, {g.KS, e.KS}} {
+				if math.Abs(pair[0]-pair[1]) > 1e-12 {
+					t.Errorf("%s: prepared %v, plain %v", e.Label(), g, e)
+					break
+				}
+			}
+		}
+	}
 }

@@ -77,8 +77,8 @@ u AS (
 s1 AS (
     SELECT run_id, adjustment, treated
 {{- range .Vars}},
-           SUM(w) FILTER (WHERE {{.Alias}} IS NOT NULL) AS {{.Alias}}_sw,
-           SUM(w * w) FILTER (WHERE {{.Alias}} IS NOT NULL) AS {{.Alias}}_sww
+           SUM(CASE WHEN {{.Alias}} IS NOT NULL THEN w END) AS {{.Alias}}_sw,
+           SUM(CASE WHEN {{.Alias}} IS NOT NULL THEN w * w END) AS {{.Alias}}_sww
 {{- if not .Categorical}},
            SUM(w * {{.Alias}}) AS {{.Alias}}_swx
 {{- end}}
@@ -171,5 +171,15 @@ ORDER BY p.run_id, p.covariate, p.level NULLS FIRST, p.adjustment;
 {{- end}}
 
 COMMENT ON VIEW {{.View}} IS {{lit .Comment}};
+COMMENT ON COLUMN {{.View}}.run_id IS 'run the balance belongs to';
+COMMENT ON COLUMN {{.View}}.covariate IS 'covariate name as in the study';
+COMMENT ON COLUMN {{.View}}.level IS 'level of a categorical covariate (its 0/1 indicator); NULL for a numeric covariate';
+COMMENT ON COLUMN {{.View}}.adjustment IS 'unadjusted, matched (weight = sum of set_weight), or a weighting scheme (units with weight 0 excluded)';
+COMMENT ON COLUMN {{.View}}.mean_treated IS 'weighted mean among treated units: sum(w x) / sum(w); a proportion for a level';
+COMMENT ON COLUMN {{.View}}.mean_control IS 'weighted mean among comparison units';
+COMMENT ON COLUMN {{.View}}.sd_treated IS 'weighted SD among treated units: sqrt(sum(w (x - m)^2) / (sum(w) - sum(w^2) / sum(w))); NULL when undefined';
+COMMENT ON COLUMN {{.View}}.sd_control IS 'weighted SD among comparison units, as sd_treated';
+COMMENT ON COLUMN {{.View}}.smd IS 'standardised mean difference (mean_treated - mean_control) / d, d the unadjusted pooled SD: sqrt((s_T^2 + s_C^2) / 2), or sqrt((p_T(1 - p_T) + p_C(1 - p_C)) / 2) for a level (Austin 2009); NULL when d = 0';
+COMMENT ON COLUMN {{.View}}.variance_ratio IS 'sd_treated^2 / sd_control^2; NULL when the control variance is 0 or undefined';
 {{- /* "runs" restricts a scan to the current run when .Current is set. */}}
 {{- define "runs"}}{{if .Current}}run_id IN (SELECT run_id FROM cur){{else}}TRUE{{end}}{{end}}

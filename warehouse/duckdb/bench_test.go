@@ -184,3 +184,35 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 	b.ReportMetric(sec, "s/append")
 	b.ReportMetric(benchRows/sec, "rows/s")
 }
+
+// BenchmarkBalanceView1M queries the balance view of a published 1M-unit
+// run: 17 numeric and 3 five-level covariates under four adjustments.
+func BenchmarkBalanceView1M(b *testing.B) {
+	w, q := benchCohort(b)
+	ctx := context.Background()
+	c, err := w.ReadCohort(ctx, q)
+	if err != nil {
+		b.Fatal(err)
+	}
+	out, p := benchPublication(c)
+	p.Run = warehouse.RunRecord{RunID: "r1", Study: "bench", StartedAt: time.Now()}
+	if err := w.StartRun(ctx, out, p.Run); err != nil {
+		b.Fatal(err)
+	}
+	p.Run.Status = warehouse.StatusSucceeded
+	if err := w.Publish(ctx, out, p); err != nil {
+		b.Fatal(err)
+	}
+	b.ResetTimer()
+	for b.Loop() {
+		var n int
+		var s float64
+		if err := w.conn.QueryRowContext(ctx, "SELECT count(*), sum(abs(smd)) FROM bench_balance").Scan(&n, &s); err != nil {
+			b.Fatal(err)
+		}
+		if n != (17+3*5)*4 {
+			b.Fatalf("%d balance rows", n)
+		}
+	}
+	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/query")
+}

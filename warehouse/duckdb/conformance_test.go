@@ -69,8 +69,8 @@ var engine = warehousetest.Engine{
 	},
 	// flock conflicts between two open files even in one process, so the
 	// same handle stands for another session.
-	Other: func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
-	Fault: func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
+	Other:      func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
+	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
 	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "retention", "views", "commit"},
 }
 

@@ -111,14 +111,14 @@ func TestReadDuckDBTypes(t *testing.T) {
 				[]string{"covariate column ts has type TIMESTAMP"}},
 			{"list outcome", warehouse.CohortQuery{SQL: "SELECT id, tu, [1, 2] AS y FROM d", Unit: "id", Treatment: "tu", Outcomes: []string{"y"}},
 				[]string{"outcome column y has type INTEGER[]"}},
-			{"ubigint beyond int64", warehouse.CohortQuery{SQL: "SELECT CAST(id AS UBIGINT) + 18446744073709551612 AS id, tu FROM d", Unit: "id", Treatment: "tu"},
-				[]string{"unit column id has 2 values outside the 64-bit integer range (for example 18446744073709551614)", "VARCHAR"}},
+			{"ubigint beyond int64", warehouse.CohortQuery{SQL: "SELECT CAST(id AS UBIGINT) + 9223372036854775806 AS id, tu FROM d ORDER BY id", Unit: "id", Treatment: "tu"},
+				[]string{"unit column id has 2 values outside the 64-bit integer range (for example 9223372036854775808)", "VARCHAR"}},
 			{"hugeint beyond int64", warehouse.CohortQuery{SQL: "SELECT CAST(id AS HUGEINT) * 10000000000000000000 AS id, tu FROM d", Unit: "id", Treatment: "tu"},
 				[]string{"3 values outside the 64-bit integer range (for example 10000000000000000000)"}},
 			{"infinite outcome", warehouse.CohortQuery{SQL: "SELECT id, tu, CASE WHEN id = 3 THEN 'inf'::DOUBLE ELSE 1 END AS y FROM d", Unit: "id", Treatment: "tu", Outcomes: []string{"y"}},
 				[]string{"column y has 1 NaN or infinite value (for example at unit 3)"}},
-			{"ambiguous names", warehouse.CohortQuery{SQL: `SELECT id, tu, f AS "X", f AS "x " FROM d`, Unit: "id", Treatment: "tu", Covariates: []string{"X "}},
-				[]string{"returns no column X  (covariate)"}},
+			{"duplicate names", warehouse.CohortQuery{SQL: `SELECT id, tu, f AS a, huge AS a FROM d`, Unit: "id", Treatment: "tu", Covariates: []string{"a"}},
+				[]string{"returns 2 columns named a (covariate)", "alias them"}},
 			{"case clash", warehouse.CohortQuery{SQL: `SELECT id, tu, f AS "Age", f AS "AGE" FROM d`, Unit: "id", Treatment: "tu", Covariates: []string{"age"}},
 				[]string{"Age, AGE", "differ from age (covariate) only in case"}},
 		}
@@ -175,10 +175,13 @@ func TestRefuseDuckDBStatements(t *testing.T) {
 		{"UPDATE src SET grp = 'x'", "the query writes (UPDATE)", ""},
 		{"DELETE FROM src", "the query writes (DELETE)", ""},
 		{"SET threads = 1", "the query writes (SET)", ""},
-		{"COMMIT", "the query writes (transaction control)", ""},
+		{"COMMIT", "the query writes (COMMIT)", ""},
+		{"/* note */ -- line\n  insert into src select * from src", "the query writes (INSERT)", ""},
+		{"WITH a AS (SELECT 1) DELETE FROM src", "statement other than a SELECT", ""},
+		{"SELECT 1; DROP TABLE src", "statement other than a SELECT", ""},
 		{"CREATE MACRO m(x) AS x + 1", "the query writes (CREATE", ""},
-		{"PIVOT src ON grp USING count(*)", "more than one statement", ""},
-		{"SELECT * FROM src; SELECT 1", "more than one statement", ""},
+		{"PIVOT src ON grp USING count(*)", "is a PIVOT statement", ""},
+		{"SELECT * FROM src; SELECT 1", "holds 2 statements", ""},
 		{"EXPLAIN SELECT * FROM src", "is a EXPLAIN statement", ""},
 		{"CALL pragma_version()", "is a CALL statement", ""},
 		{"-- only a comment", "cohort.sql is empty", ""},
@@ -387,7 +390,7 @@ func TestCommentsAndTypes(t *testing.T) {
 	if err := w.StartRun(ctx, out, rec); err != nil {
 		t.Fatal(err)
 	}
-	if got := queryRows(t, w, "SELECT table_name, column_name FROM duckdb_columns() WHERE table_name LIKE 'st_%' AND (comment IS NULL OR comment = '') AND table_name NOT IN (SELECT view_name FROM duckdb_views())"); len(got) > 0 {
+	if got := queryRows(t, w, "SELECT table_name, column_name FROM duckdb_columns() WHERE table_name LIKE 'st_%' AND (comment IS NULL OR comment = '') AND table_name NOT LIKE 'st_current_%'"); len(got) > 0 {
 		t.Errorf("columns without a comment: %v", got)
 	}
 	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE 'st_%' AND comment <> ''")); got != "[[5]]" {
@@ -422,17 +425,22 @@ func TestQuoteInDuckDB(t *testing.T) {
 	}
 }
 
-// TestBalanceViewNoCovariates: a study without covariates still gets
-// (empty) balance views of the documented shape.
-func TestBalanceViewNoCovariates(t *testing.T) {
-	w := openTemp(t)
-	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr"}
-	if err := w.StartRun(context.Background(), out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
-		t.Fatal(err)
-	}
-	got := queryRows(t, w, "SELECT column_name FROM duckdb_columns() WHERE table_name = 'st_balance' ORDER BY column_index")
-	if fmt.Sprint(got) != "[[run_id] [covariate] [level] [adjustment] [mean_treated] [mean_control] [sd_treated] [sd_control] [smd] [variance_ratio]]" {
-		t.Errorf("balance columns %v", got)
+// TestBalanceViewShapes: studies without covariates, or with categorical
+// covariates only, still get balance views of the documented shape.
+func TestBalanceViewShapes(t *testing.T) {
+	for _, covs := range [][]warehouse.CovariateMeta{nil, {{Name: "sex", Kind: warehouse.Categorical}}} {
+		w := openTemp(t)
+		out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr", Covariates: covs}
+		if err := w.StartRun(context.Background(), out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
+			t.Fatal(err)
+		}
+		got := queryRows(t, w, "SELECT column_name FROM duckdb_columns() WHERE table_name = 'st_balance_history' ORDER BY column_index")
+		if fmt.Sprint(got) != "[[run_id] [covariate] [level] [adjustment] [mean_treated] [mean_control] [sd_treated] [sd_control] [smd] [variance_ratio]]" {
+			t.Errorf("covariates %v: balance columns %v", covs, got)
+		}
+		if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM st_balance_history")); got != "[[0]]" {
+			t.Errorf("covariates %v: %s balance rows before any publish", covs, got)
+		}
 	}
 }
 
@@ -442,7 +450,7 @@ func TestSortLevels(t *testing.T) {
 		{[]string{"b", "B", "a"}, []string{"B", "a", "b"}},
 		{[]string{"true", "false"}, []string{"false", "true"}},
 		{[]string{"1.0", "1", "0"}, []string{"0", "1", "1.0"}}, // equal numbers: bytewise
-		{[]string{"10", "x", "2"}, []string{"10", "2", "x"}},  // not all numbers: bytewise
+		{[]string{"10", "x", "2"}, []string{"10", "2", "x"}},   // not all numbers: bytewise
 		{[]string{"NaN", "1"}, []string{"1", "NaN"}},
 	}
 	for _, tt := range tests {
@@ -476,5 +484,52 @@ func TestDecimalFloat(t *testing.T) {
 	}
 	if got := decimalFloat(duckdb.Decimal{Scale: 2, Value: new(big.Int).Lsh(big.NewInt(1), 80)}); math.Abs(got-math.Ldexp(1, 80)/100) > 1e-3*math.Ldexp(1, 80)/100 {
 		t.Errorf("wide decimal %v", got)
+	}
+}
+
+// TestPublishChecks: a publication that does not fit its output is refused
+// before anything is written.
+func TestPublishChecks(t *testing.T) {
+	w := openTemp(t)
+	ctx := context.Background()
+	execSQL(t, w, "CREATE TABLE src AS SELECT range AS id, range % 2 = 0 AS tr, range * 1.0 AS x FROM range(4)")
+	c, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: "SELECT * FROM src ORDER BY id", Unit: "id", Treatment: "tr", Covariates: []string{"x"}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr",
+		Covariates: []warehouse.CovariateMeta{{Name: "x"}}, Schemes: []string{"att"}}
+	good := func() *warehouse.Publication {
+		return &warehouse.Publication{Run: warehouse.RunRecord{RunID: "r1", Status: warehouse.StatusSucceeded}, Cohort: c,
+			PS: make([]float64, 4), LogitPS: make([]float64, 4), InSupport: make([]bool, 4), Weights: [][]float64{make([]float64, 4)}}
+	}
+	if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
+		t.Fatal(err)
+	}
+	tests := []struct {
+		name string
+		edit func(*warehouse.Publication)
+		want string
+	}{
+		{"running status", func(p *warehouse.Publication) { p.Run.Status = warehouse.StatusRunning }, "final status"},
+		{"short scores", func(p *warehouse.Publication) { p.PS = p.PS[:3] }, "ps has 3 values for 4 units"},
+		{"weights columns", func(p *warehouse.Publication) { p.Weights = nil }, "0 columns for 1 schemes"},
+		{"match unit", func(p *warehouse.Publication) {
+			p.Matches = warehouse.MatchRows{SetID: []int64{1}, Unit: []int{9}, Treated: []bool{true}, SetWeight: []float64{1}, Distance: []float64{0}}
+		}, "unit index 9 of 4"},
+		{"rows without cohort", func(p *warehouse.Publication) { p.Cohort = nil }, "without their cohort"},
+	}
+	for _, tt := range tests {
+		p := good()
+		tt.edit(p)
+		if err := w.Publish(ctx, out, p); err == nil || !strings.Contains(err.Error(), tt.want) {
+			t.Errorf("%s: %v, want an error mentioning %q", tt.name, err, tt.want)
+		}
+	}
+	if got := fmt.Sprint(queryRows(t, w, "SELECT status FROM st_runs")); got != "[[running]]" {
+		t.Errorf("runs after refused publications: %s", got)
+	}
+	if err := w.Publish(ctx, out, good()); err != nil {
+		t.Fatalf("the good publication: %v", err)
 	}
 }

@@ -101,7 +101,7 @@ func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run ware
 
 func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Output, run warehouse.RunRecord) error {
 	for _, t := range o.c.Tables() {
-		if err := w.ensureTable(ctx, o.c.Schema, t); err != nil {
+		if err := w.ensureTable(ctx, o.c.Schema, t, t == &o.c.Runs); err != nil {
 			return err
 		}
 	}
@@ -128,7 +128,7 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 		run.RunID, run.Study, warehouse.StatusRunning, started, nullTime(run.FinishedAt),
 		run.ToolVersion, run.SpecSHA256, nullText(run.SpecJSON), run.CohortSQL, nullText(run.CohortFingerprint),
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
-		w.Engine(), nullText(run.DBUser), nullText(run.Message))
+		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message))
 	if err != nil {
 		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.c.Runs.Name, dbErr(err))
 	}
@@ -141,8 +141,9 @@ type tableCol struct {
 	Name, Type, Constraint, ColComment string
 }
 
-// ensureTable creates t or adds the columns it lacks.
-func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse.Table) error {
+// ensureTable creates t or adds the columns it lacks. The runs table gets
+// its key and the check on status.
+func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) error {
 	qt := warehouse.QuoteQualified(schema, t.Name)
 	existing, err := w.tableColumns(ctx, schema, t.Name)
 	if err != nil {
@@ -161,7 +162,7 @@ func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse
 			}
 			data.Columns = append(data.Columns, tc)
 		}
-		if t.Columns[0].Name == "run_id" && t.Columns[1].Name == "study" { // the runs table
+		if runs {
 			data.Columns[0].Constraint = "PRIMARY KEY"
 			check := "CHECK (status IN ("
 			for i, s := range statuses {
@@ -477,6 +478,14 @@ func (w *Warehouse) FailRun(ctx context.Context, out warehouse.Output, runID, me
 		return fmt.Errorf("fail run %s: no running run with that id in %s.%s", runID, out.Schema, runs)
 	}
 	return nil
+}
+
+// engineName records the engine the caller names, else this one.
+func engineName(e string) string {
+	if e == "" {
+		return "duckdb"
+	}
+	return e
 }
 
 // nullText stores an empty string as NULL: JSON columns cannot hold "".

@@ -138,9 +138,9 @@ func testReadTypes(t *testing.T, e Engine) {
 		num("age", []float64{60, 65.25, 71.5})
 		num("wt", []float64{70.5, 90, 80.25}) // exact in REAL
 		num("dose", []float64{0.25, 2.75, 1.5})
-		cat("grp", []string{"B", "a", "b"}, []int32{1, 0, 2})              // bytewise: upper case first
-		cat("flag", []string{"false", "true"}, []int32{0, 1, 1})           // false < true
-		cat("stage", []string{"2", "10"}, []int32{0, 0, 1})                // numerically, not "10" < "2"
+		cat("grp", []string{"B", "a", "b"}, []int32{1, 0, 2})                      // bytewise: upper case first
+		cat("flag", []string{"false", "true"}, []int32{0, 1, 1})                   // false < true
+		cat("stage", []string{"2", "10"}, []int32{0, 0, 1})                        // numerically, not "10" < "2"
 		if got := c.Covariates[0].Name + c.Covariates[5].Name; got != "agestage" { // study order kept
 			t.Errorf("covariate order: %s", got)
 		}
@@ -532,6 +532,19 @@ func testPublish(t *testing.T, e Engine) {
 	// A run id is used once.
 	if err := w.StartRun(ctx, out, rec4); err == nil {
 		t.Error("StartRun with an existing run id succeeded")
+	}
+
+	// A skipped run (nothing changed) records its status and no rows.
+	p5 := &warehouse.Publication{Run: warehouse.RunRecord{RunID: "r5", Study: "st", Status: warehouse.StatusSkipped, Message: "cohort unchanged"}}
+	run(t, w, out, p5, t0.Add(4*time.Hour))
+	if s := status(t, e, w, "r5"); s != "skipped" {
+		t.Errorf("r5 status %s", s)
+	}
+	if got := runIDs(t, e, w, "st_scores"); got != "r1,r2,r3" {
+		t.Errorf("a skipped run wrote scores: runs %q", got)
+	}
+	if got := runIDs(t, e, w, "st_current_scores"); got != "r3" {
+		t.Errorf("after a skipped run current scores show %q, want r3", got)
 	}
 }
 

@@ -79,11 +79,15 @@ type Network struct {
 	heap      []item
 	touched   []int32
 	settled   []int32
-	hubTree   segTree
+	hubTree   segTree // hub -> v arcs, key c(hub,v) - h(v)
+	inTree    segTree // v -> hub arcs, key c(v,hub) + h(v)
 	extracted []int32
+	pulling   bool // the current search runs backwards from a deficit
 
 	// Augmentations counts the unit augmentations done so far.
 	Augmentations int
+	// Pops counts heap pops over all searches, a measure of search work.
+	Pops int
 }
 
 // New returns a network with nt treated and nc control nodes, no candidate
@@ -114,10 +118,35 @@ func New(nt, nc int, spec Spec) *Network {
 	}
 	g.excess[g.hub] = -total
 	g.hubTree = newSegTree(nt + nc)
+	g.inTree = newSegTree(nt + nc)
 	for v := 0; v < nt+nc; v++ {
 		g.updateLeaf(v)
 	}
 	return g
+}
+
+// Reset returns the network to zero flow and zero potentials, keeping its
+// arcs. A cold restart after new arcs keeps the later searches as local as
+// the first: saturating the new arcs instead (the warm restart) leaves
+// excesses whose searches shift the potentials of whole regions by the
+// penalty Tier, which the check against non-candidate pairs then rejects.
+func (g *Network) Reset() {
+	clear(g.flow)
+	clear(g.upF)
+	clear(g.downF)
+	clear(g.h)
+	var total int64
+	for v := 0; v < g.hub; v++ {
+		g.excess[v] = g.spec.SupplyC
+		if g.isT(v) {
+			g.excess[v] = g.spec.SupplyT
+		}
+		total += g.excess[v]
+	}
+	g.excess[g.hub] = -total
+	for v := 0; v < g.hub; v++ {
+		g.updateLeaf(v)
+	}
 }
 
 // AddArc adds the candidate arc treated t -> control c with cost d >= 0 and
@@ -192,12 +221,16 @@ func (g *Network) fromHub(v int) (Cost, int, bool) {
 }
 
 func (g *Network) updateLeaf(v int) {
-	c, _, ok := g.fromHub(v)
-	if !ok {
+	if c, _, ok := g.fromHub(v); ok {
+		g.hubTree.set(v, c.Sub(g.h[v]))
+	} else {
 		g.hubTree.set(v, infCost)
-		return
 	}
-	g.hubTree.set(v, c.Sub(g.h[v]))
+	if c, _, ok := g.toHub(v); ok {
+		g.inTree.set(v, c.Add(g.h[v]))
+	} else {
+		g.inTree.set(v, infCost)
+	}
 }
 
 // reduced returns c + h(u) - h(v), with a Dist below zero from rounding
@@ -265,11 +298,28 @@ func (g *Network) Solve(tol float64) error {
 			g.excess[c]++
 		}
 	}
-	for v := 0; v <= g.hub; v++ {
+	// Push every excess of a unit node to the nearest deficit, then pull
+	// every remaining deficit of a unit node from the nearest excess. In
+	// full matching the hub's excess (spare controls) is thus fetched by
+	// searches that start at the uncovered control, which are local; a
+	// search from the hub would start at every treated node at once.
+	for v := 0; v < g.hub; v++ {
 		for g.excess[v] > 0 {
 			if err := g.augment(v); err != nil {
 				return err
 			}
+		}
+	}
+	for v := 0; v < g.hub; v++ {
+		for g.excess[v] < 0 {
+			if err := g.pull(v); err != nil {
+				return err
+			}
+		}
+	}
+	for g.excess[g.hub] > 0 {
+		if err := g.augment(g.hub); err != nil {
+			return err
 		}
 	}
 	return nil
@@ -348,18 +398,29 @@ func (g *Network) relax(v int, d Cost, from int, arc int32) {
 	g.dist[v] = d
 	g.parent[v] = int32(from)
 	g.parentArc[v] = arc
-	g.push(item{k: d, v: int32(v), term: g.excess[v] < 0})
+	term := g.excess[v] < 0
+	if g.pulling {
+		term = g.excess[v] > 0
+	}
+	g.push(item{k: d, v: int32(v), term: term})
 }
 
 // drawHub pushes the next hub neighbour from the segment tree, if any.
 func (g *Network) drawHub() {
-	v, key := g.hubTree.min()
+	tree := &g.hubTree
+	if g.pulling {
+		tree = &g.inTree
+	}
+	v, key := tree.min()
 	if v < 0 || key == infCost {
 		return
 	}
-	g.hubTree.set(v, infCost)
+	tree.set(v, infCost)
 	g.extracted = append(g.extracted, int32(v))
 	r := key.Add(g.h[g.hub])
+	if g.pulling {
+		r = key.Sub(g.h[g.hub])
+	}
 	if r.Tier == 0 && r.Dist < 0 {
 		r.Dist = 0
 	}
@@ -368,6 +429,7 @@ func (g *Network) drawHub() {
 
 // augment sends one unit from source s to the nearest deficit node.
 func (g *Network) augment(s int) error {
+	g.pulling = false
 	g.epoch++
 	if g.epoch == 0 { // wrapped: clear the stamps
 		clear(g.stamp)
@@ -381,6 +443,7 @@ func (g *Network) augment(s int) error {
 	target := -1
 	for len(g.heap) > 0 {
 		it := g.pop()
+		g.Pops++
 		v := int(it.v)
 		if it.virt {
 			g.drawHub()
@@ -434,32 +497,128 @@ func (g *Network) augment(s int) error {
 	// Walk the path back, flipping flows.
 	for v := target; v != s; {
 		p := int(g.parent[v])
-		a := g.parentArc[v]
-		switch {
-		case a >= 0:
-			g.flow[a] = g.isT(p)
-		default:
-			code := int(-1 - a)
-			switch {
-			case code < downRev:
-				g.upF[p][code-upFwd]++
-			case code < downFwd:
-				g.downF[p][code-downRev]--
-			case code < upRev:
-				g.downF[v][code-downFwd]++
-			default:
-				g.upF[v][code-upRev]--
-			}
-			if v != g.hub {
-				g.updateLeaf(v)
-			} else {
-				g.updateLeaf(p)
-			}
-		}
+		g.apply(p, v, g.parentArc[v])
 		v = p
 	}
 	g.excess[s]--
 	g.excess[target]++
+	for _, v := range g.settled {
+		if int(v) != g.hub {
+			g.updateLeaf(int(v))
+		}
+	}
+	for _, v := range g.extracted {
+		g.updateLeaf(int(v))
+	}
+	g.Augmentations++
+	return nil
+}
+
+// apply sends one unit along the residual arc u -> w (a >= 0: candidate
+// arc; a < 0: hub arc code).
+func (g *Network) apply(u, w int, a int32) {
+	if a >= 0 {
+		g.flow[a] = g.isT(u)
+		return
+	}
+	code := int(-1 - a)
+	switch {
+	case code < downRev:
+		g.upF[u][code-upFwd]++
+	case code < downFwd:
+		g.downF[u][code-downRev]--
+	case code < upRev:
+		g.downF[w][code-downFwd]++
+	default:
+		g.upF[w][code-upRev]--
+	}
+	if w != g.hub {
+		g.updateLeaf(w)
+	} else {
+		g.updateLeaf(u)
+	}
+}
+
+// pull brings one unit to deficit node tgt from the nearest excess node,
+// by Dijkstra's algorithm on the reversed residual graph: dist(u) is the
+// reduced-cost distance from u to tgt. Settled nodes get h(u) += D -
+// dist(u), the mirror image of augment's update (again the textbook update
+// shifted by a constant), which keeps every reduced cost >= 0 and makes
+// the path's reduced costs zero.
+func (g *Network) pull(tgt int) error {
+	g.pulling = true
+	defer func() { g.pulling = false }()
+	g.epoch++
+	if g.epoch == 0 {
+		clear(g.stamp)
+		clear(g.done)
+		g.epoch = 1
+	}
+	g.heap, g.touched, g.settled, g.extracted = g.heap[:0], g.touched[:0], g.settled[:0], g.extracted[:0]
+	g.touch(tgt)
+	g.dist[tgt] = Cost{}
+	g.push(item{v: int32(tgt)})
+	source := -1
+	for len(g.heap) > 0 {
+		it := g.pop()
+		g.Pops++
+		v := int(it.v)
+		if it.virt {
+			g.drawHub()
+			_, code, _ := g.toHub(v)
+			g.relax(v, it.k, g.hub, int32(-1-code))
+			continue
+		}
+		if g.done[v] == g.epoch || g.dist[v].Less(it.k) {
+			continue
+		}
+		g.done[v] = g.epoch
+		g.settled = append(g.settled, int32(v))
+		if v != tgt && g.excess[v] > 0 {
+			source = v
+			break
+		}
+		d := g.dist[v]
+		switch {
+		case v == g.hub:
+			g.drawHub()
+			continue
+		case g.isT(v): // residual c -> t exists where t -> c carries flow
+			for _, a := range g.outArc[g.outStart[v]:g.outStart[v+1]] {
+				if !g.flow[a] {
+					continue
+				}
+				c := g.nt + int(g.to[a])
+				g.relax(c, d.Add(g.reduced(Cost{0, -g.cost[a]}, c, v)), v, a)
+			}
+		default: // residual t -> c exists where it carries no flow
+			c := v - g.nt
+			for _, a := range g.inArc[g.inStart[c]:g.inStart[c+1]] {
+				if g.flow[a] {
+					continue
+				}
+				t := int(g.from[a])
+				g.relax(t, d.Add(g.reduced(Cost{0, g.cost[a]}, t, v)), v, a)
+			}
+		}
+		if hc, code, ok := g.fromHub(v); ok {
+			g.relax(g.hub, d.Add(g.reduced(hc, g.hub, v)), v, int32(-1-code))
+		}
+	}
+	if source < 0 {
+		return fmt.Errorf("fill deficit of node %d: %w", tgt, ErrNoPath)
+	}
+	D := g.dist[source]
+	for _, v := range g.settled {
+		g.h[v] = g.h[v].Add(D).Sub(g.dist[v])
+	}
+	for v := source; v != tgt; {
+		w := int(g.parent[v])
+		g.apply(v, w, g.parentArc[v])
+		v = w
+	}
+	g.excess[source]--
+	g.excess[tgt]++
 	for _, v := range g.settled {
 		if int(v) != g.hub {
 			g.updateLeaf(int(v))

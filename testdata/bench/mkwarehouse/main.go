@@ -26,7 +26,7 @@ func main() {
 		_, err = db.Exec(study.BenchCohortSQL(*units))
 	}
 	if err == nil && *csv != "" {
-		_, err = db.Exec(fmt.Sprintf("COPY bench.cohort TO '%s' (HEADER)", *csv))
+		_, err = db.Exec(fmt.Sprintf("COPY synth.cohort TO '%s' (HEADER)", *csv))
 	}
 	if err == nil {
 		err = db.Close()

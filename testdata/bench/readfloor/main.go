@@ -21,7 +21,7 @@ func main() {
 	if err != nil {
 		fail(err)
 	}
-	rows, err := db.Query("select * from bench.cohort")
+	rows, err := db.Query("select * from synth.cohort")
 	if err != nil {
 		fail(err)
 	}

@@ -1,12 +1,13 @@
 package study
 
 import (
+	"cmp"
 	"crypto/sha256"
 	"encoding/binary"
 	"encoding/hex"
 	"fmt"
 	"math"
-	"sort"
+	"slices"
 	"strconv"
 	"strings"
 
@@ -108,10 +109,13 @@ func fingerprint(c *warehouse.Cohort) string {
 	for i := range idx {
 		idx[i] = i
 	}
+	// Cohort queries usually return rows in id order; sort only if not.
 	if c.IDKind == warehouse.IDInt {
-		sort.Slice(idx, func(a, b int) bool { return c.IntIDs[idx[a]] < c.IntIDs[idx[b]] })
-	} else {
-		sort.Slice(idx, func(a, b int) bool { return c.TextIDs[idx[a]] < c.TextIDs[idx[b]] })
+		if !slices.IsSorted(c.IntIDs) {
+			slices.SortFunc(idx, func(a, b int) int { return cmp.Compare(c.IntIDs[a], c.IntIDs[b]) })
+		}
+	} else if !slices.IsSorted(c.TextIDs) {
+		slices.SortFunc(idx, func(a, b int) int { return strings.Compare(c.TextIDs[a], c.TextIDs[b]) })
 	}
 	h := sha256.New()
 	buf := make([]byte, 0, 256)
@@ -166,34 +170,37 @@ func pooledSD(x []float64, z []bool) float64 {
 
 // auc is the c-statistic of the score: the probability that a random
 // treated unit scores above a random control, ties counting one half
-// (Mann–Whitney form; Hanley & McNeil 1982).
+// (Mann–Whitney form; Hanley & McNeil 1982). Each arm is sorted once and
+// the two are merged.
 func auc(ps []float64, z []bool) float64 {
-	n := len(ps)
-	idx := make([]int, n)
-	for i := range idx {
-		idx[i] = i
-	}
-	sort.Slice(idx, func(a, b int) bool { return ps[idx[a]] < ps[idx[b]] })
-	var rankSum, n1 float64
-	for i := 0; i < n; {
-		j := i
-		for j < n && ps[idx[j]] == ps[idx[i]] {
-			j++
+	var t, c []float64
+	for i, p := range ps {
+		if z[i] {
+			t = append(t, p)
+		} else {
+			c = append(c, p)
 		}
-		mid := float64(i+j+1) / 2 // average 1-based rank of the tie block
-		for k := i; k < j; k++ {
-			if z[idx[k]] {
-				rankSum += mid
-				n1++
-			}
-		}
-		i = j
 	}
-	n0 := float64(n) - n1
-	if n1 == 0 || n0 == 0 {
+	if len(t) == 0 || len(c) == 0 {
 		return math.NaN()
 	}
-	return (rankSum - n1*(n1+1)/2) / (n1 * n0)
+	slices.Sort(t)
+	slices.Sort(c)
+	var wins float64 // Σ over treated of (#controls below + ½ #controls equal)
+	lo, hi := 0, 0   // c[:lo] < v, c[:hi] <= v
+	for _, v := range t {
+		for lo < len(c) && c[lo] < v {
+			lo++
+		}
+		if hi < lo {
+			hi = lo
+		}
+		for hi < len(c) && c[hi] <= v {
+			hi++
+		}
+		wins += float64(lo) + float64(hi-lo)/2
+	}
+	return wins / (float64(len(t)) * float64(len(c)))
 }
 
 // checkTextNumbers refuses a text covariate whose values are numbers (all

@@ -6,6 +6,7 @@ import (
 
 	"counterpart/warehouse"
 	"counterpart/warehouse/duckdb"
+	"counterpart/warehouse/postgres"
 )
 
 // Open connects to the study's warehouse. A dry run opens read-only where
@@ -25,7 +26,17 @@ func Open(ctx context.Context, s *Spec, readOnly bool) (warehouse.Warehouse, err
 			return nil, fmt.Errorf("open warehouse: %w", err)
 		}
 		return w, nil
+	case "postgres":
+		open := postgres.Open
+		if readOnly {
+			open = postgres.OpenReadOnly
+		}
+		w, err := open(ctx, s.Warehouse.DSN, postgres.WithStudy(s.Study))
+		if err != nil {
+			return nil, fmt.Errorf("open warehouse: %w", err)
+		}
+		return w, nil
 	default:
-		return nil, fmt.Errorf("open warehouse: %w: warehouse.engine %q is not available in this build; use duckdb", warehouse.ErrBadInput, s.Warehouse.Engine)
+		return nil, fmt.Errorf("open warehouse: %w: warehouse.engine %q is not available in this build; use duckdb or postgres", warehouse.ErrBadInput, s.Warehouse.Engine)
 	}
 }

@@ -181,7 +181,10 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	if err := checkTextNumbers(s, c); err != nil {
 		return nil, err
 	}
-	sum.Fingerprint = fingerprint(c)
+	// The fingerprint only needs the cohort: hash it while the model fits.
+	fp := make(chan string, 1)
+	go func() { fp <- fingerprint(c) }()
+	defer func() { sum.Fingerprint = <-fp }()
 	d, err := buildDesign(c)
 	if err != nil {
 		return nil, fmt.Errorf("design: %w", err)
@@ -243,7 +246,7 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
-	prep := balance.Prepare(d.vars, z)
+	prep := balance.Prepare(d.vars, z, false)
 	adjust := func(name string, w []float64) {
 		st := prep.Compute(w)
 		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})

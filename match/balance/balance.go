@@ -186,15 +186,14 @@ func Compute(vars []Variable, z []bool, w []float64, denom []float64) []Stat {
 		} else {
 			d = PooledSD(v, z)
 		}
-		out[k] = stat(v, z, w, d, nil)
+		out[k] = stat(v, z, w, d, false)
 	}
 	return out
 }
 
-// stat computes one variable's row; order, when given, is the variable's
-// ascending sort order over all units, which turns KS from a sort into a
-// scan.
-func stat(v Variable, z []bool, w []float64, d float64, order []int32) Stat {
+// stat computes one variable's row; skipKS leaves KS of a continuous
+// variable to the caller (Prepared computes it from ranks).
+func stat(v Variable, z []bool, w []float64, d float64, skipKS bool) Stat {
 	t := armSummary(v.Values, z, w, true)
 	c := armSummary(v.Values, z, w, false)
 	var ks float64
@@ -202,9 +201,7 @@ func stat(v Variable, z []bool, w []float64, d float64, order []int32) Stat {
 	case v.Binary:
 		// For a 0/1 variable the CDFs differ only at 0, by |p_T − p_C|.
 		ks = math.Abs(t.mean - c.mean)
-	case order != nil:
-		ks = ksSorted(v.Values, z, w, order)
-	default:
+	case !skipKS:
 		ks = KS(v.Values, z, w)
 	}
 	return Stat{
@@ -220,44 +217,44 @@ func stat(v Variable, z []bool, w []float64, d float64, order []int32) Stat {
 }
 
 // Prepared holds what every adjustment of one cohort shares: the variables,
-// their unadjusted denominators and each continuous variable's sort order.
-// A run compares many adjustments on the same units, so sorting once and
-// scanning per adjustment keeps balance linear in n per adjustment.
+// their unadjusted denominators and each continuous variable's dense ranks.
+// A run compares many adjustments on the same units, so ranking once lets
+// each adjustment's KS be one sequential pass plus a pass over the distinct
+// values, instead of a sort (or a random-access walk) per adjustment.
 type Prepared struct {
 	vars  []Variable
 	z     []bool
 	denom []float64
-	order [][]int32
+	// shift holds each variable's unadjusted arm means (treated, control):
+	// the one-pass sums are taken around them, which keeps them accurate.
+	shift [][2]float64
+	// rank[k][i] is the dense rank of unit i's value among the distinct
+	// values of variable k (nil for binary variables); distinct[k] counts
+	// those values.
+	rank     [][]int32
+	distinct []int
 }
 
-// Prepare sorts each continuous variable once and fixes the unadjusted
-// pooled SDs (the SMD denominators), in parallel across variables.
-func Prepare(vars []Variable, z []bool) *Prepared {
-	p := &Prepared{vars: vars, z: z, denom: make([]float64, len(vars)), order: make([][]int32, len(vars))}
+// Prepare fixes the unadjusted pooled SDs (the SMD denominators) and, when
+// withKS is set, ranks each continuous variable once so that Compute can
+// report KS; without it Compute leaves a continuous variable's KS NaN (a
+// binary variable's KS, |p_T − p_C|, is always reported). KS is the costly
+// measure at scale and no gate uses it, so runs ask for it only when a
+// report will show it.
+func Prepare(vars []Variable, z []bool, withKS bool) *Prepared {
+	p := &Prepared{vars: vars, z: z, denom: make([]float64, len(vars)), shift: make([][2]float64, len(vars)),
+		rank: make([][]int32, len(vars)), distinct: make([]int, len(vars))}
 	parallel(len(vars), func(k int) {
 		v := vars[k]
 		if len(v.Values) != len(z) {
 			panic(fmt.Sprintf("balance: Prepare: %s has %d values, z has %d", v.Label(), len(v.Values), len(z)))
 		}
 		p.denom[k] = PooledSD(v, z)
-		if v.Binary {
+		p.shift[k] = [2]float64{armSummary(v.Values, z, nil, true).mean, armSummary(v.Values, z, nil, false).mean}
+		if v.Binary || !withKS {
 			return
 		}
-		idx := make([]int32, len(z))
-		for i := range idx {
-			idx[i] = int32(i)
-		}
-		x := v.Values
-		slices.SortFunc(idx, func(a, b int32) int {
-			switch {
-			case x[a] < x[b]:
-				return -1
-			case x[a] > x[b]:
-				return 1
-			}
-			return int(a - b)
-		})
-		p.order[k] = idx
+		p.rank[k], p.distinct[k] = denseRanks(v.Values)
 	})
 	return p
 }
@@ -266,7 +263,8 @@ func Prepare(vars []Variable, z []bool) *Prepared {
 func (p *Prepared) Denominators() []float64 { return p.denom }
 
 // Compute is the package-level Compute with the shared denominators and
-// sort orders, in parallel across variables; the results are identical.
+// ranks, in parallel across variables; the results agree with Compute to
+// rounding.
 func (p *Prepared) Compute(w []float64) []Stat {
 	if w != nil && len(w) != len(p.z) {
 		panic(fmt.Sprintf("balance: Compute: len(w) = %d, len(z) = %d", len(w), len(p.z)))
@@ -278,9 +276,167 @@ func (p *Prepared) Compute(w []float64) []Stat {
 	}
 	out := make([]Stat, len(p.vars))
 	parallel(len(p.vars), func(k int) {
-		out[k] = stat(p.vars[k], p.z, w, p.denom[k], p.order[k])
+		v := p.vars[k]
+		t, c := armMoments(v.Values, p.z, w, p.shift[k])
+		st := Stat{
+			Name: v.Name, Level: v.Level, Binary: v.Binary,
+			NT: t.n, NC: c.n,
+			MeanT: t.mean, MeanC: c.mean,
+			SDT: math.Sqrt(t.variance), SDC: math.Sqrt(c.variance),
+			Denom:    p.denom[k],
+			SMD:      smd(t.mean, c.mean, p.denom[k]),
+			VarRatio: varRatio(t.variance, c.variance),
+			KS:       math.NaN(),
+		}
+		switch {
+		case v.Binary:
+			st.KS = math.Abs(t.mean - c.mean)
+		case p.rank[k] != nil:
+			st.KS = ksRanked(p.rank[k], p.distinct[k], p.z, w)
+		}
+		out[k] = st
 	})
 	return out
+}
+
+// armMoments is armSummary for both arms in one pass: sums of w, w·d,
+// w·d² and w² with d = x − shift[arm], giving
+//
+//	m  = shift + Σw·d/Σw
+//	s² = (Σw·d² − (Σw·d)²/Σw) / (Σw − Σw²/Σw)
+//
+// the same WeightedMean and WeightedVar; shifting by the arm's unadjusted
+// mean keeps the one-pass form free of cancellation.
+func armMoments(x []float64, z []bool, w []float64, shift [2]float64) (t, c summary) {
+	var s0, s1, s2, w2 [2]float64
+	var n [2]int
+	for i, xi := range x {
+		wi := 1.0
+		if w != nil {
+			wi = w[i]
+			if wi == 0 {
+				continue
+			}
+		}
+		a := 1
+		if z[i] {
+			a = 0
+		}
+		d := xi - shift[a]
+		n[a]++
+		s0[a] += wi
+		s1[a] += wi * d
+		s2[a] += wi * d * d
+		w2[a] += wi * wi
+	}
+	var out [2]summary
+	for a := range out {
+		out[a].n = n[a]
+		if s0[a] == 0 {
+			out[a].mean, out[a].variance = math.NaN(), math.NaN()
+			continue
+		}
+		out[a].mean = shift[a] + s1[a]/s0[a]
+		if den := s0[a] - w2[a]/s0[a]; den > 0 {
+			out[a].variance = math.Max(0, (s2[a]-s1[a]*s1[a]/s0[a])/den)
+		} else {
+			out[a].variance = math.NaN()
+		}
+	}
+	return out[0], out[1]
+}
+
+// ksRanked is KS from dense ranks: the arms' weights are summed per
+// distinct value, then the two eCDFs are walked together over the values,
+// which compares them exactly after each run of ties.
+func ksRanked(rank []int32, m int, z []bool, w []float64) float64 {
+	bt := make([]float64, m)
+	bc := make([]float64, m)
+	var st, sc float64
+	for i, r := range rank {
+		wi := weight(w, i)
+		if wi == 0 {
+			continue
+		}
+		if z[i] {
+			bt[r] += wi
+			st += wi
+		} else {
+			bc[r] += wi
+			sc += wi
+		}
+	}
+	if st == 0 || sc == 0 {
+		return math.NaN()
+	}
+	var ft, fc, d float64
+	for j := 0; j < m; j++ {
+		ft += bt[j]
+		fc += bc[j]
+		d = math.Max(d, math.Abs(ft/st-fc/sc))
+	}
+	return d
+}
+
+// denseRanks returns each value's rank among the distinct values (0-based,
+// ascending) and how many distinct values there are. It sorts indexes by
+// an LSD radix sort on the order-preserving bit pattern of the float64,
+// skipping byte positions where every key agrees (small integer codes
+// need one or two passes).
+func denseRanks(x []float64) ([]int32, int) {
+	n := len(x)
+	keys := make([]uint64, n)
+	var and, or uint64 = ^uint64(0), 0
+	for i, v := range x {
+		b := math.Float64bits(v)
+		if b>>63 == 1 {
+			b = ^b
+		} else {
+			b |= 1 << 63
+		}
+		if v == 0 { // +0 and −0 are the same value
+			b = 1 << 63
+		}
+		keys[i] = b
+		and &= b
+		or |= b
+	}
+	idx := make([]int32, n)
+	for i := range idx {
+		idx[i] = int32(i)
+	}
+	tmp := make([]int32, n)
+	varying := and ^ or
+	for shift := uint(0); shift < 64; shift += 8 {
+		if (varying>>shift)&0xff == 0 {
+			continue
+		}
+		var count [257]int
+		for _, i := range idx {
+			count[((keys[i]>>shift)&0xff)+1]++
+		}
+		for d := 1; d < 257; d++ {
+			count[d] += count[d-1]
+		}
+		for _, i := range idx {
+			d := (keys[i] >> shift) & 0xff
+			tmp[count[d]] = i
+			count[d]++
+		}
+		idx, tmp = tmp, idx
+	}
+	rank := make([]int32, n)
+	m := 0
+	for j, i := range idx {
+		if j > 0 && keys[i] != keys[idx[j-1]] {
+			m++
+		}
+		rank[i] = int32(m)
+	}
+	if n > 0 {
+		m++
+	}
+	return rank, m
 }
 
 // parallel runs f(0..n-1) over GOMAXPROCS goroutines.
@@ -308,46 +464,6 @@ func parallel(n int, f func(int)) {
 		}()
 	}
 	wg.Wait()
-}
-
-// ksSorted is KS over a precomputed ascending order of x.
-func ksSorted(x []float64, z []bool, w []float64, order []int32) float64 {
-	var st, sc float64
-	for i := range x {
-		wi := weight(w, i)
-		if wi == 0 {
-			continue
-		}
-		if z[i] {
-			st += wi
-		} else {
-			sc += wi
-		}
-	}
-	if st == 0 || sc == 0 {
-		return math.NaN()
-	}
-	var ft, fc, d float64
-	last := -1
-	for _, i32 := range order {
-		i := int(i32)
-		wi := weight(w, i)
-		if wi == 0 {
-			continue
-		}
-		// Compare the CDFs only after the last of a run of ties: when the
-		// value changes, the previous run is complete.
-		if last >= 0 && x[i] != x[last] {
-			d = math.Max(d, math.Abs(ft-fc))
-		}
-		if z[i] {
-			ft += wi / st
-		} else {
-			fc += wi / sc
-		}
-		last = i
-	}
-	return math.Max(d, math.Abs(ft-fc))
 }
 
 func smd(mt, mc, d float64) float64 {

@@ -492,7 +492,7 @@ func TestPreparedMatchesCompute(t *testing.T) {
 		}
 	}
 	vars := []Variable{{Name: "x", Values: x}, {Name: "b", Level: "1", Binary: true, Values: b}}
-	p := Prepare(vars, z)
+	p := Prepare(vars, z, true)
 	for _, weights := range [][]float64{nil, w} {
 		got := p.Compute(weights)
 		want := Compute(vars, z, weights, nil)

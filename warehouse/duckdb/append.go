@@ -18,17 +18,21 @@ type column struct {
 	get  func(i int) driver.Value
 }
 
-// appendAll writes the cohort snapshot, scores, matches and weights of p.
+// appendAll writes the cohort snapshot, scores, matches and weights of p
+// through bulk inserts (see bulk.go).
 func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
 	c := p.Cohort
-	var runID driver.Value = p.Run.RunID // boxed once, not once per row
-	run := column{"run_id", func(int) driver.Value { return runID }}
-	unit := func(i int) driver.Value { return c.TextIDs[i] }
-	if c.IDKind == warehouse.IDInt {
-		unit = func(i int) driver.Value { return c.IntIDs[i] }
+	run := p.Run.RunID
+	unitCol := func(idx []int) *bulkCol {
+		if c.IDKind == warehouse.IDInt {
+			return &bulkCol{i64: c.IntIDs, idx: idx, kind: duckdb.TYPE_BIGINT}
+		}
+		return &bulkCol{s: c.TextIDs, idx: idx, kind: duckdb.TYPE_VARCHAR}
 	}
+	f64 := func(v []float64) *bulkCol { return &bulkCol{f64: v, kind: duckdb.TYPE_DOUBLE} }
+	boolean := func(v []bool) *bulkCol { return &bulkCol{b: v, kind: duckdb.TYPE_BOOLEAN} }
 
-	cohort := []column{run, {out.Unit, unit}, {out.Treatment, boolCol(c.Treated)}}
+	cohort := []bulkTarget{{name: out.Unit, col: unitCol(nil)}, {name: out.Treatment, col: boolean(c.Treated)}}
 	covs := map[string]*warehouse.Covariate{}
 	for i := range c.Covariates {
 		covs[c.Covariates[i].Name] = &c.Covariates[i]
@@ -36,14 +40,9 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 	for _, m := range out.Covariates {
 		cv := covs[m.Name]
 		if m.Kind == warehouse.Categorical {
-			levels := make([]driver.Value, len(cv.Levels))
-			for k, l := range cv.Levels {
-				levels[k] = l
-			}
-			codes := cv.Codes
-			cohort = append(cohort, column{m.Name, func(i int) driver.Value { return levels[codes[i]] }})
+			cohort = append(cohort, bulkTarget{name: m.Name, expr: levelsExpr(cv.Levels), col: &bulkCol{i32: cv.Codes, kind: duckdb.TYPE_INTEGER}})
 		} else {
-			cohort = append(cohort, column{m.Name, floatCol(cv.Values)})
+			cohort = append(cohort, bulkTarget{name: m.Name, col: f64(cv.Values)})
 		}
 	}
 	outcomes := map[string][]float64{}
@@ -51,19 +50,18 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 		outcomes[oc.Name] = oc.Values
 	}
 	for _, name := range out.Outcomes {
-		cohort = append(cohort, column{name, floatCol(outcomes[name])})
+		cohort = append(cohort, bulkTarget{name: name, col: f64(outcomes[name])})
 	}
-	if err := w.appendRows(ctx, o.c.Schema, o.c.Cohort.Name, cohort, c.N()); err != nil {
+	if err := w.insertBulk(ctx, o.c.Schema, o.c.Cohort.Name, run, cohort, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("cohort"); err != nil {
 		return err
 	}
 
-	treated := column{"treated", boolCol(c.Treated)}
-	scores := []column{run, {out.Unit, unit}, treated,
-		{"ps", floatCol(p.PS)}, {"logit_ps", floatCol(p.LogitPS)}, {"in_support", boolCol(p.InSupport)}}
-	if err := w.appendRows(ctx, o.c.Schema, o.c.Scores.Name, scores, c.N()); err != nil {
+	scores := []bulkTarget{{name: out.Unit, col: unitCol(nil)}, {name: "treated", col: boolean(c.Treated)},
+		{name: "ps", col: f64(p.PS)}, {name: "logit_ps", col: f64(p.LogitPS)}, {name: "in_support", col: boolean(p.InSupport)}}
+	if err := w.insertBulk(ctx, o.c.Schema, o.c.Scores.Name, run, scores, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("scores"); err != nil {
@@ -71,25 +69,27 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 	}
 
 	m := p.Matches
-	matches := []column{run,
-		{"set_id", func(i int) driver.Value { return m.SetID[i] }},
-		{out.Unit, func(i int) driver.Value { return unit(m.Unit[i]) }},
-		{"treated", boolCol(m.Treated)},
-		{"set_weight", floatCol(m.SetWeight)},
-		{"match_distance", floatCol(m.Distance)},
+	matches := []bulkTarget{
+		{name: "set_id", col: &bulkCol{i64: m.SetID, kind: duckdb.TYPE_BIGINT}},
+		{name: out.Unit, col: unitCol(m.Unit)},
+		{name: "treated", col: boolean(m.Treated)},
+		{name: "set_weight", col: f64(m.SetWeight)},
+		{name: "match_distance", col: f64(m.Distance)},
 	}
-	if err := w.appendRows(ctx, o.c.Schema, o.c.Matches.Name, matches, m.Len()); err != nil {
-		return err
+	if m.Len() > 0 {
+		if err := w.insertBulk(ctx, o.c.Schema, o.c.Matches.Name, run, matches, m.Len()); err != nil {
+			return err
+		}
 	}
 	if err := w.step("matches"); err != nil {
 		return err
 	}
 
-	weights := []column{run, {out.Unit, unit}, treated}
+	weights := []bulkTarget{{name: out.Unit, col: unitCol(nil)}, {name: "treated", col: boolean(c.Treated)}}
 	for k, s := range out.Schemes {
-		weights = append(weights, column{s, floatCol(p.Weights[k])})
+		weights = append(weights, bulkTarget{name: s, col: f64(p.Weights[k])})
 	}
-	if err := w.appendRows(ctx, o.c.Schema, o.c.Weights.Name, weights, c.N()); err != nil {
+	if err := w.insertBulk(ctx, o.c.Schema, o.c.Weights.Name, run, weights, c.N()); err != nil {
 		return err
 	}
 	return w.step("weights")

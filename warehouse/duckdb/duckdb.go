@@ -28,6 +28,8 @@ type Warehouse struct {
 	// fault, when set by a test, is called at each step of Publish; a
 	// non-nil return fails the publish there (checks the rollback).
 	fault func(step string) error
+	// bulk is the table function bulk writes go through (nil read-only).
+	bulk *bulk
 }
 
 var _ warehouse.Warehouse = (*Warehouse)(nil)
@@ -75,7 +77,15 @@ func open(ctx context.Context, path, dsn string, readOnly bool) (*Warehouse, err
 		db.Close()
 		return nil, fmt.Errorf("open duckdb %s: %w", path, openError(err))
 	}
-	return &Warehouse{path: path, readOnly: readOnly, db: db, conn: conn}, nil
+	w := &Warehouse{path: path, readOnly: readOnly, db: db, conn: conn}
+	if !readOnly {
+		if err := registerBulk(ctx, w); err != nil {
+			conn.Close()
+			db.Close()
+			return nil, fmt.Errorf("open duckdb %s: register bulk writer: %w", path, err)
+		}
+	}
+	return w, nil
 }
 
 // openError maps DuckDB's own file lock (another process has the file open

@@ -222,3 +222,67 @@ func TestRejectedRunLeavesCurrentViews(t *testing.T) {
 		t.Errorf("runs row status %q, want rejected", status)
 	}
 }
+
+// TestBalanceViewEqualsGo: the {prefix}balance view computes in SQL what
+// the run computed in Go, with the same definitions (Austin 2009; Austin &
+// Stuart 2015: fixed unadjusted denominator). Every mean, SD, SMD and
+// variance ratio must agree to 1e-9 (relative, or absolute near zero).
+func TestBalanceViewEqualsGo(t *testing.T) {
+	dir := t.TempDir()
+	s, sum, _, err := runDemo(t, dir, 3000, func(s *Spec) { s.Weighting = []string{"att", "ate", "overlap", "matching"} })
+	if err != nil {
+		t.Fatal(err)
+	}
+	db, err := sql.Open("duckdb", filepath.Join(dir, "warehouse.duckdb"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	type key struct{ adj, cov, level string }
+	goStats := map[key]Stat{}
+	for _, ab := range sum.Balance {
+		for _, st := range ab.Stats {
+			goStats[key{ab.Adjustment, st.Name, st.Level}] = st
+		}
+	}
+	rows, err := db.Query(fmt.Sprintf(`select adjustment, covariate, coalesce(level, ''), mean_treated, mean_control,
+		sd_treated, sd_control, smd, variance_ratio from main.%sbalance where run_id = ?`, s.Output.Prefix), sum.RunID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer rows.Close()
+	close := func(a float64, b Num) bool {
+		bf := float64(b)
+		if math.IsNaN(a) || math.IsNaN(bf) {
+			return math.IsNaN(a) == math.IsNaN(bf)
+		}
+		return math.Abs(a-bf) <= 1e-9*math.Max(1, math.Abs(bf))
+	}
+	n := 0
+	for rows.Next() {
+		var k key
+		var v [6]sql.NullFloat64
+		if err := rows.Scan(&k.adj, &k.cov, &k.level, &v[0], &v[1], &v[2], &v[3], &v[4], &v[5]); err != nil {
+			t.Fatal(err)
+		}
+		g, ok := goStats[k]
+		if !ok {
+			t.Errorf("view row %v has no Go counterpart", k)
+			continue
+		}
+		want := []Num{g.MeanT, g.MeanC, g.SDT, g.SDC, g.SMD, g.VarRatio}
+		for j := range v {
+			got := math.NaN()
+			if v[j].Valid {
+				got = v[j].Float64
+			}
+			if !close(got, want[j]) {
+				t.Errorf("%v column %d: view %v, Go %v", k, j, got, want[j])
+			}
+		}
+		n++
+	}
+	if n != len(goStats) {
+		t.Errorf("view has %d rows, Go %d", n, len(goStats))
+	}
+}

@@ -1,0 +1,90 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+)
+
+// TestDemoCommand runs the README's first command end to end on a small
+// cohort: exit 0, the summary, the truth comparison and the caution.
+func TestDemoCommand(t *testing.T) {
+	dir := t.TempDir()
+	var out, errb bytes.Buffer
+	code := run(context.Background(), []string{"counterpart", "demo", "--dir", dir, "--units", "3000"}, &out, &errb)
+	if code != exitOK {
+		t.Fatalf("exit %d: %s", code, errb.String())
+	}
+	for _, want := range []string{"planted truth", "naive difference", "matched estimate", "no unmeasured confounding", "cost_90d"} {
+		if !strings.Contains(out.String(), want) {
+			t.Errorf("demo output lacks %q", want)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(dir, "hf_coaching.yaml")); err != nil {
+		t.Errorf("study file not written: %v", err)
+	}
+}
+
+// TestRunJSONAndDryRun: --json prints one parseable summary and nothing
+// else; --dry-run writes nothing (the warehouse file is unchanged).
+func TestRunJSONAndDryRun(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"counterpart", "demo", "--dir", dir, "--units", "1500"}, &out, &errb); code != exitOK {
+		t.Fatalf("demo exit %d: %s", code, errb.String())
+	}
+	study := filepath.Join(dir, "hf_coaching.yaml")
+	db := filepath.Join(dir, "warehouse.duckdb")
+
+	before := fileHash(t, db)
+	out.Reset()
+	errb.Reset()
+	if code := run(ctx, []string{"counterpart", "run", "--dry-run", "--json", study}, &out, &errb); code != exitOK {
+		t.Fatalf("dry run exit %d: %s", code, errb.String())
+	}
+	var sum struct {
+		Status  string `json:"status"`
+		DryRun  bool   `json:"dry_run"`
+		Effects []struct {
+			Outcome string   `json:"outcome"`
+			CILow   *float64 `json:"ci_low"`
+		} `json:"effects"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &sum); err != nil {
+		t.Fatalf("--json output is not one JSON document: %v\n%s", err, out.String())
+	}
+	if !sum.DryRun || sum.Status != "dry-run" || len(sum.Effects) == 0 {
+		t.Errorf("dry-run summary: %+v", sum)
+	}
+	if fileHash(t, db) != before {
+		t.Errorf("--dry-run changed the warehouse file")
+	}
+
+	out.Reset()
+	errb.Reset()
+	if code := run(ctx, []string{"counterpart", "run", "--json", study}, &out, &errb); code != exitOK {
+		t.Fatalf("run exit %d: %s", code, errb.String())
+	}
+	if err := json.Unmarshal(out.Bytes(), &sum); err != nil || sum.Status != "succeeded" {
+		t.Errorf("run summary status %q (%v)", sum.Status, err)
+	}
+	if errb.Len() != 0 {
+		t.Errorf("stderr not empty on success: %q", errb.String())
+	}
+}
+
+// TestHelpListsExitCodes: schedulers' authors read --help.
+func TestHelpListsExitCodes(t *testing.T) {
+	var out, errb bytes.Buffer
+	run(context.Background(), []string{"counterpart", "--help"}, &out, &errb)
+	for _, want := range []string{"EXIT CODES", "3  balance gate rejected", "4  another run"} {
+		if !strings.Contains(out.String(), want) {
+			t.Errorf("--help lacks %q", want)
+		}
+	}
+}

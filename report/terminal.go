@@ -80,21 +80,42 @@ func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 			thousands(int(math.Round(float64(b.ESSTreated)))), thousands(int(math.Round(float64(b.ESSControl)))))
 	}
 	p.line("")
-	p.line("%s", p.bold("effects")+"  treated minus comparison, 95% interval")
-	last := ""
+	p.line("%s", p.bold("effects")+"  treated minus comparison (risk ratio for events), 95% interval")
+	p.line("  %-13s %-9s %-32s %-22s %7s %6s", "adjustment", "estimand", "difference", "risk ratio", "E-value", "Γ")
+	var outcomes []string
+	byKey := map[[3]string]study.EffectRow{}
 	for _, e := range s.Effects {
-		name := ""
-		if e.Outcome != last {
-			name = e.Outcome
-			last = e.Outcome
+		if len(outcomes) == 0 || outcomes[len(outcomes)-1] != e.Outcome {
+			outcomes = append(outcomes, e.Outcome)
 		}
-		head := " "
-		if e.Adjustment == s.Primary {
-			head = "*"
-		}
-		p.line("  %-14s%s%-12s %12s  [%s, %s]  %s", name, head, e.Adjustment, signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh)), e.Estimand)
+		byKey[[3]string{e.Outcome, e.Adjustment, e.Contrast}] = e
 	}
-	p.line("  (* marks the headline adjustment, %s; the balance gate judges it)", s.Primary)
+	for _, o := range outcomes {
+		p.line(" %s", o)
+		var adjs []string
+		for _, e := range s.Effects {
+			if e.Outcome == o && e.Contrast == "difference" {
+				adjs = append(adjs, e.Adjustment)
+			}
+		}
+		for _, a := range adjs {
+			d := byKey[[3]string{o, a, "difference"}]
+			head := " "
+			if a == s.Primary {
+				head = "*"
+			}
+			ratio, ev := "", d.EValue
+			if rr, ok := byKey[[3]string{o, a, "risk_ratio"}]; ok {
+				ratio = fmt.Sprintf("%.3f [%.3f, %.3f]", float64(rr.Estimate), float64(rr.CILow), float64(rr.CIHigh))
+				ev = rr.EValue
+			}
+			p.line(" %s%-13s %-9s %-32s %-22s %7s %6s", head, a, d.Estimand,
+				fmt.Sprintf("%s [%s, %s]", signed(float64(d.Estimate)), signed(float64(d.CILow)), signed(float64(d.CIHigh))),
+				ratio, optional(float64(ev), "%.2f"), optional(float64(d.RosenbaumGamma), "%.2f"))
+		}
+	}
+	p.line("  * headline adjustment (%s); the balance gate judges it. E-value: confounder strength (risk-ratio", s.Primary)
+	p.line("    scale) that would explain the estimate away. Γ: matched-pair odds of hidden bias at which p > 0.05.")
 	if s.Message != "" {
 		p.line("")
 		p.line("%s", p.red("note: ")+s.Message)
@@ -149,6 +170,14 @@ func signed(x float64) string {
 		return "n/a"
 	}
 	return fmt.Sprintf("%+.4g", x)
+}
+
+// optional formats a value, or leaves the cell blank when it is undefined.
+func optional(x float64, format string) string {
+	if math.IsNaN(x) || math.IsInf(x, 0) {
+		return ""
+	}
+	return fmt.Sprintf(format, x)
 }
 
 func wrap(s string, width int) string {

@@ -23,7 +23,7 @@ import (
 	"text/template"
 )
 
-//go:embed common/*.sql duckdb/*.sql
+//go:embed common/*.sql duckdb/*.sql postgres/*.sql
 var files embed.FS
 
 // FS returns the embedded SQL files: common/*.sql and <dialect>/*.sql.

@@ -41,8 +41,11 @@ func TestTextLookup(t *testing.T) {
 	if s, err := Text("duckdb", "current_view.sql"); err != nil || !strings.Contains(s, "CREATE OR REPLACE VIEW") {
 		t.Errorf("common/current_view.sql through duckdb: %v", err)
 	}
-	if _, err := Text("postgres", "table_columns.sql"); err == nil {
-		t.Error("found a DuckDB-only file for postgres")
+	if s, err := Text("postgres", "table_columns.sql"); err != nil || !strings.Contains(s, "pg_attribute") {
+		t.Errorf("postgres/table_columns.sql: %v", err)
+	}
+	if _, err := Text("duckdb", "lock_holder.sql"); err == nil {
+		t.Error("found a Postgres-only file for duckdb")
 	}
 	if _, err := Render("duckdb", "no_such.sql", nil); err == nil {
 		t.Error("rendered a missing file")

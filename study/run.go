@@ -12,7 +12,6 @@ import (
 
 	"counterpart/match/assign"
 	"counterpart/match/balance"
-	"counterpart/match/effect"
 	"counterpart/match/score"
 	"counterpart/match/weights"
 	"counterpart/warehouse"
@@ -261,7 +260,8 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	}
 	adjust("unadjusted", nil)
 
-	var effects []namedWeights
+	adjs := []adjustment{{name: "unadjusted", estimand: "none"}}
+	var mr *matchedRows
 	if s.Matching.Algorithm != "off" {
 		stage("match")
 		order, err := assign.ParseOrder(s.Matching.Order)
@@ -314,7 +314,20 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		}
 		mw := weights.FromSets(n, treatedIdx, controlIdx)
 		adjust("matched", mw)
-		effects = append(effects, namedWeights{name: "matched", estimand: "att", w: mw, clustered: true})
+		mr = &matchedRows{unit: res.matches.Unit, z: res.matches.Treated, w: res.matches.SetWeight,
+			reuse: s.Matching.Reuse, setTreated: treatedIdx, setControls: controlIdx}
+		mr.cluster = make([]int, len(res.matches.SetID))
+		for r, id := range res.matches.SetID {
+			mr.cluster[r] = int(id)
+		}
+		if s.Matching.Controls == 1 && !s.Matching.Reuse {
+			for k := range sets {
+				if len(controlIdx[k]) == 1 {
+					mr.pairs = append(mr.pairs, [2]int{treatedIdx[k], controlIdx[k][0]})
+				}
+			}
+		}
+		adjs = append(adjs, adjustment{name: "matched", estimand: "att", matched: true})
 	}
 
 	stage("weight")
@@ -331,7 +344,7 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		}
 		res.weights = append(res.weights, w)
 		adjust(scheme, w)
-		effects = append(effects, namedWeights{name: scheme, estimand: estimandOf[scheme], w: w})
+		adjs = append(adjs, adjustment{name: scheme, estimand: estimandOf[scheme], w: w})
 	}
 	timed("weight")
 
@@ -350,54 +363,11 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	}
 
 	stage("estimate")
-	for _, o := range c.Outcomes {
-		naive, err := effect.Difference(o.Values, z, nil)
-		if err != nil {
-			return nil, badInput("estimate "+o.Name, err)
-		}
-		sum.Effects = append(sum.Effects, effectRow(o.Name, "unadjusted", "none", naive))
-		for _, e := range effects {
-			var est effect.Estimate
-			if e.clustered {
-				est, err = matchedEffect(o.Values, res.matches)
-			} else {
-				est, err = effect.Difference(o.Values, z, e.w)
-			}
-			if err != nil {
-				return nil, badInput("estimate "+o.Name+" ("+e.name+")", err)
-			}
-			sum.Effects = append(sum.Effects, effectRow(o.Name, e.name, e.estimand, est))
-		}
+	if err := estimateAll(c, adjs, mr, fit.Logit, sum); err != nil {
+		return nil, err
 	}
 	timed("estimate")
 	return res, nil
-}
-
-type namedWeights struct {
-	name, estimand string
-	w              []float64
-	clustered      bool
-}
-
-// matchedEffect expands the matches to one row per set appearance (treated
-// weight 1, each control 1/k of its set) and clusters by matched set, so a
-// control reused across sets still counts once per set it serves.
-func matchedEffect(y []float64, m warehouse.MatchRows) (effect.Estimate, error) {
-	rows := m.Len()
-	yy := make([]float64, rows)
-	zz := make([]bool, rows)
-	cl := make([]int, rows)
-	for r := 0; r < rows; r++ {
-		yy[r] = y[m.Unit[r]]
-		zz[r] = m.Treated[r]
-		cl[r] = int(m.SetID[r])
-	}
-	return effect.ClusteredDifference(yy, zz, m.SetWeight, cl)
-}
-
-func effectRow(outcome, adjustment, estimand string, e effect.Estimate) EffectRow {
-	return EffectRow{Outcome: outcome, Adjustment: adjustment, Estimand: estimand, Estimate: Num(e.Estimate), SE: Num(e.SE),
-		CILow: Num(e.CILow), CIHigh: Num(e.CIHigh), P: Num(e.P), NTreated: e.NTreated, NControl: e.NControl, NMissing: e.NMissing, Method: e.Method}
 }
 
 func joinFirst(xs []string, k int) string {

@@ -32,6 +32,7 @@ type Summary struct {
 	Estimand    string              `json:"estimand"`
 	Effects     []EffectRow         `json:"effects"`
 	Timings     map[string]float64  `json:"stage_seconds"`
+	Diagnostics *Diagnostics        `json:"diagnostics,omitempty"`
 }
 
 // Counts is the attrition of the run.
@@ -136,6 +137,7 @@ type EffectRow struct {
 	Outcome    string `json:"outcome"`
 	Adjustment string `json:"adjustment"`
 	Estimand   string `json:"estimand"`
+	Contrast   string `json:"contrast"`
 	Method     string `json:"se_method"`
 	Estimate   Num    `json:"estimate"`
 	SE         Num    `json:"std_error"`
@@ -145,6 +147,14 @@ type EffectRow struct {
 	NTreated   int    `json:"n_treated"`
 	NControl   int    `json:"n_control"`
 	NMissing   int    `json:"n_missing_outcome"`
+	// EValue and EValueCI: how strongly an unmeasured confounder would
+	// have to be associated with treatment and outcome (risk-ratio scale)
+	// to explain away the estimate and its confidence limit.
+	EValue   Num `json:"e_value"`
+	EValueCI Num `json:"e_value_ci"`
+	// RosenbaumGamma: for matched pairs, the Γ at which the upper-bound
+	// one-sided p-value first exceeds 0.05.
+	RosenbaumGamma Num `json:"rosenbaum_gamma"`
 }
 
 // Num is a float64 that encodes NaN and ±Inf as JSON null instead of

@@ -48,7 +48,7 @@ func runDemo(ctx context.Context, dir string, units int, seed uint64, stdout, st
 		truth := data.TrueATT[o]
 		fmt.Fprintf(stdout, "  %-12s planted %+.4g\n", o, truth)
 		for _, e := range sum.Effects {
-			if e.Outcome != o || (e.Adjustment != "unadjusted" && e.Adjustment != sum.Primary) {
+			if e.Outcome != o || e.Contrast != "difference" || (e.Adjustment != "unadjusted" && e.Adjustment != sum.Primary) {
 				continue
 			}
 			lo, hi := float64(e.CILow), float64(e.CIHigh)

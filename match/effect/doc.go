@@ -4,7 +4,9 @@
 //
 // The estimate is the weighted difference in mean outcomes, treated minus
 // control. Whether it is an ATE, ATT, ATC or an effect in the overlap
-// population is decided by the weights, not here. Standard errors treat the
+// population is decided by the weights, not here. Augmented instead takes the
+// treatment coefficient of a weighted regression on treatment and covariates
+// (regression adjustment). Standard errors treat the
 // weights as fixed: they ignore that the propensity score was estimated,
 // which is conservative for inverse-probability weighted ATE estimates
 // (Lunceford & Davidian 2004, Stat Med 23:2937), and for matched samples

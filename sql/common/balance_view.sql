@@ -33,8 +33,8 @@ itself can hold no NULL covariate) gives no rows for that run.
 */ -}}
 CREATE OR REPLACE VIEW {{.View}} AS
 {{- if not .Vars}}
-SELECT CAST(NULL AS VARCHAR) AS run_id, CAST(NULL AS VARCHAR) AS covariate,
-       CAST(NULL AS VARCHAR) AS level, CAST(NULL AS VARCHAR) AS adjustment,
+SELECT CAST(NULL AS TEXT) AS run_id, CAST(NULL AS TEXT) AS covariate,
+       CAST(NULL AS TEXT) AS level, CAST(NULL AS TEXT) AS adjustment,
        CAST(NULL AS DOUBLE PRECISION) AS mean_treated, CAST(NULL AS DOUBLE PRECISION) AS mean_control,
        CAST(NULL AS DOUBLE PRECISION) AS sd_treated, CAST(NULL AS DOUBLE PRECISION) AS sd_control,
        CAST(NULL AS DOUBLE PRECISION) AS smd, CAST(NULL AS DOUBLE PRECISION) AS variance_ratio
@@ -131,7 +131,7 @@ st AS (
                             AND n.treated = g.treated AND n.level = lv.level
     WHERE g.{{.Alias}}_sw IS NOT NULL
 {{- else}}
-    SELECT s1.run_id, s1.adjustment, s1.treated, {{lit .Name}} AS covariate, CAST(NULL AS VARCHAR) AS level,
+    SELECT s1.run_id, s1.adjustment, s1.treated, {{lit .Name}} AS covariate, CAST(NULL AS TEXT) AS level,
            s1.{{.Alias}}_swx / NULLIF(s1.{{.Alias}}_sw, 0) AS mean,
            s2.{{.Alias}}_ss / NULLIF(s1.{{.Alias}}_sw - s1.{{.Alias}}_sww / NULLIF(s1.{{.Alias}}_sw, 0), 0) AS var
     FROM s1

@@ -32,6 +32,13 @@
 // settled its neighbours are drawn from the tree in increasing order, one
 // at a time, only while they can still beat the deficit node.
 //
+// Supplies are routed in two phases: every unit node with excess pushes
+// to the nearest deficit, then every unit node left with a deficit pulls
+// from the nearest excess by the same search on the reversed residual
+// graph. Between calls to Solve, Reset restarts from zero flow: saturating
+// only the new arcs (the warm restart) was measured to shift whole regions'
+// potentials by the penalty Tier, which then fails the caller's check.
+//
 // Costs are lexicographic pairs (Tier, Dist): Tier counts penalty units
 // exactly in integers (unmatched treated units, uncovered units), Dist is
 // the float64 sum of score distances. Minimising the pair minimises Tier

@@ -1,0 +1,3 @@
+SELECT count(*)
+FROM pg_catalog.pg_namespace
+WHERE nspname = $1

@@ -1,0 +1,289 @@
+package study
+
+import (
+	"errors"
+	"fmt"
+	"math"
+	"slices"
+
+	"counterpart/match/effect"
+	"counterpart/match/sensitivity"
+	"counterpart/warehouse"
+)
+
+// sensitivityAlpha is the one-sided level at which Rosenbaum's Γ is
+// reported: the Γ at which the upper-bound p-value first exceeds 0.05
+// (Rosenbaum 2002, ch. 4; common practice).
+const sensitivityAlpha = 0.05
+
+// rareOutcome is the prevalence under which an odds ratio is read as a risk
+// ratio for E-values (VanderWeele & Ding 2017: "rare", under about 15 %).
+const rareOutcome = 0.15
+
+// adjustment is one way of comparing the arms, as the estimate stage sees it.
+type adjustment struct {
+	name, estimand string
+	// w are per-unit weights (nil: every unit weight 1).
+	w []float64
+	// matched adjustments estimate on the expanded matched rows instead.
+	matched bool
+}
+
+// matchedRows is the matched sample expanded to one row per set
+// appearance: treated weight 1, each control 1/k of its set, clustered by
+// set (a reused control appears once per set it serves).
+type matchedRows struct {
+	unit    []int
+	z       []bool
+	w       []float64
+	cluster []int
+	// pairs is set for 1:1 matching without reuse: the treated and control
+	// unit of each pair, for Rosenbaum bounds.
+	pairs [][2]int
+	// reuse holds the sets for the Abadie–Imbens variance.
+	reuse       bool
+	setTreated  []int
+	setControls [][]int
+}
+
+// estimateOutcome returns the effect rows of one outcome under one
+// adjustment: the difference (and, for a binary outcome, risk and odds
+// ratios), each with its sensitivity figures.
+func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRows, logit []float64, scale outcomeScale) ([]EffectRow, error) {
+	y := o.Values
+	var rows []effect.Estimate
+	var err error
+	switch {
+	case a.matched:
+		yy := make([]float64, len(mr.unit))
+		for r, u := range mr.unit {
+			yy[r] = y[u]
+		}
+		if o.Binary {
+			rows, err = effect.Contrasts(yy, mr.z, mr.w, mr.cluster)
+		} else {
+			var e effect.Estimate
+			e, err = effect.ClusteredDifference(yy, mr.z, mr.w, mr.cluster)
+			rows = []effect.Estimate{e}
+		}
+		if err == nil && mr.reuse {
+			// Clustering by set understates the dependence a reused
+			// control creates; use Abadie & Imbens (2006) for the
+			// difference instead.
+			var ai effect.Estimate
+			ai, err = reuseEstimate(y, z, logit, mr)
+			if err == nil {
+				ai.Contrast = effect.ContrastDifference
+				rows[0] = ai
+			}
+		}
+	case o.Binary:
+		rows, err = effect.Contrasts(y, z, a.w, nil)
+	default:
+		var e effect.Estimate
+		e, err = effect.Difference(y, z, a.w)
+		rows = []effect.Estimate{e}
+	}
+	if errors.Is(err, effect.ErrDegenerateRisk) {
+		// A risk of 0 or 1 in an arm leaves the ratios undefined; the
+		// difference is still estimable.
+		var e effect.Estimate
+		if a.matched {
+			yy := make([]float64, len(mr.unit))
+			for r, u := range mr.unit {
+				yy[r] = y[u]
+			}
+			e, err = effect.ClusteredDifference(yy, mr.z, mr.w, mr.cluster)
+		} else {
+			e, err = effect.Difference(y, z, a.w)
+		}
+		rows = []effect.Estimate{e}
+	}
+	if err != nil {
+		return nil, err
+	}
+	out := make([]EffectRow, 0, len(rows))
+	for _, e := range rows {
+		r := effectRow(o.Name, a.name, a.estimand, e)
+		addEValue(&r, e, o.Binary, scale)
+		if a.matched && mr.pairs != nil && r.Contrast == effect.ContrastDifference {
+			if g, ok := rosenbaumGamma(y, mr.pairs, o.Binary, e.Estimate); ok {
+				r.RosenbaumGamma = Num(g)
+			}
+		}
+		out = append(out, r)
+	}
+	return out, nil
+}
+
+// outcomeScale holds what the E-value conversions need about an outcome.
+type outcomeScale struct {
+	sd         float64 // pooled unadjusted SD (continuous outcomes)
+	prevalence float64 // share of events (binary outcomes)
+}
+
+func scaleOf(o warehouse.Outcome, z []bool) outcomeScale {
+	var s outcomeScale
+	ys := make([]float64, 0, len(o.Values))
+	var events, n float64
+	for _, v := range o.Values {
+		if !math.IsNaN(v) {
+			ys = append(ys, v)
+			events += v
+			n++
+		}
+	}
+	s.prevalence = events / n
+	var zz []bool
+	for i, v := range o.Values {
+		if !math.IsNaN(v) {
+			zz = append(zz, z[i])
+		}
+	}
+	s.sd = pooledSD(ys, zz)
+	return s
+}
+
+// addEValue fills the E-values (VanderWeele & Ding 2017, Ann Intern Med
+// 167:268): on risk ratios directly; on odds ratios through the rare or
+// common-outcome conversion; on a continuous difference through the
+// standardised effect d = estimate / SD with RR ≈ exp(0.91·d). A binary
+// outcome's risk difference gets none: its risk ratio row carries them.
+func addEValue(r *EffectRow, e effect.Estimate, binary bool, sc outcomeScale) {
+	var logRR, se float64
+	switch e.Contrast {
+	case effect.ContrastRiskRatio:
+		logRR, se = math.Log(e.Estimate), e.SE
+	case effect.ContrastOddsRatio:
+		rr, s := sensitivity.RRFromOR(e.Estimate, e.SE, sc.prevalence < rareOutcome)
+		logRR, se = math.Log(rr), s
+	default:
+		if binary || !(sc.sd > 0) {
+			return
+		}
+		rr, s := sensitivity.RRFromSMD(e.Estimate/sc.sd, e.SE/sc.sd)
+		logRR, se = math.Log(rr), s
+	}
+	ev, err := sensitivity.EValueLog(logRR, se)
+	if err != nil {
+		return
+	}
+	r.EValue, r.EValueCI = Num(ev.Point), Num(ev.CI)
+}
+
+// rosenbaumGamma is the sensitivity value of matched pairs: the Γ at which
+// the upper bound of the one-sided p-value, in the direction of the
+// estimate, first exceeds α (signed-rank for continuous outcomes,
+// McNemar's test for binary ones; Rosenbaum 2002, ch. 4).
+func rosenbaumGamma(y []float64, pairs [][2]int, binary bool, estimate float64) (float64, bool) {
+	sign := 1.0
+	if estimate < 0 {
+		sign = -1
+	}
+	var diffs []float64
+	for _, p := range pairs {
+		d := y[p[0]] - y[p[1]]
+		if !math.IsNaN(d) {
+			diffs = append(diffs, sign*d)
+		}
+	}
+	if binary {
+		var t, d int
+		for _, x := range diffs {
+			if x != 0 {
+				d++
+				if x > 0 {
+					t++
+				}
+			}
+		}
+		g, err := sensitivity.McNemarGamma(t, d, sensitivityAlpha)
+		return g, err == nil
+	}
+	g, err := sensitivity.SignedRankGamma(diffs, sensitivityAlpha)
+	return g, err == nil
+}
+
+// reuseEstimate is the matching estimate with the Abadie–Imbens (2006)
+// population variance. σ²(x) of each unit is estimated from its two
+// nearest neighbours in logit(ps) within its own arm (their J = 2).
+func reuseEstimate(y []float64, z []bool, logit []float64, mr *matchedRows) (effect.Estimate, error) {
+	neighbours := armNeighbours(logit, z, y, 2)
+	sigma2 := effect.ConditionalVariance(y, neighbours)
+	r, err := effect.ReuseVariance(y, mr.setTreated, mr.setControls, sigma2)
+	if err != nil {
+		return effect.Estimate{}, err
+	}
+	e := effect.Estimate{Estimate: r.Estimate, SE: r.SEPopulation, NTreated: r.NTreated, NControl: r.NControl, Method: effect.MethodReuse}
+	e.CILow, e.CIHigh = e.Estimate-effect.ZCrit*e.SE, e.Estimate+effect.ZCrit*e.SE
+	e.Z = e.Estimate / e.SE
+	e.P = math.Erfc(math.Abs(e.Z) / math.Sqrt2)
+	return e, nil
+}
+
+// armNeighbours returns, for every unit with an observed outcome, the j
+// units of its own arm nearest in logit(ps) (ties by position), found by
+// sorting each arm once.
+func armNeighbours(logit []float64, z []bool, y []float64, j int) [][]int {
+	out := make([][]int, len(logit))
+	for _, arm := range []bool{true, false} {
+		var idx []int
+		for i := range logit {
+			if z[i] == arm && !math.IsNaN(y[i]) {
+				idx = append(idx, i)
+			}
+		}
+		slices.SortFunc(idx, func(a, b int) int {
+			switch {
+			case logit[a] < logit[b]:
+				return -1
+			case logit[a] > logit[b]:
+				return 1
+			}
+			return a - b
+		})
+		for p, i := range idx {
+			lo, hi := p-1, p+1
+			var nb []int
+			for len(nb) < j && (lo >= 0 || hi < len(idx)) {
+				switch {
+				case lo < 0:
+					nb, hi = append(nb, idx[hi]), hi+1
+				case hi >= len(idx):
+					nb, lo = append(nb, idx[lo]), lo-1
+				case logit[i]-logit[idx[lo]] <= logit[idx[hi]]-logit[i]:
+					nb, lo = append(nb, idx[lo]), lo-1
+				default:
+					nb, hi = append(nb, idx[hi]), hi+1
+				}
+			}
+			out[i] = nb
+		}
+	}
+	return out
+}
+
+func effectRow(outcome, adjustment, estimand string, e effect.Estimate) EffectRow {
+	contrast := e.Contrast
+	if contrast == "" {
+		contrast = effect.ContrastDifference
+	}
+	return EffectRow{Outcome: outcome, Adjustment: adjustment, Estimand: estimand, Contrast: contrast, Estimate: Num(e.Estimate), SE: Num(e.SE),
+		CILow: Num(e.CILow), CIHigh: Num(e.CIHigh), P: Num(e.P), NTreated: e.NTreated, NControl: e.NControl, NMissing: e.NMissing, Method: e.Method,
+		EValue: Num(math.NaN()), EValueCI: Num(math.NaN()), RosenbaumGamma: Num(math.NaN())}
+}
+
+// estimateAll fills sum.Effects for every outcome and adjustment.
+func estimateAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, logit []float64, sum *Summary) error {
+	for _, o := range c.Outcomes {
+		sc := scaleOf(o, c.Treated)
+		for _, a := range adjs {
+			rows, err := estimateOutcome(o, c.Treated, a, mr, logit, sc)
+			if err != nil {
+				return badInput(fmt.Sprintf("estimate %s (%s)", o.Name, a.name), err)
+			}
+			sum.Effects = append(sum.Effects, rows...)
+		}
+	}
+	return nil
+}

@@ -1,0 +1,428 @@
+package postgres
+
+import (
+	"context"
+	"fmt"
+	"strconv"
+	"time"
+
+	"github.com/jackc/pgx/v5"
+
+	sqltext "counterpart/sql"
+	"counterpart/warehouse"
+)
+
+// pgTypeName is the Postgres type of each contract column type, spelt as
+// format_type reports it (table_columns.sql), so one map serves both
+// CREATE TABLE and the type-conflict check. JSON columns are jsonb: stored
+// parsed, queryable with the JSON operators.
+var pgTypeName = map[warehouse.ColType]string{
+	warehouse.TypeText: "text", warehouse.TypeBigInt: "bigint", warehouse.TypeDouble: "double precision",
+	warehouse.TypeBool: "boolean", warehouse.TypeTimestampTZ: "timestamp with time zone", warehouse.TypeJSON: "jsonb",
+}
+
+// statuses lists the statuses the runs table accepts.
+var statuses = []string{warehouse.StatusRunning, warehouse.StatusSucceeded, warehouse.StatusRejected,
+	warehouse.StatusFailed, warehouse.StatusSkipped}
+
+// render fills an SQL template of this dialect.
+func render(name string, data any) string {
+	s, err := sqltext.Render(dialect, name, data)
+	if err != nil {
+		// The templates are embedded and tested: failing here is a bug.
+		panic(err)
+	}
+	return s
+}
+
+// objects holds the quoted, schema-qualified names of a contract.
+type objects struct {
+	c                                      *warehouse.Contract
+	runs, cohort, scores, matches, weights string
+}
+
+func newObjects(out warehouse.Output) (*objects, error) {
+	c, err := warehouse.NewContract(out)
+	if err != nil {
+		return nil, err
+	}
+	q := func(name string) string { return warehouse.QuoteQualified(c.Schema, name) }
+	return &objects{c: c, runs: q(c.Runs.Name), cohort: q(c.Cohort.Name), scores: q(c.Scores.Name),
+		matches: q(c.Matches.Name), weights: q(c.Weights.Name)}, nil
+}
+
+func (w *Warehouse) writable(step string) error {
+	if w.readOnly {
+		return fmt.Errorf("%s: the warehouse was opened read-only (dry run)", step)
+	}
+	return nil
+}
+
+// schemaExists refuses a missing output schema before anything is
+// written: the engine never creates schemas.
+func (w *Warehouse) schemaExists(ctx context.Context, schema string) error {
+	var n int
+	if err := w.conn.QueryRow(ctx, render("schema_exists.sql", nil), schema).Scan(&n); err != nil {
+		return fmt.Errorf("look up schema %s: %w", schema, w.dbErr(err))
+	}
+	if n == 0 {
+		return fmt.Errorf("%w: output.schema %s does not exist in database %s; create it (CREATE SCHEMA %s) or name an existing one",
+			warehouse.ErrBadInput, schema, w.cfg.Database, schema)
+	}
+	return nil
+}
+
+// StartRun checks that the output schema exists, creates the contract's
+// tables with their comments (adding columns a table lacks: a new
+// covariate, outcome or scheme) and the current views, creates the
+// balance views when absent, and commits the runs row with status
+// running, all in one transaction. A column whose existing type differs
+// from what the study needs is an error wrapping warehouse.ErrBadInput.
+func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run warehouse.RunRecord) error {
+	if err := w.writable("start run"); err != nil {
+		return err
+	}
+	o, err := newObjects(out)
+	if err != nil {
+		return fmt.Errorf("start run: %w", err)
+	}
+	if run.RunID == "" {
+		return fmt.Errorf("start run: empty run id")
+	}
+	if err := w.schemaExists(ctx, out.Schema); err != nil {
+		return fmt.Errorf("start run: %w", err)
+	}
+	if _, err := w.conn.Exec(ctx, "BEGIN"); err != nil {
+		return fmt.Errorf("start run: begin: %w", w.dbErr(err))
+	}
+	err = w.startRun(ctx, o, out, run)
+	if err == nil {
+		if _, err = w.conn.Exec(ctx, "COMMIT"); err != nil {
+			err = fmt.Errorf("commit: %w", w.dbErr(err))
+		}
+	}
+	if err != nil {
+		w.rollback(ctx)
+		return fmt.Errorf("start run: %w", err)
+	}
+	return nil
+}
+
+func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Output, run warehouse.RunRecord) error {
+	for _, t := range o.c.Tables() {
+		if err := w.ensureTable(ctx, o.c.Schema, t, t == &o.c.Runs); err != nil {
+			return err
+		}
+	}
+	if err := w.currentViews(ctx, o); err != nil {
+		return err
+	}
+	for _, v := range []string{o.c.Balance, o.c.BalanceHistory} {
+		var n int
+		if err := w.conn.QueryRow(ctx, render("view_exists.sql", nil), o.c.Schema, v).Scan(&n); err != nil {
+			return fmt.Errorf("look up view %s: %w", v, w.dbErr(err))
+		}
+		if n == 0 {
+			if err := w.balanceViews(ctx, o, out); err != nil {
+				return err
+			}
+			break
+		}
+	}
+	started := run.StartedAt
+	if started.IsZero() {
+		started = time.Now().UTC()
+	}
+	_, err := w.conn.Exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.runs}),
+		run.RunID, run.Study, warehouse.StatusRunning, started, nullTime(run.FinishedAt),
+		run.ToolVersion, run.SpecSHA256, nullText(run.SpecJSON), run.CohortSQL, nullText(run.CohortFingerprint),
+		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
+		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message))
+	if err != nil {
+		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.c.Runs.Name, w.dbErr(err))
+	}
+	return nil
+}
+
+// tableCol is one column as the create_table and add_column templates see
+// it.
+type tableCol struct {
+	Name, Type, Constraint, ColComment string
+}
+
+// ensureTable creates t or adds the columns it lacks. The runs table gets
+// its key and the check on status.
+func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) error {
+	qt := warehouse.QuoteQualified(schema, t.Name)
+	existing, err := w.tableColumns(ctx, schema, t.Name)
+	if err != nil {
+		return err
+	}
+	if len(existing) == 0 {
+		data := struct {
+			Table, Comment string
+			Columns        []tableCol
+			Checks         []string
+		}{Table: qt, Comment: t.Comment}
+		for i, c := range t.Columns {
+			tc := tableCol{Name: warehouse.Quote(c.Name), Type: pgTypeName[c.Type], ColComment: c.Comment}
+			if c.Name == "run_id" && i == 0 {
+				tc.Constraint = "NOT NULL"
+			}
+			data.Columns = append(data.Columns, tc)
+		}
+		if runs {
+			data.Columns[0].Constraint = "PRIMARY KEY"
+			check := "CHECK (status IN ("
+			for i, s := range statuses {
+				if i > 0 {
+					check += ", "
+				}
+				check += sqltext.Literal(s)
+			}
+			data.Checks = []string{check + "))"}
+		}
+		if _, err := w.conn.Exec(ctx, render("create_table.sql", data)); err != nil {
+			return fmt.Errorf("create table %s: %w", t.Name, w.dbErr(err))
+		}
+		return nil
+	}
+	for _, c := range t.Columns {
+		have, ok := existing[c.Name]
+		if !ok {
+			data := struct{ Table, Name, Type, ColComment string }{qt, warehouse.Quote(c.Name), pgTypeName[c.Type], c.Comment}
+			if _, err := w.conn.Exec(ctx, render("add_column.sql", data)); err != nil {
+				return fmt.Errorf("add column %s to table %s: %w", c.Name, t.Name, w.dbErr(err))
+			}
+			continue
+		}
+		if have != pgTypeName[c.Type] {
+			return fmt.Errorf("%w: column %s of existing table %s.%s has type %s but the study needs %s; rename the column in cohort.sql or move the old table away",
+				warehouse.ErrBadInput, c.Name, schema, t.Name, have, pgTypeName[c.Type])
+		}
+	}
+	return nil
+}
+
+// tableColumns returns name → type of an existing table's columns; empty
+// when the table does not exist.
+func (w *Warehouse) tableColumns(ctx context.Context, schema, table string) (map[string]string, error) {
+	rows, err := w.conn.Query(ctx, render("table_columns.sql", nil), schema, table)
+	if err != nil {
+		return nil, fmt.Errorf("columns of %s: %w", table, w.dbErr(err))
+	}
+	cols := map[string]string{}
+	var name, typ string
+	_, err = pgx.ForEachRow(rows, []any{&name, &typ}, func() error {
+		cols[name] = typ
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("columns of %s: %w", table, w.dbErr(err))
+	}
+	return cols, nil
+}
+
+// currentViews (re)creates the four current_* views; a view's column list
+// is fixed when it is created, so they follow the tables' new columns.
+func (w *Warehouse) currentViews(ctx context.Context, o *objects) error {
+	for _, v := range []struct{ view, table, what string }{
+		{o.c.CurrentCohort, o.cohort, "cohort snapshot"},
+		{o.c.CurrentScores, o.scores, "propensity scores"},
+		{o.c.CurrentMatches, o.matches, "matched sets"},
+		{o.c.CurrentWeights, o.weights, "weights"},
+	} {
+		data := map[string]string{
+			"View": warehouse.QuoteQualified(o.c.Schema, v.view), "Table": v.table, "Runs": o.runs,
+			"Comment": "The " + v.what + " of the latest succeeded run.",
+		}
+		if _, err := w.conn.Exec(ctx, render("current_view.sql", data)); err != nil {
+			return fmt.Errorf("create view %s: %w", v.view, w.dbErr(err))
+		}
+	}
+	return nil
+}
+
+// balanceVar and balanceScheme feed the balance_view template.
+type balanceVar struct {
+	Name, Col, Alias string
+	Categorical      bool
+}
+
+type balanceScheme struct{ Name, Col string }
+
+// balanceViews (re)creates the balance and balance_history views for the
+// covariates and schemes of out.
+func (w *Warehouse) balanceViews(ctx context.Context, o *objects, out warehouse.Output) error {
+	data := struct {
+		View, Runs, Cohort, Matches, Weights, Unit, Treatment, Comment string
+		Current, HasNumeric                                            bool
+		Vars                                                           []balanceVar
+		Schemes                                                        []balanceScheme
+	}{Runs: o.runs, Cohort: o.cohort, Matches: o.matches, Weights: o.weights,
+		Unit: warehouse.Quote(out.Unit), Treatment: warehouse.Quote(out.Treatment)}
+	for i, cv := range out.Covariates {
+		data.Vars = append(data.Vars, balanceVar{Name: cv.Name, Col: warehouse.Quote(cv.Name),
+			Alias: "x" + strconv.Itoa(i+1), Categorical: cv.Kind == warehouse.Categorical})
+		data.HasNumeric = data.HasNumeric || cv.Kind != warehouse.Categorical
+	}
+	for _, s := range out.Schemes {
+		data.Schemes = append(data.Schemes, balanceScheme{Name: s, Col: warehouse.Quote(s)})
+	}
+	for _, v := range []struct {
+		name    string
+		current bool
+		comment string
+	}{
+		{o.c.Balance, true, "Covariate balance of the latest succeeded run: means, SDs, SMD and variance ratio per covariate, level and adjustment (unadjusted, matched, each weighting scheme). SMD uses the unadjusted pooled SD (Austin 2009)."},
+		{o.c.BalanceHistory, false, "Covariate balance of every run still kept, computed like the balance view."},
+	} {
+		data.View, data.Current, data.Comment = warehouse.QuoteQualified(o.c.Schema, v.name), v.current, v.comment
+		if _, err := w.conn.Exec(ctx, render("balance_view.sql", data)); err != nil {
+			return fmt.Errorf("create view %s: %w", v.name, w.dbErr(err))
+		}
+	}
+	return nil
+}
+
+// Publish writes the run's cohort snapshot, scores, matches and weights
+// (COPY FROM STDIN in binary format) and its final runs row in one
+// transaction on the run's connection, applies retention (out.KeepRuns)
+// and, for a succeeded run, rebuilds the balance views for this run's
+// covariates and schemes. Postgres DDL is transactional, so the views'
+// replacement commits with the rows. A failure anywhere, a cancelled
+// context, or the process dying (the server aborts the transaction of a
+// dropped connection) leaves none of it visible and the previous run
+// current.
+func (w *Warehouse) Publish(ctx context.Context, out warehouse.Output, p *warehouse.Publication) error {
+	if err := w.writable("publish"); err != nil {
+		return err
+	}
+	o, err := newObjects(out)
+	if err != nil {
+		return fmt.Errorf("publish: %w", err)
+	}
+	if err := warehouse.CheckPublication(out, p); err != nil {
+		return fmt.Errorf("publish: %w", err)
+	}
+	if _, err := w.conn.Exec(ctx, "BEGIN"); err != nil {
+		return fmt.Errorf("publish: begin: %w", w.dbErr(err))
+	}
+	err = w.publish(ctx, o, out, p)
+	if err == nil {
+		err = w.step("commit")
+	}
+	if err == nil {
+		if _, err = w.conn.Exec(ctx, "COMMIT"); err != nil {
+			err = fmt.Errorf("commit: %w", w.dbErr(err))
+		}
+	}
+	if err != nil {
+		w.rollback(ctx)
+		return fmt.Errorf("publish run %s: %w", p.Run.RunID, err)
+	}
+	return nil
+}
+
+// step runs the test fault hook.
+func (w *Warehouse) step(name string) error {
+	if w.fault != nil {
+		return w.fault(name)
+	}
+	return nil
+}
+
+func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+	r := p.Run
+	finished := r.FinishedAt
+	if finished.IsZero() {
+		finished = time.Now().UTC()
+	}
+	tag, err := w.conn.Exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.runs}),
+		r.RunID, r.Status, finished, nullText(r.CohortFingerprint), nullText(r.CountsJSON),
+		nullText(r.ModelJSON), nullText(r.BalanceJSON), nullText(r.EffectsJSON), nullText(r.Message))
+	if err != nil {
+		return fmt.Errorf("update %s: %w", o.c.Runs.Name, w.dbErr(err))
+	}
+	if tag.RowsAffected() != 1 {
+		return fmt.Errorf("run %s is not a running run in %s (StartRun must come first, and a run is published once)", r.RunID, o.c.Runs.Name)
+	}
+	if err := w.step("runs"); err != nil {
+		return err
+	}
+	if p.Cohort != nil {
+		if err := w.copyAll(ctx, o, out, p); err != nil {
+			return err
+		}
+	}
+	if out.KeepRuns > 0 {
+		for _, t := range []string{o.cohort, o.scores, o.matches, o.weights, o.runs} {
+			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.runs})
+			if _, err := w.conn.Exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
+				return fmt.Errorf("retention on %s: %w", t, w.dbErr(err))
+			}
+		}
+		if err := w.step("retention"); err != nil {
+			return err
+		}
+	}
+	if err := w.currentViews(ctx, o); err != nil {
+		return err
+	}
+	if r.Status == warehouse.StatusSucceeded {
+		if err := w.balanceViews(ctx, o, out); err != nil {
+			return err
+		}
+	}
+	return w.step("views")
+}
+
+// FailRun marks a running run as failed, with its finish time and message.
+// It first rolls back whatever transaction the failure left open, then
+// updates in a transaction of its own. A run that is no longer running (it
+// was published) keeps its status and FailRun says so.
+func (w *Warehouse) FailRun(ctx context.Context, out warehouse.Output, runID, message string) error {
+	if err := w.writable("fail run"); err != nil {
+		return err
+	}
+	w.rollback(ctx)
+	runs := out.Prefix + "runs"
+	if err := warehouse.ValidIdent(out.Schema); err != nil {
+		return fmt.Errorf("fail run: output.schema: %w", err)
+	}
+	if err := warehouse.ValidIdent(runs); err != nil {
+		return fmt.Errorf("fail run: output.prefix: %w", err)
+	}
+	q := render("fail_run.sql", map[string]string{"Runs": warehouse.QuoteQualified(out.Schema, runs)})
+	tag, err := w.conn.Exec(ctx, q, runID, time.Now().UTC(), scrub(message, w.secrets))
+	if err != nil {
+		return fmt.Errorf("fail run %s: %w", runID, w.dbErr(err))
+	}
+	if tag.RowsAffected() == 0 {
+		return fmt.Errorf("fail run %s: no running run with that id in %s.%s", runID, out.Schema, runs)
+	}
+	return nil
+}
+
+// engineName records the engine the caller names, else this one.
+func engineName(e string) string {
+	if e == "" {
+		return "postgres"
+	}
+	return e
+}
+
+// nullText stores an empty string as NULL: jsonb columns cannot hold "".
+func nullText(s string) any {
+	if s == "" {
+		return nil
+	}
+	return s
+}
+
+func nullTime(t time.Time) any {
+	if t.IsZero() {
+		return nil
+	}
+	return t
+}

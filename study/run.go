@@ -30,6 +30,10 @@ type Options struct {
 	Now func() time.Time
 	// Stage, when set, is told as each stage starts (progress display).
 	Stage func(name string)
+	// Diagnostics asks for the distribution summaries the HTML report
+	// plots (score histograms, eCDFs); they cost a pass per covariate and
+	// adjustment, so plain runs skip them.
+	Diagnostics bool
 }
 
 // Run executes one study end to end against an already open warehouse.
@@ -52,6 +56,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	sum := &Summary{
 		Study: s.Study, RunID: id.String(), Engine: wh.Engine(), DryRun: opt.DryRun,
 		Primary: s.Primary(), Estimand: s.Estimate.Estimand, Timings: map[string]float64{},
+		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256,
 		StartedAt: started.UTC(),
 	}
 	lap := started
@@ -80,7 +85,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	}
 	timed("read")
 
-	res, err := analyse(s, c, sum, stage, timed)
+	res, err := analyse(s, c, sum, stage, timed, opt.Diagnostics)
 	if err != nil {
 		return sum, err
 	}
@@ -161,7 +166,7 @@ func badInput(step string, err error) error {
 }
 
 // analyse runs every statistical stage on the cohort and fills the summary.
-func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string)) (*results, error) {
+func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string), diagnostics bool) (*results, error) {
 	n := c.N()
 	z := c.Treated
 	nt := 0
@@ -246,7 +251,9 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
 	prep := balance.Prepare(d.vars, z, false)
+	var diagAdj []NamedWeights
 	adjust := func(name string, w []float64) {
+		diagAdj = append(diagAdj, NamedWeights{Name: name, W: w})
 		st := prep.Compute(w)
 		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
 		ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
@@ -347,6 +354,11 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		adjs = append(adjs, adjustment{name: scheme, estimand: estimandOf[scheme], w: w})
 	}
 	timed("weight")
+	if diagnostics {
+		dg := Diagnose(fit.PS, z, res.inSupport, d.vars, diagAdj, DefaultWorst)
+		sum.Diagnostics = &dg
+		timed("diagnostics")
+	}
 
 	// The gate judges the adjustment behind the headline estimate.
 	sum.Gate = Gate{Adjustment: s.Primary(), OnFail: s.Balance.OnFail, Pass: true,

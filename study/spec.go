@@ -93,6 +93,9 @@ type OutputSpec struct {
 	Schema   string `yaml:"schema" json:"schema"`
 	Prefix   string `yaml:"prefix" json:"prefix"`
 	KeepRuns int    `yaml:"keep_runs" json:"keep_runs"`
+	// Report, when set, is an HTML report file written after every run
+	// (relative paths are relative to the study file).
+	Report string `yaml:"report" json:"report,omitempty"`
 }
 
 // SpecError is a problem with the study file. Line is 0 when the problem
@@ -148,6 +151,9 @@ func Load(path string) (*Spec, error) {
 	// so a study runs the same from cron as from its own directory.
 	if s.Warehouse.Engine == "duckdb" && !filepath.IsAbs(s.Warehouse.DSN) && s.Warehouse.DSN != ":memory:" {
 		s.Warehouse.DSN = filepath.Join(filepath.Dir(path), s.Warehouse.DSN)
+	}
+	if s.Output.Report != "" && !filepath.IsAbs(s.Output.Report) {
+		s.Output.Report = filepath.Join(filepath.Dir(path), s.Output.Report)
 	}
 	return s, nil
 }

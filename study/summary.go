@@ -18,6 +18,8 @@ type Summary struct {
 	Status      string              `json:"status"`
 	Message     string              `json:"message,omitempty"`
 	Engine      string              `json:"engine"`
+	ToolVersion string              `json:"tool_version"`
+	SpecSHA256  string              `json:"spec_sha256"`
 	DryRun      bool                `json:"dry_run"`
 	StartedAt   time.Time           `json:"started_at"`
 	FinishedAt  time.Time           `json:"finished_at"`

@@ -11,6 +11,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"path/filepath"
 	"strings"
 	"syscall"
 
@@ -73,12 +74,13 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 				Flags: []cli.Flag{
 					&cli.BoolFlag{Name: "dry-run", Usage: "validate, read, fit and match; write nothing"},
 					&cli.BoolFlag{Name: "json", Usage: "print a machine-readable summary on stdout"},
+					&cli.StringFlag{Name: "report", Usage: "also write the HTML report of this run to `FILE`"},
 				},
 				Action: func(c *cli.Context) error {
 					if c.NArg() != 1 {
 						return usageError("run takes one study file: counterpart run STUDY.yaml")
 					}
-					code = runStudy(ctx, c.Args().First(), c.Bool("dry-run"), c.Bool("json"), stdout, stderr)
+					code = runStudy(ctx, c.Args().First(), runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report")}, stdout, stderr)
 					return nil
 				},
 			},
@@ -132,23 +134,41 @@ func oneLine(s string) string {
 	return s
 }
 
-func runStudy(ctx context.Context, path string, dry, asJSON bool, stdout, stderr io.Writer) int {
+// runFlags are the switches of the run command.
+type runFlags struct {
+	dry, json bool
+	report    string
+}
+
+func runStudy(ctx context.Context, path string, f runFlags, stdout, stderr io.Writer) int {
 	spec, err := study.Load(path)
 	if err != nil {
 		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
 		return exitCode(err)
 	}
-	return execute(ctx, spec, dry, asJSON, stdout, stderr)
+	if f.report == "" {
+		f.report = spec.Output.Report
+	}
+	return execute(ctx, spec, f, stdout, stderr)
 }
 
-func execute(ctx context.Context, spec *study.Spec, dry, asJSON bool, stdout, stderr io.Writer) int {
+func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr io.Writer) int {
+	dry, asJSON := f.dry, f.json
 	wh, err := study.Open(ctx, spec, dry)
 	if err != nil {
 		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
 		return exitCode(err)
 	}
 	defer wh.Close()
-	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version})
+	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != ""})
+	if f.report != "" && sum != nil && sum.Status != "" {
+		if rerr := writeReport(f.report, sum); rerr != nil {
+			fmt.Fprintln(stderr, "counterpart: "+oneLine(rerr.Error()))
+			if err == nil {
+				return exitRuntime
+			}
+		}
+	}
 	if asJSON && sum != nil && (err == nil || errors.Is(err, study.ErrRejected)) {
 		enc := json.NewEncoder(stdout)
 		enc.SetIndent("", "  ")
@@ -164,6 +184,30 @@ func execute(ctx context.Context, spec *study.Spec, dry, asJSON bool, stdout, st
 		return exitCode(err)
 	}
 	return exitOK
+}
+
+// writeReport writes the HTML report atomically: a reader never sees half
+// a file, and a failed render leaves the previous report in place.
+func writeReport(path string, sum *study.Summary) error {
+	tmp, err := os.CreateTemp(filepath.Dir(path), ".report-*.html")
+	if err != nil {
+		return fmt.Errorf("write report: %w", err)
+	}
+	defer os.Remove(tmp.Name())
+	if err := report.HTML(tmp, sum); err != nil {
+		tmp.Close()
+		return fmt.Errorf("write report: %w", err)
+	}
+	if err := tmp.Close(); err != nil {
+		return fmt.Errorf("write report: %w", err)
+	}
+	if err := os.Chmod(tmp.Name(), 0o644); err != nil {
+		return fmt.Errorf("write report: %w", err)
+	}
+	if err := os.Rename(tmp.Name(), path); err != nil {
+		return fmt.Errorf("write report: %w", err)
+	}
+	return nil
 }
 
 func printSummary(w io.Writer, sum *study.Summary) {

@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"math"
 	"time"
 
 	"github.com/google/uuid"
@@ -211,25 +210,7 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	timed("fit")
 
 	res := &results{ps: fit.PS, logit: fit.Logit, inSupport: make([]bool, n)}
-	var low, high float64 = 0, 1
-	switch s.Support {
-	case "minmax":
-		// Keep scores inside both arms' ranges: [max of minima, min of maxima].
-		lo := [2]float64{math.Inf(1), math.Inf(1)}
-		hi := [2]float64{math.Inf(-1), math.Inf(-1)}
-		for i, p := range fit.PS {
-			a := 0
-			if z[i] {
-				a = 1
-			}
-			lo[a] = math.Min(lo[a], p)
-			hi[a] = math.Max(hi[a], p)
-		}
-		low, high = math.Max(lo[0], lo[1]), math.Min(hi[0], hi[1])
-	case "crump":
-		// Crump, Hotz, Imbens & Mitnik (2009): keep 0.1 ≤ ps ≤ 0.9.
-		low, high = 0.1, 0.9
-	}
+	low, high := supportBounds(s.Support, fit.PS, z)
 	var keptT, keptC int
 	for i, p := range fit.PS {
 		in := p >= low && p <= high
@@ -343,11 +324,9 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		if err != nil {
 			return nil, badInput("weights", err)
 		}
-		w := fn(fit.PS, z)
-		for i := range w {
-			if !res.inSupport[i] {
-				w[i] = 0
-			}
+		w, err := applyRules(s.Rules, weights.Restrict(fn(fit.PS, z), res.inSupport), z)
+		if err != nil {
+			return nil, badInput("weights "+scheme, err)
 		}
 		res.weights = append(res.weights, w)
 		adjust(scheme, w)
@@ -377,6 +356,18 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	stage("estimate")
 	if err := estimateAll(c, adjs, mr, fit.Logit, sum); err != nil {
 		return nil, err
+	}
+	if s.Estimate.Augment {
+		if err := augmentAll(c, adjs, mr, d.x, d.names, sum); err != nil {
+			return nil, err
+		}
+	}
+	if s.Estimate.Bootstrap > 0 {
+		stage("bootstrap")
+		if err := bootstrapAll(s, c, d, sum); err != nil {
+			return nil, err
+		}
+		timed("bootstrap")
 	}
 	timed("estimate")
 	return res, nil

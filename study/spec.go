@@ -32,6 +32,7 @@ type Spec struct {
 	Support   string        `yaml:"support" json:"support"`
 	Matching  MatchingSpec  `yaml:"matching" json:"matching"`
 	Weighting []string      `yaml:"weighting" json:"weighting"`
+	Rules     WeightRules   `yaml:"weight_rules" json:"weight_rules"`
 	Balance   BalanceSpec   `yaml:"balance" json:"balance"`
 	Estimate  EstimateSpec  `yaml:"estimate" json:"estimate"`
 	Output    OutputSpec    `yaml:"output" json:"output"`
@@ -83,9 +84,29 @@ type BalanceSpec struct {
 	OnFail             string  `yaml:"on_fail" json:"on_fail"`
 }
 
-// EstimateSpec picks the headline estimand.
+// WeightRules adjust every weighting scheme after it is computed.
+type WeightRules struct {
+	// Stabilize multiplies weights by the share of the unit's own arm
+	// (Robins, Hernán & Brumback 2000).
+	Stabilize bool `yaml:"stabilize" json:"stabilize"`
+	// Percentiles winsorises positive weights within each arm at these
+	// percentiles, e.g. [1, 99]; empty means none.
+	Percentiles []float64 `yaml:"percentiles" json:"percentiles,omitempty"`
+	// Bounds clamps positive weights to [low, high]; empty means none.
+	Bounds []float64 `yaml:"bounds" json:"bounds,omitempty"`
+}
+
+// EstimateSpec picks the headline estimand and the extra estimators.
 type EstimateSpec struct {
 	Estimand string `yaml:"estimand" json:"estimand"`
+	// Augment adds, for each adjustment, the weighted regression of the
+	// outcome on treatment and the covariates (doubly robust).
+	Augment bool `yaml:"augment" json:"augment"`
+	// Bootstrap is the number of bootstrap replicates for the weighting
+	// estimators (0: none); each replicate refits the score.
+	Bootstrap int `yaml:"bootstrap" json:"bootstrap"`
+	// Seed seeds the bootstrap.
+	Seed uint64 `yaml:"seed" json:"seed"`
 }
 
 // OutputSpec says where results are written.
@@ -534,6 +555,19 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	}
 	if err := enum("estimate.estimand", &s.Estimate.Estimand, "att", estimands); err != nil {
 		return err
+	}
+	if s.Estimate.Bootstrap < 0 || s.Estimate.Bootstrap == 1 {
+		return bad("estimate.bootstrap", "%d replicates is not allowed; give 0 (none) or at least 2 (200 or more is usual)", s.Estimate.Bootstrap)
+	}
+	if !present(doc, "estimate.seed") {
+		s.Estimate.Seed = DefaultSeed
+	}
+	r := &s.Rules
+	if n := len(r.Percentiles); n != 0 && (n != 2 || !(0 <= r.Percentiles[0] && r.Percentiles[0] <= r.Percentiles[1] && r.Percentiles[1] <= 100)) {
+		return bad("weight_rules.percentiles", "give two percentiles [low, high] with 0 <= low <= high <= 100, e.g. [1, 99]")
+	}
+	if n := len(r.Bounds); n != 0 && (n != 2 || !(0 <= r.Bounds[0] && r.Bounds[0] <= r.Bounds[1]) || math.IsInf(r.Bounds[1], 0)) {
+		return bad("weight_rules.bounds", "give two bounds [low, high] with 0 <= low <= high, e.g. [0.05, 20]")
 	}
 	if scheme := s.PrimaryScheme(); scheme != "" && !seenScheme[scheme] {
 		s.Weighting = append(s.Weighting, scheme)

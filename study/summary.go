@@ -157,6 +157,12 @@ type EffectRow struct {
 	// RosenbaumGamma: for matched pairs, the Γ at which the upper-bound
 	// one-sided p-value first exceeds 0.05.
 	RosenbaumGamma Num `json:"rosenbaum_gamma"`
+	// Bootstrap (weighting estimators, when asked): SE and the percentile
+	// 95% interval over BootReps replicates that refit the score.
+	BootSE   Num `json:"bootstrap_se,omitempty"`
+	BootLow  Num `json:"bootstrap_ci_low,omitempty"`
+	BootHigh Num `json:"bootstrap_ci_high,omitempty"`
+	BootReps int `json:"bootstrap_reps,omitempty"`
 }
 
 // Num is a float64 that encodes NaN and ±Inf as JSON null instead of

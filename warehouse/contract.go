@@ -39,11 +39,18 @@ type Table struct {
 // the contract" (README.md) mean the same thing on each of them.
 type Contract struct {
 	Schema string
-	// Tables, in creation order: runs, cohort, scores, matches, weights.
-	Runs, Cohort, Scores, Matches, Weights Table
+	// Tables, in creation order: runs, cohort, scores, matches, weights,
+	// effects.
+	Runs, Cohort, Scores, Matches, Weights, Effects Table
 	// Views over the latest succeeded run, and the balance views.
 	CurrentCohort, CurrentScores, CurrentMatches, CurrentWeights string
+	CurrentEffects                                               string
 	Balance, BalanceHistory                                      string
+	// Analysis is the view of the latest succeeded run's units with their
+	// scores, matching weight and scheme weights (AnalysisColumns).
+	Analysis string
+	// AnalysisColumns are the analysis view's columns, in order.
+	AnalysisColumns []Column
 	// Unit and Treatment are the source names of the unit and treatment
 	// columns, used as column names in the cohort snapshot (and the unit's
 	// in scores, matches and weights).
@@ -52,7 +59,7 @@ type Contract struct {
 
 // Tables lists the contract's tables in creation order.
 func (c *Contract) Tables() []*Table {
-	return []*Table{&c.Runs, &c.Cohort, &c.Scores, &c.Matches, &c.Weights}
+	return []*Table{&c.Runs, &c.Cohort, &c.Scores, &c.Matches, &c.Weights, &c.Effects}
 }
 
 // NewContract validates every name in out (schema, prefix, columns, schemes)
@@ -72,10 +79,11 @@ func NewContract(out Output) (*Contract, error) {
 		base string
 	}{
 		{&c.Runs.Name, "runs"}, {&c.Cohort.Name, "cohort"}, {&c.Scores.Name, "scores"},
-		{&c.Matches.Name, "matches"}, {&c.Weights.Name, "weights"},
+		{&c.Matches.Name, "matches"}, {&c.Weights.Name, "weights"}, {&c.Effects.Name, "effects"},
 		{&c.CurrentCohort, "current_cohort"}, {&c.CurrentScores, "current_scores"},
 		{&c.CurrentMatches, "current_matches"}, {&c.CurrentWeights, "current_weights"},
-		{&c.Balance, "balance"}, {&c.BalanceHistory, "balance_history"},
+		{&c.CurrentEffects, "current_effects"},
+		{&c.Balance, "balance"}, {&c.BalanceHistory, "balance_history"}, {&c.Analysis, "analysis"},
 	}
 	for _, n := range names {
 		*n.p = out.Prefix + n.base
@@ -96,7 +104,7 @@ func NewContract(out Output) (*Contract, error) {
 	c.Runs.Columns = []Column{
 		{"run_id", TypeText, "unique id of the run"},
 		{"study", TypeText, "study name from the study file"},
-		{"status", TypeText, "running, succeeded, rejected (balance gate failed; rows kept for inspection), failed or skipped"},
+		{"status", TypeText, "running, succeeded, rejected (balance gate failed; rows kept for inspection), failed, skipped, or abandoned (left running by a process that died; set by the next run)"},
 		{"started_at", TypeTimestampTZ, "when the run started"},
 		{"finished_at", TypeTimestampTZ, "when the run finished; NULL while running"},
 		{"tool_version", TypeText, "counterpart version that wrote the run"},
@@ -111,6 +119,7 @@ func NewContract(out Output) (*Contract, error) {
 		{"engine", TypeText, "warehouse engine"},
 		{"db_user", TypeText, "database user that ran the study"},
 		{"message", TypeText, "why the run failed, was rejected or skipped; warnings"},
+		{"summary", TypeJSON, "the whole run summary as the run reported it; NULL until the run is published"},
 	}
 
 	c.Cohort.Comment = "Snapshot of the cohort each run analysed, one row per run and unit, so a run can be reproduced."
@@ -148,7 +157,40 @@ func NewContract(out Output) (*Contract, error) {
 		c.Weights.Columns = append(c.Weights.Columns, Column{s, TypeDouble, "weight under the " + s + " scheme"})
 	}
 
-	for _, t := range c.Tables() {
+	c.Effects.Comment = "Effect estimates of every run: one row per outcome, adjustment and contrast, with uncertainty and sensitivity."
+	effDouble := func(name, comment string) Column { return Column{name, TypeDouble, comment + "; NULL when undefined"} }
+	c.Effects.Columns = []Column{runID,
+		{"outcome", TypeText, "outcome column as in the study"},
+		{"adjustment", TypeText, "unadjusted, matched, or a weighting scheme"},
+		{"estimand", TypeText, "population the effect refers to (ATT, ATE, ATO, ...)"},
+		{"contrast", TypeText, "difference, risk_ratio or odds_ratio (treated versus control)"},
+		{"method", TypeText, "how the standard error was obtained"},
+		effDouble("estimate", "point estimate on the contrast's scale"),
+		effDouble("std_error", "standard error (of the log for a ratio)"),
+		effDouble("ci_low", "lower limit of the 95% confidence interval"),
+		effDouble("ci_high", "upper limit of the 95% confidence interval"),
+		effDouble("p_value", "two-sided p-value against no effect"),
+		{"n_treated", TypeBigInt, "treated units with the outcome that entered the estimate"},
+		{"n_control", TypeBigInt, "control units with the outcome that entered the estimate"},
+		{"n_missing", TypeBigInt, "units left out because the outcome is missing"},
+		effDouble("e_value", "E-value of the estimate: the risk-ratio association an unmeasured confounder would need with treatment and outcome to explain it away (VanderWeele & Ding 2017)"),
+		effDouble("e_value_ci", "E-value of the confidence limit closer to no effect"),
+		effDouble("rosenbaum_gamma", "Rosenbaum sensitivity: the gamma at which the one-sided upper-bound p-value first exceeds 0.05 (matched pairs)"),
+	}
+
+	// The analysis view: the snapshot's columns (run_id, unit, treatment,
+	// covariates, outcomes), the scores, the matching summary and every
+	// scheme's weight.
+	c.AnalysisColumns = append([]Column(nil), c.Cohort.Columns...)
+	c.AnalysisColumns = append(c.AnalysisColumns, c.Scores.Columns[3:]...)
+	c.AnalysisColumns = append(c.AnalysisColumns,
+		Column{"set_id", TypeBigInt, "the unit's matched set; for a control reused in several sets the smallest set id; NULL when unmatched"},
+		Column{"set_count", TypeBigInt, "number of matched sets the unit appears in; 0 when unmatched"},
+		Column{"matched_weight", TypeDouble, "matching weight: sum of set_weight over the unit's sets; 0 when unmatched"})
+	c.AnalysisColumns = append(c.AnalysisColumns, c.Weights.Columns[3:]...)
+	analysis := &Table{Name: c.Analysis, Columns: c.AnalysisColumns}
+
+	for _, t := range append(c.Tables(), analysis) {
 		seen := map[string]string{}
 		for _, col := range t.Columns {
 			if err := ValidIdent(col.Name); err != nil {

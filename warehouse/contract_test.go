@@ -30,11 +30,14 @@ func TestNewContract(t *testing.T) {
 		name  string
 		cols  string
 	}{
-		{&c.Runs, "hf_runs", "run_id,study,status,started_at,finished_at,tool_version,spec_sha256,spec,cohort_sql,cohort_fingerprint,counts,model,balance,effects,engine,db_user,message"},
+		{&c.Runs, "hf_runs", "run_id,study,status,started_at,finished_at,tool_version,spec_sha256,spec,cohort_sql,cohort_fingerprint,counts,model,balance,effects,engine,db_user,message,summary"},
 		{&c.Cohort, "hf_cohort", "run_id,member_id,coached,age,sex,readmit_30d"},
 		{&c.Scores, "hf_scores", "run_id,member_id,treated,ps,logit_ps,in_support"},
 		{&c.Matches, "hf_matches", "run_id,set_id,member_id,treated,set_weight,match_distance"},
 		{&c.Weights, "hf_weights", "run_id,member_id,treated,att,overlap"},
+		{&c.Effects, "hf_effects", "run_id,outcome,adjustment,estimand,contrast,method,estimate,std_error,ci_low,ci_high,p_value,n_treated,n_control,n_missing,e_value,e_value_ci,rosenbaum_gamma"},
+		{&Table{Name: c.Analysis, Comment: "view", Columns: c.AnalysisColumns}, "hf_analysis",
+			"run_id,member_id,coached,age,sex,readmit_30d,ps,logit_ps,in_support,set_id,set_count,matched_weight,att,overlap"},
 	}
 	for _, tt := range tests {
 		if tt.table.Name != tt.name || names(tt.table.Columns) != tt.cols {
@@ -52,7 +55,8 @@ func TestNewContract(t *testing.T) {
 	if c.Cohort.Columns[1].Type != TypeBigInt || c.Cohort.Columns[3].Type != TypeDouble || c.Cohort.Columns[4].Type != TypeText {
 		t.Errorf("cohort column types %+v", c.Cohort.Columns)
 	}
-	if c.CurrentCohort != "hf_current_cohort" || c.Balance != "hf_balance" || c.BalanceHistory != "hf_balance_history" {
+	if c.CurrentCohort != "hf_current_cohort" || c.Balance != "hf_balance" || c.BalanceHistory != "hf_balance_history" ||
+		c.CurrentEffects != "hf_current_effects" || c.Analysis != "hf_analysis" {
 		t.Errorf("views %s %s %s", c.CurrentCohort, c.Balance, c.BalanceHistory)
 	}
 	out := contractOutput()
@@ -78,6 +82,8 @@ func TestNewContractErrors(t *testing.T) {
 		{"unit named treated", func(o *Output) { o.Unit = "treated" }, "hf_scores would have two columns named treated"},
 		{"scheme named ps", func(o *Output) { o.Schemes = []string{"treated"} }, "hf_weights"},
 		{"scheme repeated", func(o *Output) { o.Schemes = []string{"att", "att"} }, "two columns named att"},
+		{"covariate named ps", func(o *Output) { o.Covariates[0].Name = "ps" }, "hf_analysis would have two columns named ps"},
+		{"scheme named like a covariate", func(o *Output) { o.Schemes = []string{"age"} }, "hf_analysis would have two columns named age"},
 		{"empty unit", func(o *Output) { o.Unit = "" }, "empty identifier"},
 	}
 	for _, tt := range tests {

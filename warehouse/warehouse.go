@@ -45,6 +45,24 @@ type Warehouse interface {
 	// FailRun marks a started run as failed with a message (best effort;
 	// it runs after an error).
 	FailRun(ctx context.Context, out Output, runID, message string) error
+	// Runs returns the runs rows newest first (by started_at, then
+	// run_id), at most limit of them (limit <= 0: all). No runs table
+	// yet gives none.
+	Runs(ctx context.Context, out Output, limit int) ([]RunRecord, error)
+	// Run returns one runs row; an unknown run id is an error wrapping
+	// ErrBadInput that names it. ("latest" is the caller's to resolve.)
+	Run(ctx context.Context, out Output, runID string) (RunRecord, error)
+	// LatestSucceeded returns the run the current views show; false when
+	// no run has succeeded.
+	LatestSucceeded(ctx context.Context, out Output) (RunRecord, bool, error)
+	// PriorSets returns the matched sets of a run with native unit ids,
+	// for rematching that keeps earlier sets stable.
+	PriorSets(ctx context.Context, out Output, runID string) (PriorSets, error)
+	// DiffRuns compares the matched sets of runs a and b (see RunDiff).
+	DiffRuns(ctx context.Context, out Output, a, b string) (RunDiff, error)
+	// RowCounts counts the rows of every contract table, keyed by table
+	// name (prefix included); a table not created yet counts 0.
+	RowCounts(ctx context.Context, out Output) (map[string]int64, error)
 	// Engine names the engine ("duckdb", "postgres").
 	Engine() string
 	// User names the database user, for lineage; never a credential.
@@ -165,6 +183,9 @@ const (
 	StatusRejected  = "rejected"
 	StatusFailed    = "failed"
 	StatusSkipped   = "skipped"
+	// StatusAbandoned marks a run left "running" by a process that died:
+	// the next StartRun of the study, which holds the lock, sets it.
+	StatusAbandoned = "abandoned"
 )
 
 // RunRecord is one row of {prefix}runs. JSON fields hold encoded JSON text.
@@ -186,6 +207,8 @@ type RunRecord struct {
 	Engine            string
 	DBUser            string
 	Message           string
+	// SummaryJSON is the whole run summary, written by Publish.
+	SummaryJSON string
 }
 
 // Publication is everything one run writes. Slices indexed by unit follow
@@ -201,6 +224,67 @@ type Publication struct {
 	Matches MatchRows
 	// Weights, one column per Output.Schemes entry, one value per unit.
 	Weights [][]float64
+	// Effects, one row per outcome × adjustment × contrast; written to
+	// {prefix}effects.
+	Effects []EffectRecord
+}
+
+// EffectRecord is one row of {prefix}effects: one effect estimate of one
+// outcome under one adjustment and contrast. NaN floats are stored as
+// NULL (an undefined standard error, a ratio with a zero denominator).
+type EffectRecord struct {
+	Outcome    string
+	Adjustment string // unadjusted, matched or a weighting scheme
+	Estimand   string // ATT, ATE, ATO, ...
+	Contrast   string // difference, risk_ratio or odds_ratio
+	Method     string // how the standard error was obtained
+	Estimate   float64
+	StdError   float64
+	CILow      float64
+	CIHigh     float64
+	PValue     float64
+	NTreated   int
+	NControl   int
+	NMissing   int // units without the outcome
+	// EValue and EValueCI: the E-value of the estimate and of the
+	// confidence limit closer to the null (VanderWeele & Ding 2017).
+	EValue   float64
+	EValueCI float64
+	// RosenbaumGamma: the sensitivity parameter at which the one-sided
+	// upper-bound p-value first exceeds 0.05 (matched pairs); NaN when not
+	// computed.
+	RosenbaumGamma float64
+}
+
+// PriorSets are the matched sets of one run, one entry per (set, unit)
+// row, sorted by set id, the treated unit(s) first, then unit id. The
+// unit ids keep their native type: IntIDs when Output.IDKind is IDInt,
+// otherwise TextIDs.
+type PriorSets struct {
+	SetID     []int64
+	IntIDs    []int64
+	TextIDs   []string
+	Treated   []bool
+	Distance  []float64 // NaN where NULL
+	SetWeight []float64 // NaN where NULL
+}
+
+// Len is the number of rows.
+func (p PriorSets) Len() int { return len(p.SetID) }
+
+// RunDiff compares the matched sets of run A with those of run B, by
+// treated unit. For a treated unit its controls are the controls of every
+// set it belongs to in that run.
+type RunDiff struct {
+	A, B string
+	// Kept: treated in a set in both runs with the identical controls.
+	Kept int64
+	// Changed: treated in a set in both runs, different controls.
+	Changed int64
+	// New: treated in a set in B only.
+	New int64
+	// Dropped: treated in a set in A only.
+	Dropped int64
 }
 
 // MatchRows holds the matches table columnar.

@@ -9,6 +9,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"log/slog"
 	"os"
 	"os/signal"
 	"path/filepath"
@@ -80,7 +81,11 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 					if c.NArg() != 1 {
 						return usageError("run takes one study file: counterpart run STUDY.yaml")
 					}
-					code = runStudy(ctx, c.Args().First(), runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report")}, stdout, stderr)
+					f := runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report"), logFormat: c.String("log-format")}
+					if f.logFormat != "" && f.logFormat != "text" && f.logFormat != "json" {
+						return usageError(fmt.Sprintf("--log-format %q: use text or json", f.logFormat))
+					}
+					code = runStudy(ctx, c.Args().First(), f, stdout, stderr)
 					return nil
 				},
 			},
@@ -138,13 +143,25 @@ func oneLine(s string) string {
 type runFlags struct {
 	dry, json bool
 	report    string
+	logFormat string
+}
+
+// fail prints an error as the one stderr line schedulers read (a JSON
+// record when logs are JSON) and returns its exit code.
+func fail(stderr io.Writer, logFormat string, err error) int {
+	code := exitCode(err)
+	if logFormat == "json" {
+		slog.New(slog.NewJSONHandler(stderr, nil)).Error(oneLine(err.Error()), "exit_code", code)
+	} else {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+	}
+	return code
 }
 
 func runStudy(ctx context.Context, path string, f runFlags, stdout, stderr io.Writer) int {
 	spec, err := study.Load(path)
 	if err != nil {
-		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
-		return exitCode(err)
+		return fail(stderr, f.logFormat, err)
 	}
 	if f.report == "" {
 		f.report = spec.Output.Report
@@ -154,19 +171,23 @@ func runStudy(ctx context.Context, path string, f runFlags, stdout, stderr io.Wr
 
 func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr io.Writer) int {
 	dry, asJSON := f.dry, f.json
+	tty := isTTY(stderr)
+	log := newLogger(f.logFormat, stderr, tty)
 	wh, err := study.Open(ctx, spec, dry)
 	if err != nil {
-		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
-		return exitCode(err)
+		return fail(stderr, f.logFormat, err)
 	}
 	defer wh.Close()
-	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != ""})
+	log.Info("run starting", "study", spec.Study, "engine", spec.Warehouse.Engine, "dry_run", dry)
+	prog := newProgress(stderr, tty && f.logFormat == "", log)
+	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != "", Stage: prog.stage})
+	prog.done()
+	if sum != nil && sum.Status != "" {
+		log.Info("run finished", "study", spec.Study, "run_id", sum.RunID, "status", sum.Status)
+	}
 	if f.report != "" && sum != nil && sum.Status != "" {
-		if rerr := writeReport(f.report, sum); rerr != nil {
-			fmt.Fprintln(stderr, "counterpart: "+oneLine(rerr.Error()))
-			if err == nil {
-				return exitRuntime
-			}
+		if rerr := writeReport(f.report, sum); rerr != nil && err == nil {
+			return fail(stderr, f.logFormat, rerr)
 		}
 	}
 	if asJSON && sum != nil && (err == nil || errors.Is(err, study.ErrRejected)) {
@@ -180,8 +201,7 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 		printSummary(stdout, sum)
 	}
 	if err != nil {
-		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
-		return exitCode(err)
+		return fail(stderr, f.logFormat, err)
 	}
 	return exitOK
 }

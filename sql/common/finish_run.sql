@@ -9,5 +9,6 @@ SET status = $2,
     model = $6,
     balance = $7,
     effects = $8,
-    message = $9
+    message = $9,
+    summary = $10
 WHERE run_id = $1 AND status = 'running'

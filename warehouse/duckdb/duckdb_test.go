@@ -393,10 +393,10 @@ func TestCommentsAndTypes(t *testing.T) {
 	if got := queryRows(t, w, "SELECT table_name, column_name FROM duckdb_columns() WHERE table_name LIKE 'st_%' AND (comment IS NULL OR comment = '') AND table_name NOT LIKE 'st_current_%'"); len(got) > 0 {
 		t.Errorf("columns without a comment: %v", got)
 	}
-	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE 'st_%' AND comment <> ''")); got != "[[5]]" {
+	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE 'st_%' AND comment <> ''")); got != "[[6]]" {
 		t.Errorf("commented tables: %s", got)
 	}
-	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_views() WHERE view_name LIKE 'st_%' AND comment <> ''")); got != "[[6]]" {
+	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_views() WHERE view_name LIKE 'st_%' AND comment <> ''")); got != "[[8]]" {
 		t.Errorf("commented views: %s", got)
 	}
 	if got := fmt.Sprint(queryRows(t, w, "SELECT data_type FROM duckdb_columns() WHERE table_name = 'st_cohort' ORDER BY column_index")); got != "[[VARCHAR] [VARCHAR] [BOOLEAN] [DOUBLE] [VARCHAR] [DOUBLE]]" {

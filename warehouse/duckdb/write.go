@@ -26,7 +26,7 @@ var (
 
 // statuses lists the statuses the runs table accepts.
 var statuses = []string{warehouse.StatusRunning, warehouse.StatusSucceeded, warehouse.StatusRejected,
-	warehouse.StatusFailed, warehouse.StatusSkipped}
+	warehouse.StatusFailed, warehouse.StatusSkipped, warehouse.StatusAbandoned}
 
 // render fills an SQL template of this dialect.
 func render(name string, data any) string {
@@ -40,8 +40,8 @@ func render(name string, data any) string {
 
 // objects holds the quoted, schema-qualified names of a contract.
 type objects struct {
-	c                                      *warehouse.Contract
-	runs, cohort, scores, matches, weights string
+	c                                               *warehouse.Contract
+	runs, cohort, scores, matches, weights, effects string
 }
 
 func newObjects(out warehouse.Output) (*objects, error) {
@@ -51,7 +51,7 @@ func newObjects(out warehouse.Output) (*objects, error) {
 	}
 	q := func(name string) string { return warehouse.QuoteQualified(c.Schema, name) }
 	return &objects{c: c, runs: q(c.Runs.Name), cohort: q(c.Cohort.Name), scores: q(c.Scores.Name),
-		matches: q(c.Matches.Name), weights: q(c.Weights.Name)}, nil
+		matches: q(c.Matches.Name), weights: q(c.Weights.Name), effects: q(c.Effects.Name)}, nil
 }
 
 func (w *Warehouse) writable(step string) error {
@@ -120,15 +120,33 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 			break
 		}
 	}
+	if err := w.statusCheck(ctx, o); err != nil {
+		return err
+	}
+	var n int
+	if err := w.conn.QueryRowContext(ctx, render("view_exists.sql", nil), o.c.Schema, o.c.Analysis).Scan(&n); err != nil {
+		return fmt.Errorf("look up view %s: %w", o.c.Analysis, dbErr(err))
+	}
+	if n == 0 {
+		if err := w.analysisView(ctx, o); err != nil {
+			return err
+		}
+	}
 	started := run.StartedAt
 	if started.IsZero() {
 		started = time.Now().UTC()
+	}
+	// This run holds the lock, so a run of the study still marked running
+	// belongs to a process that died.
+	if _, err := w.exec(ctx, render("abandon_runs.sql", map[string]string{"Runs": o.runs}),
+		run.Study, run.RunID, started, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
+		return fmt.Errorf("mark abandoned runs in %s: %w", o.c.Runs.Name, dbErr(err))
 	}
 	_, err := w.exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.runs}),
 		run.RunID, run.Study, warehouse.StatusRunning, started, nullTime(run.FinishedAt),
 		run.ToolVersion, run.SpecSHA256, nullText(run.SpecJSON), run.CohortSQL, nullText(run.CohortFingerprint),
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
-		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message))
+		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message), nullText(run.SummaryJSON))
 	if err != nil {
 		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.c.Runs.Name, dbErr(err))
 	}
@@ -226,6 +244,7 @@ func (w *Warehouse) currentViews(ctx context.Context, o *objects) error {
 		{o.c.CurrentScores, o.scores, "propensity scores"},
 		{o.c.CurrentMatches, o.matches, "matched sets"},
 		{o.c.CurrentWeights, o.weights, "weights"},
+		{o.c.CurrentEffects, o.effects, "effect estimates"},
 	} {
 		data := map[string]string{
 			"View": warehouse.QuoteQualified(o.c.Schema, v.view), "Table": v.table, "Runs": o.runs,
@@ -333,7 +352,7 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	}
 	res, err := w.exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.runs}),
 		r.RunID, r.Status, finished, nullText(r.CohortFingerprint), nullText(r.CountsJSON),
-		nullText(r.ModelJSON), nullText(r.BalanceJSON), nullText(r.EffectsJSON), nullText(r.Message))
+		nullText(r.ModelJSON), nullText(r.BalanceJSON), nullText(r.EffectsJSON), nullText(r.Message), nullText(r.SummaryJSON))
 	if err != nil {
 		return fmt.Errorf("update %s: %w", o.c.Runs.Name, dbErr(err))
 	}
@@ -348,8 +367,14 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 			return err
 		}
 	}
+	if err := w.insertEffects(ctx, o, r.RunID, p.Effects); err != nil {
+		return err
+	}
+	if err := w.step("effects"); err != nil {
+		return err
+	}
 	if out.KeepRuns > 0 {
-		for _, t := range []string{o.cohort, o.scores, o.matches, o.weights, o.runs} {
+		for _, t := range []string{o.cohort, o.scores, o.matches, o.weights, o.effects, o.runs} {
 			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.runs})
 			if _, err := w.exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
 				return fmt.Errorf("retention on %s: %w", t, dbErr(err))
@@ -364,6 +389,9 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	}
 	if r.Status == warehouse.StatusSucceeded {
 		if err := w.balanceViews(ctx, o, out); err != nil {
+			return err
+		}
+		if err := w.analysisView(ctx, o); err != nil {
 			return err
 		}
 	}

@@ -1,0 +1,237 @@
+package study
+
+import (
+	"fmt"
+	"math"
+	"runtime"
+	"slices"
+	"sync"
+
+	"math/rand/v2"
+
+	"counterpart/match/effect"
+	"counterpart/match/score"
+	"counterpart/match/weights"
+	"counterpart/warehouse"
+)
+
+// applyRules applies the study's weight rules in a fixed order: truncate
+// at within-arm percentiles, clamp to fixed bounds, then stabilise, so
+// that stabilising (a rescaling per arm) does not move the cut points.
+func applyRules(r WeightRules, w []float64, z []bool) ([]float64, error) {
+	var err error
+	if len(r.Percentiles) == 2 {
+		if w, err = weights.Truncate(w, z, r.Percentiles[0], r.Percentiles[1]); err != nil {
+			return nil, err
+		}
+	}
+	if len(r.Bounds) == 2 {
+		w = weights.Clip(w, r.Bounds[0], r.Bounds[1])
+	}
+	if r.Stabilize {
+		w = weights.Stabilize(w, z)
+	}
+	return w, weights.Check(w)
+}
+
+// augmentAll adds, for every adjustment, the weighted regression of the
+// outcome on treatment and the model's covariates with a robust SE
+// (clustered by matched set for matching): the estimate stays consistent
+// if either the score or the outcome model is right. Rows are named
+// "<adjustment>+regression".
+func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]float64, names []string, sum *Summary) error {
+	for _, o := range c.Outcomes {
+		for _, a := range adjs {
+			var e effect.Estimate
+			var err error
+			if a.matched {
+				yy := make([]float64, len(mr.unit))
+				xx := make([][]float64, len(x))
+				for j := range xx {
+					xx[j] = make([]float64, len(mr.unit))
+				}
+				for r, u := range mr.unit {
+					yy[r] = o.Values[u]
+					for j := range x {
+						xx[j][r] = x[j][u]
+					}
+				}
+				e, err = effect.Augmented(yy, mr.z, mr.w, xx, mr.cluster)
+			} else {
+				e, err = effect.Augmented(o.Values, c.Treated, a.w, x, nil)
+			}
+			if err != nil {
+				return badInput(fmt.Sprintf("estimate %s (%s+regression)", o.Name, a.name), namedColumnError(err, names))
+			}
+			r := effectRow(o.Name, a.name+"+regression", a.estimand, e)
+			sum.Effects = append(sum.Effects, r)
+		}
+	}
+	return nil
+}
+
+// namedColumnError keeps an error as it is; covariate names are added by
+// the message of effect.Augmented's caller when it can tell them apart.
+func namedColumnError(err error, _ []string) error { return err }
+
+// bootstrapAll adds bootstrap intervals to the weighting estimators'
+// difference rows. Each replicate resamples units with replacement,
+// refits the score, reapplies the support rule and the weight rules and
+// re-estimates every outcome under every scheme, so the intervals carry
+// the score's estimation error (Efron & Tibshirani 1993, ch. 6 and 13).
+// Matching is left out: the bootstrap is not valid for nearest-neighbour
+// matching (Abadie & Imbens 2008, Econometrica 76:1537, from memory).
+// Replicate r draws from its own PCG stream seeded with (seed, r), so the
+// result does not depend on the number of workers.
+func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
+	schemes := s.Schemes()
+	type key struct{ outcome, scheme string }
+	var keys []key
+	for _, o := range c.Outcomes {
+		for _, sc := range schemes {
+			keys = append(keys, key{o.Name, sc})
+		}
+	}
+	reps := s.Estimate.Bootstrap
+	n := c.N()
+	values := make([][]float64, reps) // values[r][k]
+	failed := make([]bool, reps)
+	model := score.Logistic
+	if s.Score.Model == "ridge" {
+		model = score.Ridge
+	}
+	var wg sync.WaitGroup
+	next := make(chan int)
+	for g := 0; g < runtime.GOMAXPROCS(0); g++ {
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			idx := make([]int, n)
+			x := make([][]float64, len(d.x))
+			for j := range x {
+				x[j] = make([]float64, n)
+			}
+			z := make([]bool, n)
+			y := make([]float64, n)
+			for r := range next {
+				rng := rand.New(rand.NewPCG(s.Estimate.Seed, uint64(r)))
+				for i := range idx {
+					idx[i] = rng.IntN(n)
+				}
+				for j := range x {
+					for i, k := range idx {
+						x[j][i] = d.x[j][k]
+					}
+				}
+				for i, k := range idx {
+					z[i] = c.Treated[k]
+				}
+				fit, err := score.FitModel(x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+				if err != nil {
+					failed[r] = true
+					continue
+				}
+				keep := supportMask(s.Support, fit.PS, z)
+				out := make([]float64, 0, len(keys))
+				for _, o := range c.Outcomes {
+					for i, k := range idx {
+						y[i] = o.Values[k]
+					}
+					for _, sc := range schemes {
+						fn, _ := weights.ByName(sc)
+						w, err := applyRules(s.Rules, weights.Restrict(fn(fit.PS, z), keep), z)
+						var e effect.Estimate
+						if err == nil {
+							e, err = effect.Difference(y, z, w)
+						}
+						if err != nil {
+							failed[r] = true
+							break
+						}
+						out = append(out, e.Estimate)
+					}
+					if failed[r] {
+						break
+					}
+				}
+				values[r] = out
+			}
+		}()
+	}
+	for r := 0; r < reps; r++ {
+		next <- r
+	}
+	close(next)
+	wg.Wait()
+	ok := 0
+	for r := range values {
+		if !failed[r] {
+			ok++
+		}
+	}
+	if ok < 2 {
+		return fmt.Errorf("bootstrap: %w: only %d of %d replicates could be fitted; the sample may be too small or separated", warehouse.ErrBadInput, ok, reps)
+	}
+	for k, kk := range keys {
+		var v []float64
+		for r := range values {
+			if !failed[r] {
+				v = append(v, values[r][k])
+			}
+		}
+		slices.Sort(v)
+		var mean, ss float64
+		for _, x := range v {
+			mean += x
+		}
+		mean /= float64(len(v))
+		for _, x := range v {
+			ss += (x - mean) * (x - mean)
+		}
+		se := math.Sqrt(ss / float64(len(v)-1))
+		for i := range sum.Effects {
+			e := &sum.Effects[i]
+			if e.Outcome == kk.outcome && e.Adjustment == kk.scheme && e.Contrast == "difference" {
+				e.BootSE = Num(se)
+				e.BootLow = Num(weights.Percentile(v, 2.5))
+				e.BootHigh = Num(weights.Percentile(v, 97.5))
+				e.BootReps = len(v)
+			}
+		}
+	}
+	return nil
+}
+
+// supportMask applies a support rule to scores (the rule of the run; see
+// analyse).
+func supportMask(rule string, ps []float64, z []bool) []bool {
+	low, high := supportBounds(rule, ps, z)
+	keep := make([]bool, len(ps))
+	for i, p := range ps {
+		keep[i] = p >= low && p <= high
+	}
+	return keep
+}
+
+// supportBounds returns the kept score interval of a support rule: none
+// keeps [0, 1]; minmax keeps [max of the arms' minima, min of their
+// maxima]; crump keeps [0.1, 0.9] (Crump, Hotz, Imbens & Mitnik 2009).
+func supportBounds(rule string, ps []float64, z []bool) (float64, float64) {
+	switch rule {
+	case "minmax":
+		lo := [2]float64{math.Inf(1), math.Inf(1)}
+		hi := [2]float64{math.Inf(-1), math.Inf(-1)}
+		for i, p := range ps {
+			a := 0
+			if z[i] {
+				a = 1
+			}
+			lo[a] = math.Min(lo[a], p)
+			hi[a] = math.Max(hi[a], p)
+		}
+		return math.Max(lo[0], lo[1]), math.Min(hi[0], hi[1])
+	case "crump":
+		return 0.1, 0.9
+	}
+	return 0, 1
+}

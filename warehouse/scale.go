@@ -1,0 +1,685 @@
+package warehouse
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"slices"
+	"strconv"
+	"strings"
+)
+
+// InWarehouse is the optional engine interface of warehouse-scale mode
+// (study option score.fit_in: warehouse): the propensity model is fitted,
+// and scores and closed-form weights are computed and written, inside the
+// engine, so the covariate matrix never crosses the wire. A caller checks
+// for it with a type assertion, wh.(warehouse.InWarehouse).
+//
+// What crosses the wire per step:
+//
+//   - Describe: one aggregate query (plus one LIMIT 0 query for the column
+//     types, and one GROUP BY per categorical covariate for its levels):
+//     counts, NULL counts, means and SDs — O(p) numbers.
+//   - Moments: one aggregate query per Newton (IRLS) step returning the
+//     upper triangle of X̃'WX̃, the score X̃'(z − e), the log-likelihood
+//     and the number of perfectly predicted units — k(k+1)/2 + k + 3
+//     numbers, k = design columns + 1.
+//   - ScoreInto: one INSERT … SELECT per table; nothing comes back.
+//   - MatchInput: three columns per unit (id, stratum, logit), which is
+//     what matching needs and all it needs.
+//
+// Distributed Postgres-protocol engines (Citus, Greenplum, Redshift and
+// the like): every query above is a single SELECT with plain sum, count,
+// min and max aggregates and no ORDER BY inside an aggregate, so the
+// planner can push a partial aggregate to every node (each node sums its
+// own rows' w·x_a·x_b) and let the coordinator add the partial sums — the
+// same Partial Aggregate / Gather / Finalize Aggregate plan Postgres uses
+// for its parallel workers on one machine (tested in
+// warehouse/postgres/scale_test.go). One IRLS step is one such query,
+// whatever the number of rows; ScoreInto's INSERT … SELECT runs where the
+// rows are (co-located when the output tables are distributed on the unit
+// column). Summation order then differs from run to run, which moves
+// coefficients by a few ulps, far below the convergence tolerance.
+//
+// Safety: the cohort SQL is only ever used as a subquery, FROM (<sql>) AS
+// c, after the engine's own check that it is a single SELECT; Describe,
+// Moments, LogitRange and MatchInput run in a read-only transaction.
+// Coefficients, centres, scales and category levels are bound parameters
+// ($1, $2, ...), never formatted into the SQL text; column names pass
+// ValidIdent-style checks of the cohort query and are quoted with Quote.
+type InWarehouse interface {
+	// Describe checks the cohort query's columns and summarises them:
+	// counts, NULLs, non-finite values, mean and population SD of numeric
+	// covariates, and the levels of categorical covariates sorted by the
+	// same rule as ReadCohort (the first is the reference).
+	Describe(ctx context.Context, q CohortQuery) (*Description, error)
+	// Moments evaluates one Newton step's sums at beta, given on the
+	// standardised scale of d (intercept first).
+	Moments(ctx context.Context, q CohortQuery, d *DesignSQL, beta []float64) (*Moments, error)
+	// LogitRange returns the smallest and largest linear predictor in each
+	// arm at coef (original scale, intercept first), for the minmax
+	// common-support rule.
+	LogitRange(ctx context.Context, q CohortQuery, d *DesignSQL, coef []float64) (*LogitRange, error)
+	// ScoreInto writes the run's rows of the scores table and, when
+	// schemes is not empty, of the weights table with INSERT … SELECT.
+	// It runs on the engine's one connection and neither begins nor
+	// commits a transaction: call it inside the publish transaction so
+	// that its rows become visible with the run's final status or not at
+	// all. The tables must exist (StartRun creates them).
+	ScoreInto(ctx context.Context, out Output, runID string, q CohortQuery, d *DesignSQL, coef []float64, support Support, schemes []string) error
+	// MatchInput returns what matching needs, columnar: unit ids, the
+	// treatment, a stratum number per distinct combination of exactOn
+	// (0-based; all 0 without exactOn), the logit and the support flag.
+	MatchInput(ctx context.Context, q CohortQuery, d *DesignSQL, coef []float64, support Support, exactOn []string) (*MatchInput, error)
+}
+
+// Description summarises a cohort query without reading its rows.
+type Description struct {
+	// N is the number of rows, Distinct the number of distinct unit ids.
+	N, Distinct int
+	NTreated    int
+	// UnitNulls, TreatmentNulls count NULLs; TreatmentBad counts numeric
+	// treatment values other than 0 and 1.
+	UnitNulls, TreatmentNulls, TreatmentBad int
+	IDKind                                  IDKind
+	Unit, Treatment                         string
+	// TreatmentBool is true for a boolean treatment column, false for a
+	// numeric 0/1 one.
+	TreatmentBool bool
+	// Columns describes q.Covariates in order.
+	Columns []ColumnDescription
+}
+
+// ColumnDescription summarises one covariate.
+type ColumnDescription struct {
+	Name string
+	Kind CovKind
+	// Nulls counts NULL values; NonFinite NaN and ±Inf (numeric only).
+	Nulls, NonFinite int
+	// Mean and SD (population, √(Σ(x − x̄)²/n)) of a numeric covariate.
+	Mean, SD float64
+	// Levels of a categorical covariate as text, sorted as ReadCohort
+	// sorts them (numerically when every level is a finite number, else
+	// bytewise); Counts[l] units have level l.
+	Levels []string
+	Counts []int
+	// Text is true when the column already is text (no cast needed).
+	Text bool
+}
+
+// DesignSQL is the propensity model's design as the engine computes it: a
+// numeric covariate as is, a categorical one as 0/1 indicators of every
+// level but the reference, in the order of study/design.go, so the
+// coefficients line up with the in-memory fit's.
+type DesignSQL struct {
+	Unit, Treatment string
+	TreatmentBool   bool
+	IDKind          IDKind
+	Columns         []DesignColumn
+}
+
+// DesignColumn is one column of the design.
+type DesignColumn struct {
+	// Name is the coefficient name: the covariate, or covariate=level.
+	Name string
+	// Source is the cohort column.
+	Source string
+	// Categorical columns are CASE WHEN CAST(source AS VARCHAR) = Level
+	// THEN 1 ELSE 0 END (Text skips the cast).
+	Categorical bool
+	Text        bool
+	Level       string
+	// Center and Scale standardise the column, x̃ = (x − Center)·Scale,
+	// with the mean and 1/SD (population) over the cohort, as
+	// match/score.FitModel does internally.
+	Center, Scale float64
+}
+
+// Names returns the design column names (without the intercept).
+func (d *DesignSQL) Names() []string {
+	out := make([]string, len(d.Columns))
+	for i, c := range d.Columns {
+		out[i] = c.Name
+	}
+	return out
+}
+
+// Centers and Scales return the standardisation of each column.
+func (d *DesignSQL) Centers() []float64 {
+	out := make([]float64, len(d.Columns))
+	for i, c := range d.Columns {
+		out[i] = c.Center
+	}
+	return out
+}
+
+// Scales returns 1/SD of each column.
+func (d *DesignSQL) Scales() []float64 {
+	out := make([]float64, len(d.Columns))
+	for i, c := range d.Columns {
+		out[i] = c.Scale
+	}
+	return out
+}
+
+// Moments are one Newton step's sums over the cohort at β̃ (standardised
+// scale), with e_i = 1/(1 + exp(−η_i)) and w_i = e_i(1 − e_i):
+//
+//	Info[a*k+b] = Σ_i w_i x̃_ia x̃_ib   (a ≤ b; upper triangle, k×k)
+//	Grad[a]     = Σ_i x̃_ia (z_i − e_i)
+//	LogLik      = Σ_i z_i η_i − log(1 + exp η_i)
+//	Perfect     = #{i: z_i = 1, η_i > 15} + #{i: z_i = 0, η_i < −15}
+//
+// Column 0 is the intercept. X̃'W z_work of the textbook IRLS form equals
+// Info·β̃ + Grad; the score form is what match/score uses.
+type Moments struct {
+	N, NTreated int
+	Info, Grad  []float64
+	LogLik      float64
+	Perfect     int
+}
+
+// LogitRange holds the extremes of the linear predictor per arm; index 0
+// is the comparison arm, 1 the treated arm.
+type LogitRange struct {
+	Min, Max [2]float64
+}
+
+// Support is the common-support interval on the logit scale: a unit is in
+// support when Low ≤ η ≤ High. Use ±Inf for no rule. Bounds on the logit
+// rather than the score keep the boundary units of the minmax rule in:
+// their η is exactly the bound.
+type Support struct {
+	Low, High float64
+}
+
+// MatchInput is what matching reads, one entry per unit.
+type MatchInput struct {
+	IDKind    IDKind
+	IntIDs    []int64
+	TextIDs   []string
+	Treated   []bool
+	Stratum   []int32
+	Logit     []float64
+	InSupport []bool
+	// Strata is the number of distinct strata.
+	Strata int
+}
+
+// NewDesignSQL checks a description the way ReadCohort and
+// match/score.FitModel check a read cohort (NULLs, non-finite values,
+// duplicate ids, treatment values, a constant covariate) and builds the
+// design. Errors wrap ErrBadInput and name the column.
+func NewDesignSQL(desc *Description) (*DesignSQL, error) {
+	switch {
+	case desc.UnitNulls > 0:
+		return nil, fmt.Errorf("%w: unit column %s has %d NULL value(s); every unit needs an id", ErrBadInput, desc.Unit, desc.UnitNulls)
+	case desc.Distinct != desc.N-desc.UnitNulls:
+		return nil, fmt.Errorf("%w: unit column %s has %d duplicate id(s); the cohort query must return one row per unit", ErrBadInput, desc.Unit, desc.N-desc.Distinct)
+	case desc.TreatmentNulls > 0:
+		return nil, fmt.Errorf("%w: treatment column %s has %d NULL value(s)", ErrBadInput, desc.Treatment, desc.TreatmentNulls)
+	case desc.TreatmentBad > 0:
+		return nil, fmt.Errorf("%w: treatment column %s has %d value(s) other than 0 and 1", ErrBadInput, desc.Treatment, desc.TreatmentBad)
+	case desc.NTreated == 0 || desc.NTreated == desc.N:
+		return nil, fmt.Errorf("%w: treatment column %s is the same for all %d units; the cohort needs treated and comparison units", ErrBadInput, desc.Treatment, desc.N)
+	}
+	d := &DesignSQL{Unit: desc.Unit, Treatment: desc.Treatment, TreatmentBool: desc.TreatmentBool, IDKind: desc.IDKind}
+	n := float64(desc.N)
+	for _, c := range desc.Columns {
+		if c.Nulls > 0 {
+			return nil, fmt.Errorf("%w: covariate %s has %d NULL value(s); fill or exclude them in cohort.sql", ErrBadInput, c.Name, c.Nulls)
+		}
+		switch c.Kind {
+		case Numeric:
+			if c.NonFinite > 0 {
+				return nil, fmt.Errorf("%w: covariate %s has %d non-finite value(s); fix or exclude them in cohort.sql", ErrBadInput, c.Name, c.NonFinite)
+			}
+			if !(c.SD > 0) || math.IsInf(1/c.SD, 0) {
+				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every value is %v); remove it", ErrBadInput, c.Name, c.Mean)
+			}
+			d.Columns = append(d.Columns, DesignColumn{Name: c.Name, Source: c.Name, Center: c.Mean, Scale: 1 / c.SD})
+		case Categorical:
+			if len(c.Levels) < 2 {
+				lvl := ""
+				if len(c.Levels) == 1 {
+					lvl = c.Levels[0]
+				}
+				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every unit is %q); remove it from cohort.covariates", ErrBadInput, c.Name, lvl)
+			}
+			for l := 1; l < len(c.Levels); l++ {
+				p := float64(c.Counts[l]) / n
+				d.Columns = append(d.Columns, DesignColumn{
+					Name: c.Name + "=" + c.Levels[l], Source: c.Name, Categorical: true, Text: c.Text,
+					Level: c.Levels[l], Center: p, Scale: 1 / math.Sqrt(p*(1-p)),
+				})
+			}
+		}
+	}
+	return d, nil
+}
+
+// SortLevels orders category levels as ReadCohort does: numerically when
+// every level is a finite number (ties bytewise), else bytewise, which also
+// puts false before true. counts is permuted alongside.
+func SortLevels(levels []string, counts []int) {
+	nums := make([]float64, len(levels))
+	numeric := true
+	for i, l := range levels {
+		f, err := strconv.ParseFloat(l, 64)
+		if err != nil || math.IsNaN(f) || math.IsInf(f, 0) {
+			numeric = false
+			break
+		}
+		nums[i] = f
+	}
+	idx := make([]int, len(levels))
+	for i := range idx {
+		idx[i] = i
+	}
+	slices.SortFunc(idx, func(a, b int) int {
+		if numeric && nums[a] != nums[b] {
+			if nums[a] < nums[b] {
+				return -1
+			}
+			return 1
+		}
+		return strings.Compare(levels[a], levels[b])
+	})
+	l2 := make([]string, len(levels))
+	c2 := make([]int, len(levels))
+	for i, j := range idx {
+		l2[i], c2[i] = levels[j], counts[j]
+	}
+	copy(levels, l2)
+	copy(counts, c2)
+}
+
+// ScaleSQL builds the text of warehouse-scale queries. Both engines speak
+// the same SQL here (CAST … AS DOUBLE PRECISION, ARRAY[…], greatest, ln,
+// exp, $n parameters), so one builder serves both; args collects the bound
+// values in $n order.
+type ScaleSQL struct {
+	args []any
+}
+
+// Args returns the values bound so far, in $1, $2, ... order.
+func (b *ScaleSQL) Args() []any { return b.args }
+
+// Num binds a number and returns its placeholder, cast so that the
+// parameter's type is known whatever the context.
+func (b *ScaleSQL) Num(v float64) string {
+	b.args = append(b.args, v)
+	return fmt.Sprintf("CAST($%d AS DOUBLE PRECISION)", len(b.args))
+}
+
+// Str binds a string and returns its placeholder.
+func (b *ScaleSQL) Str(v string) string {
+	b.args = append(b.args, v)
+	return fmt.Sprintf("CAST($%d AS VARCHAR)", len(b.args))
+}
+
+// From returns the cohort query as a derived table named c; a trailing
+// semicolon is dropped (it would end the statement inside the brackets).
+func From(cohortSQL string) string {
+	s := strings.TrimRight(cohortSQL, " \t\r\n;")
+	return "(\n" + s + "\n) AS c"
+}
+
+// TreatmentExpr is the 0/1 integer treatment of row c.
+func (d *DesignSQL) TreatmentExpr() string {
+	t := "c." + Quote(d.Treatment)
+	if d.TreatmentBool {
+		return "CASE WHEN " + t + " THEN 1 ELSE 0 END"
+	}
+	return "CASE WHEN " + t + " = 1 THEN 1 ELSE 0 END"
+}
+
+// rawExpr is column j on its original scale.
+func (b *ScaleSQL) rawExpr(c DesignColumn) string {
+	src := "c." + Quote(c.Source)
+	if !c.Categorical {
+		return "CAST(" + src + " AS DOUBLE PRECISION)"
+	}
+	if !c.Text {
+		src = "CAST(" + src + " AS VARCHAR)"
+	}
+	return "CASE WHEN " + src + " = " + b.Str(c.Level) + " THEN 1.0 ELSE 0.0 END"
+}
+
+// StdColumns returns the select list z, x1..xp of the standardised design.
+func (b *ScaleSQL) StdColumns(d *DesignSQL) string {
+	parts := []string{d.TreatmentExpr() + " AS z"}
+	for j, c := range d.Columns {
+		parts = append(parts, fmt.Sprintf("(%s - %s) * %s AS x%d", b.rawExpr(c), b.Num(c.Center), b.Num(c.Scale), j+1))
+	}
+	return strings.Join(parts, ",\n  ")
+}
+
+// Eta returns the linear predictor over columns named x1..xp (standardised
+// design) with coefficients beta bound as parameters.
+func (b *ScaleSQL) Eta(beta []float64) string {
+	parts := []string{b.Num(beta[0])}
+	for j := 1; j < len(beta); j++ {
+		parts = append(parts, fmt.Sprintf("%s * x%d", b.Num(beta[j]), j))
+	}
+	return strings.Join(parts, " + ")
+}
+
+// RawEta returns the linear predictor on the original scale,
+// coef₀ + Σ coef_j x_j, over the cohort row c.
+func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
+	if len(coef) != len(d.Columns)+1 {
+		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(coef), len(d.Columns)))
+	}
+	parts := []string{b.Num(coef[0])}
+	for j, c := range d.Columns {
+		parts = append(parts, fmt.Sprintf("%s * %s", b.Num(coef[j+1]), b.rawExpr(c)))
+	}
+	return strings.Join(parts, " + ")
+}
+
+// MomentsSQL is the one aggregate query of a Newton step (see Moments).
+// Its single row holds count, treated count, log-likelihood, perfect count
+// and one DOUBLE PRECISION array: the k gradient sums, then the upper
+// triangle of the information row by row.
+//
+// Per row, with t = exp(−|η|) (0 when |η| > 300, where w < 1e-130 and
+// Postgres would raise an underflow error in the products):
+//
+//	e = 1/(1+t) for η ≥ 0, t/(1+t) otherwise; 1 − e the other one
+//	log(1 + e^η) = max(η, 0) + ln(1 + t)
+//	√w = √t/(1+t), u_a = √w·x̃_a, Info_ab = Σ u_a u_b
+//
+// the same cancellation-free forms as match/score's in-memory pass.
+func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64) (string, []any) {
+	k := len(d.Columns) + 1
+	if len(beta) != k {
+		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(beta), k-1))
+	}
+	b := &ScaleSQL{}
+	std := b.StdColumns(d)
+	eta := b.Eta(beta)
+	xs := make([]string, 0, k)
+	xs = append(xs, "")
+	for j := 1; j < k; j++ {
+		xs = append(xs, fmt.Sprintf("x%d", j))
+	}
+	var us []string
+	us = append(us, "sw AS u0")
+	for j := 1; j < k; j++ {
+		us = append(us, fmt.Sprintf("sw * x%d AS u%d", j, j))
+	}
+	var sums []string
+	sums = append(sums, "sum(r)")
+	for j := 1; j < k; j++ {
+		sums = append(sums, fmt.Sprintf("sum(r * x%d)", j))
+	}
+	for a := range k {
+		for c := a; c < k; c++ {
+			sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
+		}
+	}
+	q := `SELECT count(*), sum(z), sum(ll), sum(perfect),
+  CAST(ARRAY[` + strings.Join(sums, ", ") + `] AS DOUBLE PRECISION[])
+FROM (
+ SELECT x.*,
+  CASE WHEN z = 1 THEN q ELSE -p END AS r,
+  CASE WHEN z = 1 THEN eta - l1p ELSE -l1p END AS ll,
+  CASE WHEN (z = 1 AND eta > 15) OR (z = 0 AND eta < -15) THEN 1 ELSE 0 END AS perfect,
+  ` + strings.Join(us, ", ") + `
+ FROM (
+  SELECT s.*,
+   CASE WHEN eta >= 0 THEN 1 / (1 + t) ELSE t / (1 + t) END AS p,
+   CASE WHEN eta >= 0 THEN t / (1 + t) ELSE 1 / (1 + t) END AS q,
+   greatest(eta, 0) + ln(1 + t) AS l1p,
+   sqrt(t) / (1 + t) AS sw
+  FROM (
+   SELECT e.*, CASE WHEN abs(eta) > 300 THEN 0 ELSE exp(-abs(eta)) END AS t
+   FROM (
+    SELECT d.*, ` + eta + ` AS eta
+    FROM (
+     SELECT
+  ` + std + `
+     FROM ` + From(cohortSQL) + `
+    ) AS d
+   ) AS e
+  ) AS s
+ ) AS x
+) AS y`
+	return q, b.args
+}
+
+// SplitMoments unpacks MomentsSQL's array into m (k = design columns + 1).
+func SplitMoments(m *Moments, k int, arr []float64) error {
+	want := k + k*(k+1)/2
+	if len(arr) != want {
+		return fmt.Errorf("moments: %d sums returned, want %d", len(arr), want)
+	}
+	m.Grad = append([]float64(nil), arr[:k]...)
+	m.Info = make([]float64, k*k)
+	i := k
+	for a := range k {
+		for c := a; c < k; c++ {
+			m.Info[a*k+c] = arr[i]
+			i++
+		}
+	}
+	return nil
+}
+
+// Logistic returns the SQL of e = 1/(1 + exp(−η)) over the expression eta,
+// in the overflow-free form of match/score (exp of a non-positive number
+// only; η is clamped to ±700 first so that Postgres's exp cannot
+// underflow into an error — e is then within 1e-304 of 0 or 1).
+func Logistic(eta string) string {
+	h := "greatest(least(" + eta + ", 700), -700)"
+	return "CASE WHEN " + eta + " >= 0 THEN 1 / (1 + exp(-" + h + ")) ELSE exp(" + h + ") / (1 + exp(" + h + ")) END"
+}
+
+// WeightSQL returns the closed-form weight of scheme over columns e (the
+// score) and z (0/1), the formulas of match/weights:
+//
+//	ate       Z/e + (1−Z)/(1−e)                   (Rosenbaum 1987)
+//	att       Z + (1−Z)·e/(1−e)                   (Imbens 2004)
+//	atc       Z·(1−e)/e + (1−Z)                   (Imbens 2004)
+//	overlap   Z·(1−e) + (1−Z)·e                   (Li, Morgan & Zaslavsky 2018)
+//	matching  min(e, 1−e)/(Z·e + (1−Z)·(1−e))     (Li & Greene 2013)
+//
+// multiplied by 0 outside common support (column ins).
+func WeightSQL(scheme string) (string, error) {
+	var f string
+	switch scheme {
+	case "ate":
+		f = "CASE WHEN z = 1 THEN 1 / e ELSE 1 / (1 - e) END"
+	case "att":
+		f = "CASE WHEN z = 1 THEN 1.0 ELSE e / (1 - e) END"
+	case "atc":
+		f = "CASE WHEN z = 1 THEN (1 - e) / e ELSE 1.0 END"
+	case "overlap":
+		f = "CASE WHEN z = 1 THEN 1 - e ELSE e END"
+	case "matching":
+		f = "CASE WHEN z = 1 THEN least(e, 1 - e) / e ELSE least(e, 1 - e) / (1 - e) END"
+	default:
+		return "", fmt.Errorf("%w: unknown weighting scheme %q", ErrBadInput, scheme)
+	}
+	return "CASE WHEN ins THEN CAST(" + f + " AS DOUBLE PRECISION) ELSE 0.0 END", nil
+}
+
+// ScoredSQL returns SELECT unit, z, eta, e, ins over the cohort at coef
+// (original scale), the inner query of ScoreInto and MatchInput. extra
+// columns of c are carried along under their own names.
+func ScoredSQL(b *ScaleSQL, cohortSQL string, d *DesignSQL, coef []float64, sup Support, extra ...string) string {
+	eta := b.RawEta(d, coef)
+	cols := []string{"c." + Quote(d.Unit) + " AS unit", d.TreatmentExpr() + " AS z", eta + " AS eta"}
+	for _, e := range extra {
+		cols = append(cols, "c."+Quote(e))
+	}
+	inner := "SELECT " + strings.Join(cols, ", ") + " FROM " + From(cohortSQL)
+	lo, hi := "TRUE", "TRUE"
+	if !math.IsInf(sup.Low, -1) {
+		lo = "eta >= " + b.Num(sup.Low)
+	}
+	if !math.IsInf(sup.High, 1) {
+		hi = "eta <= " + b.Num(sup.High)
+	}
+	return "SELECT s.*, " + Logistic("eta") + " AS e, (" + lo + " AND " + hi + ") AS ins FROM (" + inner + ") AS s"
+}
+
+// ScoreInsertSQL returns the INSERT … SELECT statements of ScoreInto for
+// the contract's scores and (when schemes is not empty) weights tables.
+// $1 is the run id in both.
+func ScoreInsertSQL(c *Contract, cohortSQL string, d *DesignSQL, coef []float64, sup Support, schemes []string) (stmts []string, args [][]any, err error) {
+	unit := Quote(c.Unit)
+	b := &ScaleSQL{args: []any{nil}}
+	scored := ScoredSQL(b, cohortSQL, d, coef, sup)
+	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (run_id, %s, treated, ps, logit_ps, in_support)\nSELECT CAST($1 AS VARCHAR), unit, z = 1, e, eta, ins FROM (%s) AS f",
+		QuoteQualified(c.Schema, c.Scores.Name), unit, scored))
+	args = append(args, b.args)
+	if len(schemes) == 0 {
+		return stmts, args, nil
+	}
+	b = &ScaleSQL{args: []any{nil}}
+	scored = ScoredSQL(b, cohortSQL, d, coef, sup)
+	names := []string{"run_id", unit, "treated"}
+	exprs := []string{"CAST($1 AS VARCHAR)", "unit", "z = 1"}
+	for _, s := range schemes {
+		if err := ValidIdent(s); err != nil {
+			return nil, nil, fmt.Errorf("weighting scheme: %w", err)
+		}
+		w, err := WeightSQL(s)
+		if err != nil {
+			return nil, nil, err
+		}
+		names = append(names, Quote(s))
+		exprs = append(exprs, w)
+	}
+	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM (%s) AS f",
+		QuoteQualified(c.Schema, c.Weights.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), scored))
+	args = append(args, b.args)
+	return stmts, args, nil
+}
+
+// LogitRangeSQL returns min and max of η per arm: one row with
+// min0, max0, min1, max1.
+func LogitRangeSQL(cohortSQL string, d *DesignSQL, coef []float64) (string, []any) {
+	b := &ScaleSQL{}
+	inner := "SELECT " + d.TreatmentExpr() + " AS z, " + b.RawEta(d, coef) + " AS eta FROM " + From(cohortSQL)
+	q := `SELECT min(CASE WHEN z = 0 THEN eta END), max(CASE WHEN z = 0 THEN eta END),
+  min(CASE WHEN z = 1 THEN eta END), max(CASE WHEN z = 1 THEN eta END) FROM (` + inner + `) AS s`
+	return q, b.args
+}
+
+// MatchInputSQL returns unit, z, stratum, eta, ins per unit; the stratum
+// is dense_rank over the exactOn columns minus 1 (0 without them).
+func MatchInputSQL(cohortSQL string, d *DesignSQL, coef []float64, sup Support, exactOn []string) (string, []any, error) {
+	for _, e := range exactOn {
+		if err := ValidIdent(e); err != nil {
+			return "", nil, fmt.Errorf("matching.exact_on: %w", err)
+		}
+	}
+	b := &ScaleSQL{}
+	scored := ScoredSQL(b, cohortSQL, d, coef, sup, exactOn...)
+	stratum := "0"
+	if len(exactOn) > 0 {
+		q := make([]string, len(exactOn))
+		for i, e := range exactOn {
+			q[i] = Quote(e)
+		}
+		stratum = "CAST(dense_rank() OVER (ORDER BY " + strings.Join(q, ", ") + ") - 1 AS INTEGER)"
+	}
+	return "SELECT unit, z = 1, " + stratum + ", eta, ins FROM (" + scored + ") AS f ORDER BY unit", b.args, nil
+}
+
+// ColumnTypes is what an engine learned of the cohort query's result
+// columns from its metadata, for DescribeSQL.
+type ColumnTypes struct {
+	UnitText      bool
+	TreatmentBool bool
+	// Categorical and Text, per covariate in q.Covariates order.
+	Categorical, Text []bool
+}
+
+// DescribeSQL returns the one aggregate query of Describe: a single
+// DOUBLE PRECISION array holding N, distinct ids, unit NULLs, treated,
+// treatment NULLs, treatment values not 0/1, then per covariate NULLs,
+// non-finite values, mean and population SD (NaN where not numeric).
+func DescribeSQL(q CohortQuery, t ColumnTypes) string {
+	nan := "CAST('NaN' AS DOUBLE PRECISION)"
+	u := "c." + Quote(q.Unit)
+	tr := "c." + Quote(q.Treatment)
+	parts := []string{"count(*)", "count(DISTINCT " + u + ")", "count(*) - count(" + u + ")"}
+	if t.TreatmentBool {
+		parts = append(parts, "sum(CASE WHEN "+tr+" THEN 1 ELSE 0 END)", "count(*) - count("+tr+")", "0")
+	} else {
+		parts = append(parts, "sum(CASE WHEN "+tr+" = 1 THEN 1 ELSE 0 END)", "count(*) - count("+tr+")",
+			"sum(CASE WHEN "+tr+" <> 0 AND "+tr+" <> 1 THEN 1 ELSE 0 END)")
+	}
+	for i, name := range q.Covariates {
+		col := "c." + Quote(name)
+		parts = append(parts, "count(*) - count("+col+")")
+		if t.Categorical[i] {
+			parts = append(parts, "0", nan, nan)
+			continue
+		}
+		x := "CAST(" + col + " AS DOUBLE PRECISION)"
+		parts = append(parts,
+			"sum(CASE WHEN "+x+" = "+nan+" OR abs("+x+") = CAST('Infinity' AS DOUBLE PRECISION) THEN 1 ELSE 0 END)",
+			"coalesce(avg("+x+"), "+nan+")", "coalesce(stddev_pop("+x+"), "+nan+")")
+	}
+	for i := range parts {
+		parts[i] = "coalesce(CAST(" + parts[i] + " AS DOUBLE PRECISION), 0)"
+	}
+	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]) FROM " + From(q.SQL)
+}
+
+// LevelsSQL returns the distinct non-NULL values of a categorical
+// covariate as text, with their counts.
+func LevelsSQL(cohortSQL, column string, text bool) string {
+	col := "c." + Quote(column)
+	if !text {
+		col = "CAST(" + col + " AS VARCHAR)"
+	}
+	return "SELECT " + col + ", count(*) FROM " + From(cohortSQL) + " WHERE c." + Quote(column) + " IS NOT NULL GROUP BY 1"
+}
+
+// NewDescription unpacks DescribeSQL's array; levels[i] and counts[i]
+// hold covariate i's levels (unsorted) when it is categorical.
+func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, levels [][]string, counts [][]int) (*Description, error) {
+	if len(arr) != 6+4*len(q.Covariates) {
+		return nil, fmt.Errorf("describe: %d values returned, want %d", len(arr), 6+4*len(q.Covariates))
+	}
+	d := &Description{
+		N: int(arr[0]), Distinct: int(arr[1]), UnitNulls: int(arr[2]), NTreated: int(arr[3]),
+		TreatmentNulls: int(arr[4]), TreatmentBad: int(arr[5]),
+		Unit: q.Unit, Treatment: q.Treatment, TreatmentBool: t.TreatmentBool,
+	}
+	if t.UnitText {
+		d.IDKind = IDText
+	}
+	for i, name := range q.Covariates {
+		a := arr[6+4*i:]
+		c := ColumnDescription{Name: name, Nulls: int(a[0])}
+		if t.Categorical[i] {
+			c.Kind = Categorical
+			c.Text = t.Text[i]
+			c.Levels = append([]string(nil), levels[i]...)
+			c.Counts = append([]int(nil), counts[i]...)
+			SortLevels(c.Levels, c.Counts)
+		} else {
+			c.NonFinite, c.Mean, c.SD = int(a[1]), a[2], a[3]
+		}
+		d.Columns = append(d.Columns, c)
+	}
+	return d, nil
+}
+
+// CategoricalOf reports whether covariate name is listed in
+// q.Categorical (matched case-insensitively, as ReadCohort does).
+func CategoricalOf(q CohortQuery, name string) bool {
+	for _, c := range q.Categorical {
+		if strings.EqualFold(c, name) {
+			return true
+		}
+	}
+	return false
+}

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 	"time"
 
 	"github.com/google/uuid"
@@ -19,6 +20,10 @@ import (
 // ErrRejected marks a run the balance gate rejected: exit 3.
 var ErrRejected = errors.New("balance gate rejected the run")
 
+// ErrUnchanged marks a run skipped because neither the cohort nor the
+// study changed since the last succeeded run: exit 5.
+var ErrUnchanged = errors.New("nothing changed since the last succeeded run")
+
 // Options are the run's switches that are not part of the study file.
 type Options struct {
 	// DryRun validates, reads, fits and matches but writes nothing.
@@ -29,6 +34,10 @@ type Options struct {
 	Now func() time.Time
 	// Stage, when set, is told as each stage starts (progress display).
 	Stage func(name string)
+	// SkipUnchanged ends the run without writing anything when the cohort
+	// fingerprint and the study file's hash both equal those of the last
+	// succeeded run.
+	SkipUnchanged bool
 	// Diagnostics asks for the distribution summaries the HTML report
 	// plots (score histograms, eCDFs); they cost a pass per covariate and
 	// adjustment, so plain runs skip them.
@@ -83,8 +92,41 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		return sum, fmt.Errorf("read cohort: %w", err)
 	}
 	timed("read")
+	out.Unit, out.IDKind, out.Treatment = c.Unit, c.IDKind, c.Treatment
+	for _, cov := range c.Covariates {
+		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: cov.Name, Kind: cov.Kind})
+	}
+	for _, o := range c.Outcomes {
+		out.Outcomes = append(out.Outcomes, o.Name)
+	}
+	out.Schemes = s.Schemes()
 
-	res, err := analyse(s, c, sum, stage, timed, opt.Diagnostics)
+	if opt.SkipUnchanged {
+		last, ok, err := wh.LatestSucceeded(ctx, out)
+		if err != nil {
+			return sum, fmt.Errorf("skip unchanged: %w", err)
+		}
+		if ok && last.SpecSHA256 == s.SHA256 {
+			if fp := fingerprint(c); fp == last.CohortFingerprint {
+				sum.Status, sum.Fingerprint = warehouse.StatusSkipped, fp
+				sum.Message = "cohort and study unchanged since run " + last.RunID
+				return sum, fmt.Errorf("%w (run %s)", ErrUnchanged, last.RunID)
+			}
+		}
+	}
+	var prior *priorRun
+	if s.Matching.KeepPrior && s.Matching.Algorithm != "off" && !opt.DryRun {
+		if last, ok, err := wh.LatestSucceeded(ctx, out); err != nil {
+			return sum, fmt.Errorf("keep prior: %w", err)
+		} else if ok {
+			ps, err := wh.PriorSets(ctx, out, last.RunID)
+			if err != nil {
+				return sum, fmt.Errorf("keep prior: %w", err)
+			}
+			prior = &priorRun{runID: last.RunID, sets: ps}
+		}
+	}
+	res, err := analyse(s, c, sum, stage, timed, opt.Diagnostics, prior)
 	if err != nil {
 		return sum, err
 	}
@@ -94,14 +136,6 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	}
 
 	stage("publish")
-	out.Unit, out.IDKind, out.Treatment = c.Unit, c.IDKind, c.Treatment
-	for _, cov := range c.Covariates {
-		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: cov.Name, Kind: cov.Kind})
-	}
-	for _, o := range c.Outcomes {
-		out.Outcomes = append(out.Outcomes, o.Name)
-	}
-	out.Schemes = s.Schemes()
 	rec := warehouse.RunRecord{
 		RunID: sum.RunID, Study: s.Study, Status: warehouse.StatusRunning, StartedAt: started.UTC(),
 		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256, SpecJSON: s.Redacted(), CohortSQL: s.Cohort.SQL,
@@ -129,9 +163,11 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	}{sum.Gate, sum.Balance})
 	rec.EffectsJSON = mustJSON(sum.Effects)
 	rec.FinishedAt = now().UTC()
+	sum.Status, sum.FinishedAt = rec.Status, rec.FinishedAt
+	rec.SummaryJSON = mustJSON(sum)
 	pub := &warehouse.Publication{
 		Run: rec, Cohort: c, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
-		Matches: res.matches, Weights: res.weights,
+		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects),
 	}
 	if err := wh.Publish(ctx, out, pub); err != nil {
 		msg := err.Error()
@@ -165,7 +201,7 @@ func badInput(step string, err error) error {
 }
 
 // analyse runs every statistical stage on the cohort and fills the summary.
-func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string), diagnostics bool) (*results, error) {
+func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string), diagnostics bool, prior *priorRun) (*results, error) {
 	n := c.N()
 	z := c.Treated
 	nt := 0
@@ -252,70 +288,111 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	var mr *matchedRows
 	if s.Matching.Algorithm != "off" {
 		stage("match")
-		order, err := assign.ParseOrder(s.Matching.Order)
-		if err != nil {
-			return nil, badInput("match", err)
-		}
 		sd := pooledSD(fit.Logit, z)
 		width := s.Matching.Caliper * sd
 		st, nstrata := strata(c, s.Matching.ExactOn)
-		sets, err := assign.Greedy(fit.Logit, z, st, res.inSupport, assign.Options{
-			Controls: s.Matching.Controls, Reuse: s.Matching.Reuse, Caliper: width, Order: order, Seed: s.Matching.Seed,
-		})
-		if err != nil {
-			return nil, badInput("match", err)
-		}
 		ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
-			CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata, Sets: len(sets)}
-		treatedIdx := make([]int, len(sets))
-		controlIdx := make([][]int, len(sets))
+			CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
+		var groups []group
+		var setTreated []int
+		var setControls [][]int
+		estimand := "att"
+		switch s.Matching.Algorithm {
+		case "greedy", "optimal":
+			var solver Solver
+			sets, churn, err := matchUnits(matchInput{spec: s, cohort: c, logit: fit.Logit, eligible: res.inSupport, strata: st, width: width, prior: prior, solver: &solver})
+			if err != nil {
+				return nil, badInput("match", err)
+			}
+			ms.Churn = churn
+			if s.Matching.Algorithm == "optimal" {
+				ms.Solver = &solver
+			}
+			groups = setsToGroups(sets)
+			for _, set := range sets {
+				setTreated = append(setTreated, set.Treated)
+				setControls = append(setControls, set.Controls)
+			}
+		case "full":
+			gs, cert, err := assign.Full(fit.Logit, z, st, res.inSupport, assign.FullOptions{Caliper: width, MaxControls: s.Matching.MaxControls, MaxTreated: s.Matching.MaxTreated})
+			if err != nil {
+				return nil, badInput("match", err)
+			}
+			ms.Solver = &Solver{Objective: Num(cert.Objective), Certified: cert.Certified, Rounds: cert.Rounds, Edges: cert.Edges, Seconds: Num(cert.Seconds)}
+			groups = fullToGroups(gs)
+		case "strata":
+			sub, err := assign.Subclasses(fit.PS, z, res.inSupport, s.Matching.Subclasses)
+			if err != nil && !errors.Is(err, assign.ErrSubclass) {
+				return nil, badInput("match", err)
+			}
+			est := assign.ATT
+			if s.Estimate.Estimand != "att" {
+				est, estimand = assign.ATE, "ate"
+			}
+			sw, err := assign.SubclassWeights(sub, z, est)
+			if err != nil {
+				return nil, badInput("match", err)
+			}
+			groups = subclassGroups(sub, z, sw)
+		}
+		ms.Sets = len(groups)
 		used := map[int]bool{}
 		total := 0.0
-		for k, set := range sets {
-			treatedIdx[k] = set.Treated
-			controlIdx[k] = set.Controls
-			kc := float64(len(set.Controls))
-			res.matches.SetID = append(res.matches.SetID, int64(set.ID))
-			res.matches.Unit = append(res.matches.Unit, set.Treated)
-			res.matches.Treated = append(res.matches.Treated, true)
-			res.matches.SetWeight = append(res.matches.SetWeight, 1)
-			res.matches.Distance = append(res.matches.Distance, 0)
-			for j, cu := range set.Controls {
-				res.matches.SetID = append(res.matches.SetID, int64(set.ID))
-				res.matches.Unit = append(res.matches.Unit, cu)
-				res.matches.Treated = append(res.matches.Treated, false)
-				res.matches.SetWeight = append(res.matches.SetWeight, 1/kc)
-				res.matches.Distance = append(res.matches.Distance, set.Distances[j])
-				total += set.Distances[j]
-				used[cu] = true
+		mw := make([]float64, n)
+		matchedT := 0
+		for _, g := range groups {
+			for j, u := range append(append([]int(nil), g.treated...), g.controls...) {
+				isT := j < len(g.treated)
+				wt := g.wC
+				if isT {
+					wt = g.wT
+				}
+				if g.w != nil {
+					wt = g.w[j]
+				}
+				dist := math.NaN()
+				if g.dist != nil {
+					dist = g.dist[j]
+					total += dist
+				}
+				res.matches.SetID = append(res.matches.SetID, int64(g.id))
+				res.matches.Unit = append(res.matches.Unit, u)
+				res.matches.Treated = append(res.matches.Treated, isT)
+				res.matches.SetWeight = append(res.matches.SetWeight, wt)
+				res.matches.Distance = append(res.matches.Distance, dist)
+				mw[u] += wt
+				if isT {
+					matchedT++
+				} else {
+					used[u] = true
+				}
 			}
 		}
 		ms.TotalDistance = Num(total)
-		ms.MatchedTreated = len(sets)
-		ms.UnmatchedTreated = keptT - len(sets)
+		ms.MatchedTreated = matchedT
+		ms.UnmatchedTreated = keptT - matchedT
 		ms.MatchedControls = len(used)
 		sum.Matching = &ms
 		sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
 		timed("match")
-		if len(sets) == 0 {
+		if matchedT == 0 {
 			return nil, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
 		}
-		mw := weights.FromSets(n, treatedIdx, controlIdx)
 		adjust("matched", mw)
 		mr = &matchedRows{unit: res.matches.Unit, z: res.matches.Treated, w: res.matches.SetWeight,
-			reuse: s.Matching.Reuse, setTreated: treatedIdx, setControls: controlIdx}
+			reuse: s.Matching.Reuse && s.Matching.Algorithm == "greedy", setTreated: setTreated, setControls: setControls}
 		mr.cluster = make([]int, len(res.matches.SetID))
 		for r, id := range res.matches.SetID {
 			mr.cluster[r] = int(id)
 		}
-		if s.Matching.Controls == 1 && !s.Matching.Reuse {
-			for k := range sets {
-				if len(controlIdx[k]) == 1 {
-					mr.pairs = append(mr.pairs, [2]int{treatedIdx[k], controlIdx[k][0]})
+		if s.Matching.Controls == 1 && !s.Matching.Reuse && setTreated != nil {
+			for k := range setTreated {
+				if len(setControls[k]) == 1 {
+					mr.pairs = append(mr.pairs, [2]int{setTreated[k], setControls[k][0]})
 				}
 			}
 		}
-		adjs = append(adjs, adjustment{name: "matched", estimand: "att", matched: true})
+		adjs = append(adjs, adjustment{name: "matched", estimand: estimand, matched: true})
 	}
 
 	stage("weight")
@@ -403,6 +480,20 @@ func (s *Summary) Headline() []EffectRow {
 	for _, e := range s.Effects {
 		if e.Adjustment == s.Primary {
 			out = append(out, e)
+		}
+	}
+	return out
+}
+
+// effectRecords turns the summary's effect rows into the effects table's.
+func effectRecords(rows []EffectRow) []warehouse.EffectRecord {
+	out := make([]warehouse.EffectRecord, len(rows))
+	for i, e := range rows {
+		out[i] = warehouse.EffectRecord{
+			Outcome: e.Outcome, Adjustment: e.Adjustment, Estimand: e.Estimand, Contrast: e.Contrast, Method: e.Method,
+			Estimate: float64(e.Estimate), StdError: float64(e.SE), CILow: float64(e.CILow), CIHigh: float64(e.CIHigh),
+			PValue: float64(e.P), NTreated: e.NTreated, NControl: e.NControl, NMissing: e.NMissing,
+			EValue: float64(e.EValue), EValueCI: float64(e.EValueCI), RosenbaumGamma: float64(e.RosenbaumGamma),
 		}
 	}
 	return out

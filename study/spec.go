@@ -75,6 +75,17 @@ type MatchingSpec struct {
 	ExactOn   []string `yaml:"exact_on" json:"exact_on"`
 	Order     string   `yaml:"order" json:"order"`
 	Seed      uint64   `yaml:"seed" json:"seed"`
+	// KeepPrior keeps the last published run's sets that still hold and
+	// matches only new or freed units.
+	KeepPrior bool `yaml:"keep_prior" json:"keep_prior"`
+	// MaxControls and MaxTreated bound full matching's sets: at most
+	// MaxControls controls per treated unit and MaxTreated treated units
+	// per control (0: no bound).
+	MaxControls int `yaml:"max_controls" json:"max_controls,omitempty"`
+	MaxTreated  int `yaml:"max_treated" json:"max_treated,omitempty"`
+	// Subclasses is the number of propensity-score subclasses of
+	// algorithm strata (0: 5, Cochran 1968).
+	Subclasses int `yaml:"subclasses" json:"subclasses,omitempty"`
 }
 
 // BalanceSpec is the balance gate.
@@ -149,7 +160,7 @@ var (
 	engines    = []string{"duckdb", "postgres"}
 	models     = []string{"logistic", "ridge"}
 	supports   = []string{"none", "minmax", "crump"}
-	algorithms = []string{"greedy", "off"}
+	algorithms = []string{"greedy", "optimal", "full", "strata", "off"}
 	orders     = []string{"high-score-first", "low-score-first", "random", "input"}
 	schemes    = []string{"att", "ate", "atc", "overlap", "matching"}
 	onFails    = []string{"reject", "warn"}
@@ -521,6 +532,18 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if err := enum("matching.order", &m.Order, "high-score-first", orders); err != nil {
 		return err
 	}
+	if m.Reuse && m.Algorithm != "greedy" {
+		return bad("matching.reuse", "only greedy matching reuses comparison units; set reuse: false for %s", m.Algorithm)
+	}
+	if m.KeepPrior && m.Algorithm != "greedy" && m.Algorithm != "optimal" {
+		return bad("matching.keep_prior", "keeps greedy or optimal sets only; %s rebuilds every set", m.Algorithm)
+	}
+	if m.MaxControls < 0 || m.MaxTreated < 0 {
+		return bad("matching.max_controls", "bounds must be >= 0 (0: no bound)")
+	}
+	if m.Subclasses < 0 || m.Subclasses == 1 {
+		return bad("matching.subclasses", "%d subclasses is not allowed; give at least 2 (0 picks 5)", m.Subclasses)
+	}
 	if !present(doc, "matching.seed") {
 		m.Seed = DefaultSeed
 	}
@@ -662,4 +685,23 @@ func sortedCopy(xs []string) []string {
 	c := append([]string(nil), xs...)
 	sort.Strings(c)
 	return c
+}
+
+// OutputTarget is where the study's tables live, for commands that read
+// them without running (unit and covariate details come from the run).
+func (s *Spec) OutputTarget() warehouse.Output {
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
+		Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment, Outcomes: s.Cohort.Outcomes, Schemes: s.Schemes()}
+	declared := map[string]bool{}
+	for _, c := range s.Cohort.Categorical {
+		declared[c] = true
+	}
+	for _, c := range s.Cohort.Covariates {
+		kind := warehouse.Numeric
+		if declared[c] {
+			kind = warehouse.Categorical
+		}
+		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: c, Kind: kind})
+	}
+	return out
 }

@@ -76,18 +76,20 @@ type Support struct {
 
 // MatchingSummary describes the matched sets.
 type MatchingSummary struct {
-	Algorithm        string `json:"algorithm"`
-	Controls         int    `json:"controls_per_treated"`
-	Reuse            bool   `json:"reuse"`
-	CaliperSD        Num    `json:"caliper_sd"`
-	LogitSD          Num    `json:"logit_pooled_sd"`
-	CaliperWidth     Num    `json:"caliper_width"`
-	Strata           int    `json:"exact_strata"`
-	Sets             int    `json:"sets"`
-	MatchedTreated   int    `json:"matched_treated"`
-	UnmatchedTreated int    `json:"unmatched_treated"`
-	MatchedControls  int    `json:"matched_controls"`
-	TotalDistance    Num    `json:"total_distance"`
+	Algorithm        string  `json:"algorithm"`
+	Controls         int     `json:"controls_per_treated"`
+	Reuse            bool    `json:"reuse"`
+	CaliperSD        Num     `json:"caliper_sd"`
+	LogitSD          Num     `json:"logit_pooled_sd"`
+	CaliperWidth     Num     `json:"caliper_width"`
+	Strata           int     `json:"exact_strata"`
+	Sets             int     `json:"sets"`
+	MatchedTreated   int     `json:"matched_treated"`
+	UnmatchedTreated int     `json:"unmatched_treated"`
+	MatchedControls  int     `json:"matched_controls"`
+	TotalDistance    Num     `json:"total_distance"`
+	Churn            *Churn  `json:"churn,omitempty"`
+	Solver           *Solver `json:"solver,omitempty"`
 }
 
 // AdjustmentBalance is balance under one adjustment.

@@ -419,7 +419,8 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64) (string, []any) 
 			sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
 		}
 	}
-	q := `SELECT count(*), sum(z), sum(ll), sum(perfect),
+	q := `SELECT CAST(count(*) AS DOUBLE PRECISION), CAST(sum(z) AS DOUBLE PRECISION),
+  CAST(sum(ll) AS DOUBLE PRECISION), CAST(sum(perfect) AS DOUBLE PRECISION),
   CAST(ARRAY[` + strings.Join(sums, ", ") + `] AS DOUBLE PRECISION[])
 FROM (
  SELECT x.*,

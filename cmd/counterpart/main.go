@@ -76,12 +76,13 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 					&cli.BoolFlag{Name: "dry-run", Usage: "validate, read, fit and match; write nothing"},
 					&cli.BoolFlag{Name: "json", Usage: "print a machine-readable summary on stdout"},
 					&cli.StringFlag{Name: "report", Usage: "also write the HTML report of this run to `FILE`"},
+					&cli.BoolFlag{Name: "skip-unchanged", Usage: "exit 5 without writing when the cohort and study are unchanged since the last succeeded run"},
 				},
 				Action: func(c *cli.Context) error {
 					if c.NArg() != 1 {
 						return usageError("run takes one study file: counterpart run STUDY.yaml")
 					}
-					f := runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report"), logFormat: c.String("log-format")}
+					f := runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report"), logFormat: c.String("log-format"), skip: c.Bool("skip-unchanged")}
 					if f.logFormat != "" && f.logFormat != "text" && f.logFormat != "json" {
 						return usageError(fmt.Sprintf("--log-format %q: use text or json", f.logFormat))
 					}
@@ -104,6 +105,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 			},
 		},
 	}
+	app.Commands = append(app.Commands, runsCommands(ctx, &code, stdout, stderr)...)
 	if err := app.RunContext(ctx, args); err != nil {
 		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
 		return exitBadInput
@@ -124,6 +126,8 @@ func exitCode(err error) int {
 		return exitLocked
 	case errors.Is(err, study.ErrRejected):
 		return exitRejected
+	case errors.Is(err, study.ErrUnchanged):
+		return exitUnchanged
 	case errors.Is(err, warehouse.ErrBadInput):
 		return exitBadInput
 	default:
@@ -141,9 +145,9 @@ func oneLine(s string) string {
 
 // runFlags are the switches of the run command.
 type runFlags struct {
-	dry, json bool
-	report    string
-	logFormat string
+	dry, json, skip bool
+	report          string
+	logFormat       string
 }
 
 // fail prints an error as the one stderr line schedulers read (a JSON
@@ -180,12 +184,12 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 	defer wh.Close()
 	log.Info("run starting", "study", spec.Study, "engine", spec.Warehouse.Engine, "dry_run", dry)
 	prog := newProgress(stderr, tty && f.logFormat == "", log)
-	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != "", Stage: prog.stage})
+	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != "", Stage: prog.stage, SkipUnchanged: f.skip})
 	prog.done()
 	if sum != nil && sum.Status != "" {
 		log.Info("run finished", "study", spec.Study, "run_id", sum.RunID, "status", sum.Status)
 	}
-	if f.report != "" && sum != nil && sum.Status != "" {
+	if f.report != "" && sum != nil && sum.Status != "" && sum.Status != "skipped" {
 		if rerr := writeReport(f.report, sum); rerr != nil && err == nil {
 			return fail(stderr, f.logFormat, rerr)
 		}

@@ -71,7 +71,7 @@ var engine = warehousetest.Engine{
 	// same handle stands for another session.
 	Other:      func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
 	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
-	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "retention", "views", "commit"},
+	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
 }
 
 func TestConformance(t *testing.T) {

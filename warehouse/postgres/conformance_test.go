@@ -84,7 +84,7 @@ var engine = warehousetest.Engine{
 		return openDSN(t, w.(*Warehouse).cfg.ConnString())
 	},
 	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
-	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "retention", "views", "commit"},
+	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
 }
 
 func TestConformance(t *testing.T) {

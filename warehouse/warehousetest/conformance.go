@@ -51,6 +51,15 @@ func RunConformance(t *testing.T, e Engine) {
 	t.Run("Lock", func(t *testing.T) { testLock(t, e) })
 	t.Run("Balance", func(t *testing.T) { testBalance(t, e) })
 	t.Run("BadOutput", func(t *testing.T) { testBadOutput(t, e) })
+	t.Run("Abandon", func(t *testing.T) { testAbandon(t, e) })
+	t.Run("Effects", func(t *testing.T) { testEffects(t, e) })
+	t.Run("RunQueries", func(t *testing.T) { testRunQueries(t, e) })
+	t.Run("Analysis", func(t *testing.T) { testAnalysis(t, e) })
+	t.Run("PriorSets", func(t *testing.T) { testPriorSets(t, e) })
+	t.Run("DiffRuns", func(t *testing.T) { testDiffRuns(t, e) })
+	t.Run("DiffRunsRandom", func(t *testing.T) { testDiffRunsRandom(t, e) })
+	t.Run("RowCounts", func(t *testing.T) { testRowCounts(t, e) })
+	t.Run("SummaryColumnAdded", func(t *testing.T) { testSummaryColumnAdded(t, e) })
 }
 
 // srcTable holds one column of every kind the decoding rules name. Rows are
@@ -367,9 +376,11 @@ func output(e Engine, c *warehouse.Cohort, schemes []string, keep int) warehouse
 func publication(c *warehouse.Cohort, runID, status string, seed float64, schemes []string) *warehouse.Publication {
 	n := c.N()
 	p := &warehouse.Publication{
-		Run:    warehouse.RunRecord{RunID: runID, Study: "st", Status: status, CountsJSON: `{"units": ` + strconv.Itoa(n) + `}`, Message: "note " + runID},
+		Run: warehouse.RunRecord{RunID: runID, Study: "st", Status: status, CountsJSON: `{"units": ` + strconv.Itoa(n) + `}`, Message: "note " + runID,
+			SummaryJSON: `{"run_id": "` + runID + `", "effects": [{"estimate": ` + strconv.FormatFloat(seed, 'g', -1, 64) + `}]}`},
 		Cohort: c, PS: make([]float64, n), LogitPS: make([]float64, n), InSupport: make([]bool, n),
 		Matches: handMatches,
+		Effects: handEffects(seed),
 	}
 	for i := range n {
 		p.PS[i] = 0.1 + 0.1*float64(i) + seed/100
@@ -400,8 +411,8 @@ func run(t *testing.T, w warehouse.Warehouse, out warehouse.Output, p *warehouse
 
 var t0 = time.Date(2026, 1, 1, 0, 0, 0, 0, time.UTC)
 
-var dataTables = []string{"st_cohort", "st_scores", "st_matches", "st_weights"}
-var currentViews = []string{"st_current_cohort", "st_current_scores", "st_current_matches", "st_current_weights"}
+var dataTables = []string{"st_cohort", "st_scores", "st_matches", "st_weights", "st_effects"}
+var currentViews = []string{"st_current_cohort", "st_current_scores", "st_current_matches", "st_current_weights", "st_current_effects"}
 
 // runIDs lists the distinct run_id values of a table or view, sorted.
 func runIDs(t *testing.T, e Engine, w warehouse.Warehouse, table string) string {

@@ -14,7 +14,6 @@ import (
 	"path/filepath"
 	"reflect"
 	"regexp"
-	"sort"
 	"strings"
 
 	"go.yaml.in/yaml/v3"
@@ -679,13 +678,6 @@ func RedactDSN(dsn string) string {
 // Schemes lists the weighting schemes in a stable order for the weights
 // table: the study's order.
 func (s *Spec) Schemes() []string { return append([]string(nil), s.Weighting...) }
-
-// sortedCopy returns a sorted copy, for deterministic messages.
-func sortedCopy(xs []string) []string {
-	c := append([]string(nil), xs...)
-	sort.Strings(c)
-	return c
-}
 
 // OutputTarget is where the study's tables live, for commands that read
 // them without running (unit and covariate details come from the run).

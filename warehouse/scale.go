@@ -379,6 +379,15 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 }
 
 // MomentsSQL is the one aggregate query of a Newton step (see Moments).
+// Each per-row quantity is computed once, at its own level: nested derived
+// tables for DuckDB (lateral false; DuckDB computes each projection once),
+// and for Postgres (lateral true) a chain of CROSS JOIN LATERAL
+// unnest(ARRAY[…]) function scans. Postgres would pull plain derived
+// tables up into the aggregate and copy each column's defining expression
+// into every reference (η into each of the k(k+1)/2 sums, compounding per
+// level); a function scan's outputs stay plain columns, and unlike an
+// OFFSET 0 fence it keeps the whole query under one Partial Aggregate, so
+// the parallel plan survives.
 // Its single row holds count, treated count, log-likelihood, perfect count
 // and one DOUBLE PRECISION array: the k gradient sums, then the upper
 // triangle of the information row by row.
@@ -391,26 +400,40 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 //	√w = √t/(1+t), u_a = √w·x̃_a, Info_ab = Σ u_a u_b
 //
 // the same cancellation-free forms as match/score's in-memory pass.
-func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64) (string, []any) {
+func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral bool) (string, []any) {
 	k := len(d.Columns) + 1
 	if len(beta) != k {
 		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(beta), k-1))
 	}
 	b := &ScaleSQL{}
-	std := b.StdColumns(d)
-	eta := b.Eta(beta)
-	xs := make([]string, 0, k)
-	xs = append(xs, "")
-	for j := 1; j < k; j++ {
-		xs = append(xs, fmt.Sprintf("x%d", j))
+	type col struct{ name, expr string }
+	std := []col{{"z", d.TreatmentExpr()}}
+	for j, c := range d.Columns {
+		std = append(std, col{fmt.Sprintf("x%d", j+1), fmt.Sprintf("(%s - %s) * %s", b.rawExpr(c), b.Num(c.Center), b.Num(c.Scale))})
 	}
-	var us []string
-	us = append(us, "sw AS u0")
-	for j := 1; j < k; j++ {
-		us = append(us, fmt.Sprintf("sw * x%d AS u%d", j, j))
+	levels := [][]col{
+		std,
+		{{"eta", b.Eta(beta)}},
+		{{"t", "CASE WHEN abs(eta) > 300 THEN 0 ELSE exp(-abs(eta)) END"}},
+		{
+			{"p", "CASE WHEN eta >= 0 THEN 1 / (1 + t) ELSE t / (1 + t) END"},
+			{"q", "CASE WHEN eta >= 0 THEN t / (1 + t) ELSE 1 / (1 + t) END"},
+			{"l1p", "greatest(eta, 0) + ln(1 + t)"},
+			{"sw", "sqrt(t) / (1 + t)"},
+		},
 	}
-	var sums []string
-	sums = append(sums, "sum(r)")
+	last := []col{
+		{"r", "CASE WHEN z = 1 THEN q ELSE -p END"},
+		{"ll", "CASE WHEN z = 1 THEN eta - l1p ELSE -l1p END"},
+		{"perfect", "CASE WHEN (z = 1 AND eta > 15) OR (z = 0 AND eta < -15) THEN 1 ELSE 0 END"},
+		{"u0", "sw"},
+	}
+	for j := 1; j < k; j++ {
+		last = append(last, col{fmt.Sprintf("u%d", j), fmt.Sprintf("sw * x%d", j)})
+	}
+	levels = append(levels, last)
+
+	sums := []string{"sum(r)"}
 	for j := 1; j < k; j++ {
 		sums = append(sums, fmt.Sprintf("sum(r * x%d)", j))
 	}
@@ -419,35 +442,63 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64) (string, []any) 
 			sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
 		}
 	}
-	q := `SELECT CAST(count(*) AS DOUBLE PRECISION), CAST(sum(z) AS DOUBLE PRECISION),
+	sel := `SELECT CAST(count(*) AS DOUBLE PRECISION), CAST(sum(z) AS DOUBLE PRECISION),
   CAST(sum(ll) AS DOUBLE PRECISION), CAST(sum(perfect) AS DOUBLE PRECISION),
   CAST(ARRAY[` + strings.Join(sums, ", ") + `] AS DOUBLE PRECISION[])
-FROM (
- SELECT x.*,
-  CASE WHEN z = 1 THEN q ELSE -p END AS r,
-  CASE WHEN z = 1 THEN eta - l1p ELSE -l1p END AS ll,
-  CASE WHEN (z = 1 AND eta > 15) OR (z = 0 AND eta < -15) THEN 1 ELSE 0 END AS perfect,
-  ` + strings.Join(us, ", ") + `
- FROM (
-  SELECT s.*,
-   CASE WHEN eta >= 0 THEN 1 / (1 + t) ELSE t / (1 + t) END AS p,
-   CASE WHEN eta >= 0 THEN t / (1 + t) ELSE 1 / (1 + t) END AS q,
-   greatest(eta, 0) + ln(1 + t) AS l1p,
-   sqrt(t) / (1 + t) AS sw
-  FROM (
-   SELECT e.*, CASE WHEN abs(eta) > 300 THEN 0 ELSE exp(-abs(eta)) END AS t
-   FROM (
-    SELECT d.*, ` + eta + ` AS eta
-    FROM (
-     SELECT
-  ` + std + `
-     FROM ` + From(cohortSQL) + `
-    ) AS d
-   ) AS e
-  ) AS s
- ) AS x
-) AS y`
-	return q, b.args
+FROM `
+	var from string
+	if lateral {
+		// Level 0 is a derived table so that only z, x1, ... are visible
+		// to the later levels, never the cohort's own columns.
+		parts := make([]string, len(std))
+		for j, c := range std {
+			parts[j] = c.expr + " AS " + c.name
+		}
+		var b strings.Builder
+		b.WriteString("(\nSELECT " + strings.Join(parts, ",\n  ") + "\nFROM " + From(cohortSQL) + "\n) AS l0")
+		for i, lv := range levels {
+			if i == 0 {
+				continue
+			}
+			arrs := make([]string, len(lv))
+			names := make([]string, len(lv))
+			for j, c := range lv {
+				arrs[j] = "ARRAY[" + c.expr + "]"
+				names[j] = c.name
+			}
+			fmt.Fprintf(&b, "\nCROSS JOIN LATERAL unnest(%s) AS l%d(%s)", strings.Join(arrs, ", "), i, strings.Join(names, ", "))
+		}
+		from = b.String()
+	} else {
+		from = From(cohortSQL)
+		for i, lv := range levels {
+			parts := make([]string, len(lv))
+			for j, c := range lv {
+				parts[j] = c.expr + " AS " + c.name
+			}
+			prev := "l" + fmt.Sprint(i-1) + ".*, "
+			if i == 0 {
+				prev = ""
+			}
+			from = fmt.Sprintf("(\nSELECT %s%s\nFROM %s\n) AS l%d", prev, strings.Join(parts, ",\n  "), from, i)
+		}
+	}
+	return sel + from, b.args
+}
+
+// fenceText is what closes a derived table that the planner must not
+// merge into its parent. Postgres pulls simple subqueries up into the
+// outer query, substituting each column by its defining expression; here
+// that would copy η (p terms) into every one of the k(k+1)/2 sums, and
+// each level of nesting multiplies the copies. OFFSET 0 stops the pull-up
+// (a documented planner fence) and, being a constant zero, keeps the
+// subquery parallel-safe. DuckDB computes each projection once and needs
+// no fence.
+func fenceText(fence bool) string {
+	if fence {
+		return "OFFSET 0\n"
+	}
+	return ""
 }
 
 // SplitMoments unpacks MomentsSQL's array into m (k = design columns + 1).
@@ -509,7 +560,7 @@ func WeightSQL(scheme string) (string, error) {
 // ScoredSQL returns SELECT unit, z, eta, e, ins over the cohort at coef
 // (original scale), the inner query of ScoreInto and MatchInput. extra
 // columns of c are carried along under their own names.
-func ScoredSQL(b *ScaleSQL, cohortSQL string, d *DesignSQL, coef []float64, sup Support, extra ...string) string {
+func ScoredSQL(b *ScaleSQL, cohortSQL string, d *DesignSQL, coef []float64, sup Support, fence bool, extra ...string) string {
 	eta := b.RawEta(d, coef)
 	cols := []string{"c." + Quote(d.Unit) + " AS unit", d.TreatmentExpr() + " AS z", eta + " AS eta"}
 	for _, e := range extra {
@@ -523,24 +574,24 @@ func ScoredSQL(b *ScaleSQL, cohortSQL string, d *DesignSQL, coef []float64, sup 
 	if !math.IsInf(sup.High, 1) {
 		hi = "eta <= " + b.Num(sup.High)
 	}
-	return "SELECT s.*, " + Logistic("eta") + " AS e, (" + lo + " AND " + hi + ") AS ins FROM (" + inner + ") AS s"
+	return "SELECT s.*, " + Logistic("eta") + " AS e, (" + lo + " AND " + hi + ") AS ins FROM (" + inner + " " + fenceText(fence) + ") AS s"
 }
 
 // ScoreInsertSQL returns the INSERT … SELECT statements of ScoreInto for
 // the contract's scores and (when schemes is not empty) weights tables.
 // $1 is the run id in both.
-func ScoreInsertSQL(c *Contract, cohortSQL string, d *DesignSQL, coef []float64, sup Support, schemes []string) (stmts []string, args [][]any, err error) {
+func ScoreInsertSQL(c *Contract, cohortSQL string, d *DesignSQL, coef []float64, sup Support, schemes []string, fence bool) (stmts []string, args [][]any, err error) {
 	unit := Quote(c.Unit)
 	b := &ScaleSQL{args: []any{nil}}
-	scored := ScoredSQL(b, cohortSQL, d, coef, sup)
-	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (run_id, %s, treated, ps, logit_ps, in_support)\nSELECT CAST($1 AS VARCHAR), unit, z = 1, e, eta, ins FROM (%s) AS f",
-		QuoteQualified(c.Schema, c.Scores.Name), unit, scored))
+	scored := ScoredSQL(b, cohortSQL, d, coef, sup, fence)
+	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (run_id, %s, treated, ps, logit_ps, in_support)\nSELECT CAST($1 AS VARCHAR), unit, z = 1, e, eta, ins FROM (%s %s) AS f",
+		QuoteQualified(c.Schema, c.Scores.Name), unit, scored, fenceText(fence)))
 	args = append(args, b.args)
 	if len(schemes) == 0 {
 		return stmts, args, nil
 	}
 	b = &ScaleSQL{args: []any{nil}}
-	scored = ScoredSQL(b, cohortSQL, d, coef, sup)
+	scored = ScoredSQL(b, cohortSQL, d, coef, sup, fence)
 	names := []string{"run_id", unit, "treated"}
 	exprs := []string{"CAST($1 AS VARCHAR)", "unit", "z = 1"}
 	for _, s := range schemes {
@@ -554,8 +605,8 @@ func ScoreInsertSQL(c *Contract, cohortSQL string, d *DesignSQL, coef []float64,
 		names = append(names, Quote(s))
 		exprs = append(exprs, w)
 	}
-	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM (%s) AS f",
-		QuoteQualified(c.Schema, c.Weights.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), scored))
+	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM (%s %s) AS f",
+		QuoteQualified(c.Schema, c.Weights.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), scored, fenceText(fence)))
 	args = append(args, b.args)
 	return stmts, args, nil
 }
@@ -572,14 +623,14 @@ func LogitRangeSQL(cohortSQL string, d *DesignSQL, coef []float64) (string, []an
 
 // MatchInputSQL returns unit, z, stratum, eta, ins per unit; the stratum
 // is dense_rank over the exactOn columns minus 1 (0 without them).
-func MatchInputSQL(cohortSQL string, d *DesignSQL, coef []float64, sup Support, exactOn []string) (string, []any, error) {
+func MatchInputSQL(cohortSQL string, d *DesignSQL, coef []float64, sup Support, exactOn []string, fence bool) (string, []any, error) {
 	for _, e := range exactOn {
 		if err := ValidIdent(e); err != nil {
 			return "", nil, fmt.Errorf("matching.exact_on: %w", err)
 		}
 	}
 	b := &ScaleSQL{}
-	scored := ScoredSQL(b, cohortSQL, d, coef, sup, exactOn...)
+	scored := ScoredSQL(b, cohortSQL, d, coef, sup, fence, exactOn...)
 	stratum := "0"
 	if len(exactOn) > 0 {
 		q := make([]string, len(exactOn))
@@ -588,7 +639,7 @@ func MatchInputSQL(cohortSQL string, d *DesignSQL, coef []float64, sup Support, 
 		}
 		stratum = "CAST(dense_rank() OVER (ORDER BY " + strings.Join(q, ", ") + ") - 1 AS INTEGER)"
 	}
-	return "SELECT unit, z = 1, " + stratum + ", eta, ins FROM (" + scored + ") AS f ORDER BY unit", b.args, nil
+	return "SELECT unit, z = 1, " + stratum + ", eta, ins FROM (" + scored + " " + fenceText(fence) + ") AS f ORDER BY unit", b.args, nil
 }
 
 // ColumnTypes is what an engine learned of the cohort query's result

@@ -2,21 +2,11 @@ package duckdb
 
 import (
 	"context"
-	"database/sql/driver"
-	"errors"
-	"fmt"
-	"math"
 
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse"
 )
-
-// column is one appended column: its name and how to read row i.
-type column struct {
-	name string
-	get  func(i int) driver.Value
-}
 
 // appendAll writes the cohort snapshot, scores, matches and weights of p
 // through bulk inserts (see bulk.go).
@@ -93,58 +83,4 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 		return err
 	}
 	return w.step("weights")
-}
-
-// floatCol reads a float64 column; NaN is written as NULL.
-func floatCol(v []float64) func(int) driver.Value {
-	return func(i int) driver.Value {
-		if math.IsNaN(v[i]) {
-			return nil
-		}
-		return v[i]
-	}
-}
-
-func boolCol(v []bool) func(int) driver.Value {
-	return func(i int) driver.Value { return v[i] }
-}
-
-// appendRows appends n rows to schema.table through DuckDB's appender on
-// the dedicated connection, inside whatever transaction is open there.
-// Only the listed columns are written; a table's other columns (those of
-// covariates or schemes a study no longer uses) get NULL.
-func (w *Warehouse) appendRows(ctx context.Context, schema, table string, cols []column, n int) error {
-	names := make([]string, len(cols))
-	for i, c := range cols {
-		names[i] = c.name
-	}
-	err := w.conn.Raw(func(dc any) error {
-		conn, ok := dc.(driver.Conn)
-		if !ok {
-			return fmt.Errorf("unexpected driver connection %T", dc)
-		}
-		a, err := duckdb.NewAppenderWithColumns(conn, "", schema, table, names)
-		if err != nil {
-			return err
-		}
-		row := make([]driver.Value, len(cols))
-		for i := range n {
-			if i%(1<<14) == 0 {
-				if err := ctx.Err(); err != nil {
-					return errors.Join(err, a.Clear(), a.Close())
-				}
-			}
-			for j := range cols {
-				row[j] = cols[j].get(i)
-			}
-			if err := a.AppendRow(row...); err != nil {
-				return errors.Join(fmt.Errorf("row %d: %w", i+1, err), a.Clear(), a.Close())
-			}
-		}
-		return a.CloseWithCancel(ctx)
-	})
-	if err != nil {
-		return fmt.Errorf("append to %s: %w", table, err)
-	}
-	return nil
 }

@@ -169,7 +169,7 @@ func floatList(v any) ([]float64, error) {
 func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q.SQL, d, beta)
+		text, args := warehouse.MomentsSQL(q.SQL, d, beta, false)
 		var n, nt, perfect sql.NullFloat64
 		var ll sql.NullFloat64
 		var raw any
@@ -223,7 +223,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 	if err != nil {
 		return err
 	}
-	stmts, args, err := warehouse.ScoreInsertSQL(c, q.SQL, d, coef, sup, schemes)
+	stmts, args, err := warehouse.ScoreInsertSQL(c, q.SQL, d, coef, sup, schemes, false)
 	if err != nil {
 		return err
 	}
@@ -240,7 +240,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 func (w *Warehouse) MatchInput(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64, sup warehouse.Support, exactOn []string) (*warehouse.MatchInput, error) {
 	mi := &warehouse.MatchInput{IDKind: d.IDKind}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args, err := warehouse.MatchInputSQL(q.SQL, d, coef, sup, exactOn)
+		text, args, err := warehouse.MatchInputSQL(q.SQL, d, coef, sup, exactOn, false)
 		if err != nil {
 			return err
 		}

@@ -72,7 +72,6 @@ type copyReader struct {
 	buf  []byte
 	off  int
 	done bool
-	step func()
 }
 
 const copyChunk = 1 << 16

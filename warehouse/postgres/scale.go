@@ -144,7 +144,7 @@ func (w *Warehouse) Describe(ctx context.Context, q warehouse.CohortQuery) (*war
 func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q.SQL, d, beta)
+		text, args := warehouse.MomentsSQL(q.SQL, d, beta, true)
 		var n, nt, perfect float64
 		var arr []float64
 		if err := w.conn.QueryRow(ctx, text, args...).Scan(&n, &nt, &m.LogLik, &perfect, &arr); err != nil {
@@ -190,7 +190,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 	if err != nil {
 		return err
 	}
-	stmts, args, err := warehouse.ScoreInsertSQL(c, q.SQL, d, coef, sup, schemes)
+	stmts, args, err := warehouse.ScoreInsertSQL(c, q.SQL, d, coef, sup, schemes, true)
 	if err != nil {
 		return err
 	}
@@ -207,7 +207,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 func (w *Warehouse) MatchInput(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64, sup warehouse.Support, exactOn []string) (*warehouse.MatchInput, error) {
 	mi := &warehouse.MatchInput{IDKind: d.IDKind}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args, err := warehouse.MatchInputSQL(q.SQL, d, coef, sup, exactOn)
+		text, args, err := warehouse.MatchInputSQL(q.SQL, d, coef, sup, exactOn, true)
 		if err != nil {
 			return err
 		}

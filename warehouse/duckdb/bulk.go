@@ -6,8 +6,10 @@ import (
 	"encoding/hex"
 	"fmt"
 	"math"
+	"runtime"
 	"strings"
 	"sync"
+	"sync/atomic"
 
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
@@ -43,11 +45,15 @@ func (c bulkCol) at(r int) int {
 	return r
 }
 
-// bulkSource serves one INSERT's columns to DuckDB, one chunk at a time.
+// bulkSource serves one INSERT's columns to DuckDB. DuckDB may call
+// FillChunk from several threads at once; each call claims the next block
+// of rows atomically, so the threads fill disjoint chunks. (Row order in
+// the table then follows the threads, which is fine: the contract's
+// tables are keyed by run, set and unit, not by position.)
 type bulkSource struct {
 	cols  []bulkCol
 	n     int
-	off   int
+	next  atomic.Int64
 	infos []duckdb.ColumnInfo
 }
 
@@ -57,14 +63,23 @@ func (s *bulkSource) Cardinality() *duckdb.CardinalityInfo {
 	return &duckdb.CardinalityInfo{Cardinality: uint(s.n), Exact: true}
 }
 
-func (s *bulkSource) Init() {}
+func (s *bulkSource) Init() duckdb.ParallelTableSourceInfo {
+	return duckdb.ParallelTableSourceInfo{MaxThreads: runtime.GOMAXPROCS(0)}
+}
 
-func (s *bulkSource) FillChunk(ch duckdb.DataChunk) error {
-	size := min(duckdb.GetDataChunkCapacity(), s.n-s.off)
+func (s *bulkSource) NewLocalState() any { return new(int) }
+
+func (s *bulkSource) FillChunk(_ any, ch duckdb.DataChunk) error {
+	capacity := duckdb.GetDataChunkCapacity()
+	off := int(s.next.Add(int64(capacity))) - capacity
+	size := min(capacity, s.n-off)
+	if size <= 0 {
+		return ch.SetSize(0)
+	}
 	for j, c := range s.cols {
 		var err error
 		for r := 0; r < size && err == nil; r++ {
-			i := c.at(s.off + r)
+			i := c.at(off + r)
 			switch {
 			case c.f64 != nil:
 				if v := c.f64[i]; math.IsNaN(v) {
@@ -86,7 +101,6 @@ func (s *bulkSource) FillChunk(ch duckdb.DataChunk) error {
 			return fmt.Errorf("bulk column %d: %w", j, err)
 		}
 	}
-	s.off += size
 	return ch.SetSize(size)
 }
 
@@ -111,9 +125,9 @@ func registerBulk(ctx context.Context, w *Warehouse) error {
 	if err != nil {
 		return err
 	}
-	fn := duckdb.ChunkTableFunction{
+	fn := duckdb.ParallelChunkTableFunction{
 		Config: duckdb.TableFunctionConfig{Arguments: []duckdb.TypeInfo{bigint}},
-		BindArguments: func(_ map[string]any, args ...any) (duckdb.ChunkTableSource, error) {
+		BindArguments: func(_ map[string]any, args ...any) (duckdb.ParallelChunkTableSource, error) {
 			key, _ := args[0].(int64)
 			bk.mu.Lock()
 			defer bk.mu.Unlock()

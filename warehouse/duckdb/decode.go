@@ -5,7 +5,6 @@ import (
 	"fmt"
 	"math"
 	"math/big"
-	"slices"
 	"strconv"
 	"strings"
 	"time"
@@ -73,7 +72,7 @@ func decode(rows *sql.Rows, q warehouse.CohortQuery) (*warehouse.Cohort, error) 
 		dest[i] = skipCol{}
 	}
 	col := func(want, role string) (int, class, error) {
-		i, err := findColumn(names, want, role)
+		i, err := warehouse.FindColumn(names, want, role)
 		if err != nil {
 			return 0, 0, err
 		}
@@ -175,7 +174,7 @@ func decode(rows *sql.Rows, q warehouse.CohortQuery) (*warehouse.Cohort, error) 
 	}
 	countNulls := func(name string, k int) {
 		if k > 0 {
-			nulls = append(nulls, fmt.Sprintf("column %s has %s", name, plural(k, "NULL value")))
+			nulls = append(nulls, fmt.Sprintf("column %s has %s", name, warehouse.Plural(k, "NULL value")))
 		}
 	}
 	if intIDs != nil {
@@ -184,7 +183,7 @@ func decode(rows *sql.Rows, q warehouse.CohortQuery) (*warehouse.Cohort, error) 
 		checks = append(checks, func(func(int) string) error {
 			if intIDs.wide > 0 {
 				return fmt.Errorf("%w: unit column %s has %s outside the 64-bit integer range (for example %s); cast it to VARCHAR in cohort.sql",
-					warehouse.ErrBadInput, q.Unit, plural(intIDs.wide, "value"), intIDs.wideExample)
+					warehouse.ErrBadInput, q.Unit, warehouse.Plural(intIDs.wide, "value"), intIDs.wideExample)
 			}
 			return nil
 		})
@@ -197,7 +196,7 @@ func decode(rows *sql.Rows, q warehouse.CohortQuery) (*warehouse.Cohort, error) 
 	checks = append(checks, func(unit func(int) string) error {
 		if treat.bad > 0 {
 			return fmt.Errorf("%w: treatment column %s has %s other than 0 and 1 (for example %s at unit %s); it must be boolean or 0/1",
-				warehouse.ErrBadInput, q.Treatment, plural(treat.bad, "value"), treat.badValue, unit(treat.badRow))
+				warehouse.ErrBadInput, q.Treatment, warehouse.Plural(treat.bad, "value"), treat.badValue, unit(treat.badRow))
 		}
 		return nil
 	})
@@ -230,85 +229,10 @@ func decode(rows *sql.Rows, q warehouse.CohortQuery) (*warehouse.Cohort, error) 
 			return nil, err
 		}
 	}
-	if err := checkUnique(c); err != nil {
+	if err := warehouse.CheckUnique(c); err != nil {
 		return nil, err
 	}
 	return c, nil
-}
-
-// findColumn looks a column up by name: an exact (case-sensitive) match,
-// else a unique case-insensitive one.
-func findColumn(names []string, want, role string) (int, error) {
-	var exact, folded []int
-	for i, n := range names {
-		if n == want {
-			exact = append(exact, i)
-		} else if strings.EqualFold(n, want) {
-			folded = append(folded, i)
-		}
-	}
-	switch {
-	case len(exact) == 1:
-		return exact[0], nil
-	case len(exact) > 1:
-		return 0, fmt.Errorf("%w: cohort.sql returns %d columns named %s (%s); alias them so each name is unique", warehouse.ErrBadInput, len(exact), want, role)
-	case len(folded) == 1:
-		return folded[0], nil
-	case len(folded) > 1:
-		var got []string
-		for _, i := range folded {
-			got = append(got, names[i])
-		}
-		return 0, fmt.Errorf("%w: cohort.sql returns columns %s, which differ from %s (%s) only in case; alias them", warehouse.ErrBadInput, strings.Join(got, ", "), want, role)
-	}
-	list := names
-	more := ""
-	if len(list) > 20 {
-		list, more = list[:20], fmt.Sprintf(" … and %d more", len(names)-20)
-	}
-	return 0, fmt.Errorf("%w: cohort.sql returns no column %s (%s); it returns: %s%s", warehouse.ErrBadInput, want, role, strings.Join(list, ", "), more)
-}
-
-// checkUnique reports duplicate unit ids: how many rows repeat an id seen
-// before, and one such id. It sorts a copy rather than filling a map:
-// cheaper for millions of ids.
-func checkUnique(c *warehouse.Cohort) error {
-	dups, example := 0, ""
-	if c.IDKind == warehouse.IDInt {
-		ids := slices.Clone(c.IntIDs)
-		slices.Sort(ids)
-		for i := 1; i < len(ids); i++ {
-			if ids[i] == ids[i-1] {
-				if dups == 0 {
-					example = strconv.FormatInt(ids[i], 10)
-				}
-				dups++
-			}
-		}
-	} else {
-		ids := slices.Clone(c.TextIDs)
-		slices.Sort(ids)
-		for i := 1; i < len(ids); i++ {
-			if ids[i] == ids[i-1] {
-				if dups == 0 {
-					example = strconv.Quote(ids[i])
-				}
-				dups++
-			}
-		}
-	}
-	if dups > 0 {
-		return fmt.Errorf("%w: unit column %s has %s (for example %s); the cohort must have one row per unit — check the joins in cohort.sql",
-			warehouse.ErrBadInput, c.Unit, plural(dups, "duplicate value"), example)
-	}
-	return nil
-}
-
-func plural(n int, what string) string {
-	if n == 1 {
-		return "1 " + what
-	}
-	return strconv.Itoa(n) + " " + what + "s"
 }
 
 // skipCol receives a column the study does not use.
@@ -454,7 +378,7 @@ func (c *numCol) finiteCheck(name string) func(func(int) string) error {
 	return func(unit func(int) string) error {
 		if c.nonFinite > 0 {
 			return fmt.Errorf("%w: column %s has %s (for example at unit %s); replace or filter them in cohort.sql",
-				warehouse.ErrBadInput, name, plural(c.nonFinite, "NaN or infinite value"), unit(c.firstBad))
+				warehouse.ErrBadInput, name, warehouse.Plural(c.nonFinite, "NaN or infinite value"), unit(c.firstBad))
 		}
 		return nil
 	}
@@ -581,7 +505,7 @@ func (c *catCol) finiteCheck(name string) func(func(int) string) error {
 	return func(unit func(int) string) error {
 		if c.nonFinite > 0 {
 			return fmt.Errorf("%w: column %s has %s (for example at unit %s); replace or filter them in cohort.sql",
-				warehouse.ErrBadInput, name, plural(c.nonFinite, "NaN or infinite value"), unit(c.firstBad))
+				warehouse.ErrBadInput, name, warehouse.Plural(c.nonFinite, "NaN or infinite value"), unit(c.firstBad))
 		}
 		return nil
 	}
@@ -590,47 +514,11 @@ func (c *catCol) finiteCheck(name string) func(func(int) string) error {
 // finish sorts the levels and renumbers the codes so that Levels[0], the
 // reference level, is the smallest.
 func (c *catCol) finish() ([]string, []int32) {
-	levels, remap := sortLevels(c.levels)
+	levels, remap := warehouse.LevelOrder(c.levels)
 	for i, code := range c.codes {
 		c.codes[i] = remap[code]
 	}
 	return levels, c.codes
-}
-
-// sortLevels orders levels ascending: numerically when every level is a
-// finite number (ties, such as "1" and "1.0", bytewise), else bytewise,
-// which also puts false before true. remap[old code] is the new code.
-func sortLevels(levels []string) (sorted []string, remap []int32) {
-	nums := make([]float64, len(levels))
-	numeric := true
-	for i, l := range levels {
-		f, err := strconv.ParseFloat(l, 64)
-		if err != nil || math.IsNaN(f) || math.IsInf(f, 0) {
-			numeric = false
-			break
-		}
-		nums[i] = f
-	}
-	order := make([]int, len(levels))
-	for i := range order {
-		order[i] = i
-	}
-	slices.SortFunc(order, func(a, b int) int {
-		if numeric && nums[a] != nums[b] {
-			if nums[a] < nums[b] {
-				return -1
-			}
-			return 1
-		}
-		return strings.Compare(levels[a], levels[b])
-	})
-	sorted = make([]string, len(levels))
-	remap = make([]int32, len(levels))
-	for newCode, old := range order {
-		sorted[newCode] = levels[old]
-		remap[old] = int32(newCode)
-	}
-	return sorted, remap
 }
 
 // pow10 holds the exactly representable powers of ten.

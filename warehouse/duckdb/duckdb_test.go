@@ -454,13 +454,13 @@ func TestSortLevels(t *testing.T) {
 		{[]string{"NaN", "1"}, []string{"1", "NaN"}},
 	}
 	for _, tt := range tests {
-		got, remap := sortLevels(tt.in)
+		got, remap := warehouse.LevelOrder(tt.in)
 		if !slices.Equal(got, tt.want) {
-			t.Errorf("sortLevels(%q) = %q, want %q", tt.in, got, tt.want)
+			t.Errorf("warehouse.LevelOrder(%q) = %q, want %q", tt.in, got, tt.want)
 		}
 		for old, nw := range remap {
 			if got[nw] != tt.in[old] {
-				t.Errorf("sortLevels(%q): remap %d→%d names %q", tt.in, old, nw, got[nw])
+				t.Errorf("warehouse.LevelOrder(%q): remap %d→%d names %q", tt.in, old, nw, got[nw])
 			}
 		}
 	}

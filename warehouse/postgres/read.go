@@ -35,7 +35,7 @@ const cohortStmt = "counterpart_cohort"
 // decimal text, parsed to the nearest float64; date as days since
 // 1970-01-01 (ISO text when listed as categorical); enum as text.
 func (w *Warehouse) ReadCohort(ctx context.Context, q warehouse.CohortQuery) (*warehouse.Cohort, error) {
-	if err := checkRoles(q); err != nil {
+	if err := warehouse.CheckRoles(q); err != nil {
 		return nil, err
 	}
 	if strings.TrimSpace(strings.Trim(q.SQL, "; \t\r\n")) == "" {
@@ -145,48 +145,6 @@ func (w *Warehouse) columnTypes(ctx context.Context, fields []pgconn.FieldDescri
 		}
 	}
 	return types, nil
-}
-
-// checkRoles rejects a query description that names a column for two
-// roles or lists a categorical that is not a covariate (the same rules as
-// the DuckDB engine).
-func checkRoles(q warehouse.CohortQuery) error {
-	if q.Unit == "" || q.Treatment == "" {
-		return fmt.Errorf("%w: cohort.unit and cohort.treatment must both name a column", warehouse.ErrBadInput)
-	}
-	role := map[string]string{}
-	add := func(name, r string) error {
-		if name == "" {
-			return fmt.Errorf("%w: cohort.%s has an empty column name", warehouse.ErrBadInput, r)
-		}
-		if prev, ok := role[strings.ToLower(name)]; ok {
-			return fmt.Errorf("%w: column %s is named as %s and as %s; give each column one role", warehouse.ErrBadInput, name, prev, r)
-		}
-		role[strings.ToLower(name)] = r
-		return nil
-	}
-	if err := add(q.Unit, "unit"); err != nil {
-		return err
-	}
-	if err := add(q.Treatment, "treatment"); err != nil {
-		return err
-	}
-	for _, c := range q.Covariates {
-		if err := add(c, "covariate"); err != nil {
-			return err
-		}
-	}
-	for _, o := range q.Outcomes {
-		if err := add(o, "outcome"); err != nil {
-			return err
-		}
-	}
-	for _, c := range q.Categorical {
-		if role[strings.ToLower(c)] != "covariate" {
-			return fmt.Errorf("%w: cohort.categorical lists %s, which is not in cohort.covariates", warehouse.ErrBadInput, c)
-		}
-	}
-	return nil
 }
 
 // firstKeyword returns the first word of an SQL text in upper case,

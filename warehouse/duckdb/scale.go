@@ -21,7 +21,7 @@ var _ warehouse.InWarehouse = (*Warehouse)(nil)
 // readOnlyQuery runs fn inside BEGIN TRANSACTION READ ONLY (rolled back)
 // after checking that q.SQL is a single SELECT.
 func (w *Warehouse) readOnlyQuery(ctx context.Context, q warehouse.CohortQuery, fn func() error) error {
-	if err := checkRoles(q); err != nil {
+	if err := warehouse.CheckRoles(q); err != nil {
 		return err
 	}
 	if _, err := w.exec(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
@@ -213,7 +213,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 	if err := w.writable("score into"); err != nil {
 		return err
 	}
-	if err := checkRoles(q); err != nil {
+	if err := warehouse.CheckRoles(q); err != nil {
 		return err
 	}
 	if err := w.checkSelect(ctx, q.SQL); err != nil {

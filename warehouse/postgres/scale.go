@@ -24,7 +24,7 @@ var _ warehouse.InWarehouse = (*Warehouse)(nil)
 
 // readOnlyQuery runs fn inside BEGIN READ ONLY, always rolled back.
 func (w *Warehouse) readOnlyQuery(ctx context.Context, q warehouse.CohortQuery, fn func() error) error {
-	if err := checkRoles(q); err != nil {
+	if err := warehouse.CheckRoles(q); err != nil {
 		return err
 	}
 	if strings.TrimSpace(strings.Trim(q.SQL, "; \t\r\n")) == "" {
@@ -183,7 +183,7 @@ func (w *Warehouse) ScoreInto(ctx context.Context, out warehouse.Output, runID s
 	if err := w.writable("score into"); err != nil {
 		return err
 	}
-	if err := checkRoles(q); err != nil {
+	if err := warehouse.CheckRoles(q); err != nil {
 		return err
 	}
 	c, err := warehouse.NewContract(out)

@@ -268,12 +268,17 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
 	prep := balance.Prepare(d.vars, z, false)
+	// The score itself is reported beside the covariates (its SMD and
+	// variance ratio show residual imbalance along the propensity) but
+	// not gated: the gate judges the covariates the analyst chose.
+	scorePrep := balance.Prepare([]balance.Variable{{Name: "logit_ps", Values: fit.Logit}}, z, false)
 	var diagAdj []NamedWeights
 	adjust := func(name string, w []float64) {
 		diagAdj = append(diagAdj, NamedWeights{Name: name, W: w})
 		st := prep.Compute(w)
 		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
 		ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
+		ab.Score = &toStats(scorePrep.Compute(w))[0]
 		if w != nil {
 			ab.ESSTreated = Num(weights.ESS(w, z, true))
 			ab.ESSControl = Num(weights.ESS(w, z, false))

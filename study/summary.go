@@ -102,6 +102,8 @@ type AdjustmentBalance struct {
 	ESSTreated    Num      `json:"ess_treated"`
 	ESSControl    Num      `json:"ess_control"`
 	Stats         []Stat   `json:"variables"`
+	// Score is the balance of logit(ps) itself (reported, not gated).
+	Score *Stat `json:"score,omitempty"`
 }
 
 // Stat is one variable's balance row.

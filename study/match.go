@@ -172,9 +172,36 @@ func matchUnits(in matchInput) ([]assign.Set, *Churn, error) {
 	if err != nil {
 		return nil, nil, err
 	}
+	metric, err := distanceMetric(in.spec, in.cohort)
+	if err != nil {
+		return nil, nil, err
+	}
+	if metric.Kind != assign.Logit && in.width == 0 {
+		// The spec demands caliper > 0; a zero pooled SD of the logit
+		// (a constant score) still leaves no window.
+		return nil, nil, fmt.Errorf("match: %s distance needs a caliper, but the pooled SD of logit(ps) is 0", metric.Kind)
+	}
+	if metric.Kind != assign.Logit && len(kept) > 0 {
+		// Kept sets are re-measured in this run's metric, so the distance
+		// column never mixes scales.
+		var pairs [][2]int
+		for _, set := range kept {
+			for _, c := range set.Controls {
+				pairs = append(pairs, [2]int{set.Treated, c})
+			}
+		}
+		d, err := metric.Distances(in.logit, z, in.eligible, pairs)
+		if err != nil {
+			return nil, nil, fmt.Errorf("keep prior: %w", err)
+		}
+		for k := range kept {
+			kept[k].Distances = d[:len(kept[k].Controls):len(kept[k].Controls)]
+			d = d[len(kept[k].Controls):]
+		}
+	}
 	opt := assign.Options{
 		Controls: in.spec.Matching.Controls, Reuse: in.spec.Matching.Reuse, Caliper: in.width,
-		Order: order, Seed: in.spec.Matching.Seed,
+		Order: order, Seed: in.spec.Matching.Seed, Metric: metric,
 	}
 	var fresh []assign.Set
 	if in.spec.Matching.Algorithm == "optimal" {
@@ -200,6 +227,58 @@ func matchUnits(in matchInput) ([]assign.Set, *Churn, error) {
 		churn.New = len(fresh)
 	}
 	return append(kept, fresh...), churn, nil
+}
+
+// distanceMetric builds the matching distance of the spec from the cohort:
+// the zero Metric for logit, else the matching.distance_on covariates
+// (default: every numeric covariate), each categorical one as 0/1
+// indicators of its non-reference levels (the same coding as the model).
+func distanceMetric(s *Spec, c *warehouse.Cohort) (assign.Metric, error) {
+	if s.Matching.Distance == "" || s.Matching.Distance == "logit" {
+		return assign.Metric{}, nil
+	}
+	kind, err := assign.ParseMetric(s.Matching.Distance)
+	if err != nil {
+		return assign.Metric{}, err
+	}
+	names := s.Matching.DistanceOn
+	if len(names) == 0 {
+		for _, cov := range c.Covariates {
+			if cov.Kind == warehouse.Numeric {
+				names = append(names, cov.Name)
+			}
+		}
+	}
+	m := assign.Metric{Kind: kind}
+	for _, name := range names {
+		found := false
+		for _, cov := range c.Covariates {
+			if cov.Name != name {
+				continue
+			}
+			found = true
+			if cov.Kind == warehouse.Numeric {
+				m.X = append(m.X, cov.Values)
+				continue
+			}
+			for l := 1; l < len(cov.Levels); l++ {
+				ind := make([]float64, c.N())
+				for i, code := range cov.Codes {
+					if int(code) == l {
+						ind[i] = 1
+					}
+				}
+				m.X = append(m.X, ind)
+			}
+		}
+		if !found {
+			return assign.Metric{}, fmt.Errorf("match: %w: matching.distance_on names %q, which the cohort does not hold", warehouse.ErrBadInput, name)
+		}
+	}
+	if len(m.X) == 0 {
+		return assign.Metric{}, fmt.Errorf("match: %w: the %s distance has no covariate columns (no numeric covariate, or only constant categorical ones); set matching.distance_on", warehouse.ErrBadInput, kind)
+	}
+	return m, nil
 }
 
 // keepPrior returns the prior sets that still hold: every member is in the

@@ -82,6 +82,10 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		}
 		defer unlock()
 	}
+	if s.Score.FitIn == "warehouse" {
+		iw, _ := wh.(warehouse.InWarehouse)
+		return runInWarehouse(ctx, s, wh, iw, opt, sum)
+	}
 
 	stage("read")
 	c, err := wh.ReadCohort(ctx, warehouse.CohortQuery{

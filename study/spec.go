@@ -63,6 +63,13 @@ type ScoreSpec struct {
 	Model   string  `yaml:"model" json:"model"`
 	Lambda  float64 `yaml:"lambda" json:"lambda"`
 	MaxIter int     `yaml:"max_iter" json:"max_iter"`
+	// FitIn says where the model is fitted and the per-unit rows are
+	// computed: "memory" (the default) reads the cohort into the
+	// process; "warehouse" fits with one aggregate query per Newton step
+	// and writes scores, weights and the cohort snapshot with INSERT …
+	// SELECT, so the covariate matrix never leaves the engine (the engine
+	// must implement warehouse.InWarehouse).
+	FitIn string `yaml:"fit_in" json:"fit_in"`
 }
 
 // MatchingSpec configures matching.
@@ -85,6 +92,16 @@ type MatchingSpec struct {
 	// Subclasses is the number of propensity-score subclasses of
 	// algorithm strata (0: 5, Cochran 1968).
 	Subclasses int `yaml:"subclasses" json:"subclasses,omitempty"`
+	// Distance ranks the comparison units inside the caliper: logit
+	// (|difference of logit(ps)|, the default), mahalanobis or
+	// rank_mahalanobis on the DistanceOn covariates. The caliper on
+	// logit(ps) still decides which pairs may match (Rosenbaum & Rubin
+	// 1985, Am Stat 39:33).
+	Distance string `yaml:"distance" json:"distance"`
+	// DistanceOn lists the covariates of a Mahalanobis distance (empty:
+	// every numeric covariate); categorical ones enter as indicators of
+	// their non-reference levels.
+	DistanceOn []string `yaml:"distance_on" json:"distance_on,omitempty"`
 }
 
 // BalanceSpec is the balance gate.
@@ -158,9 +175,11 @@ const (
 var (
 	engines    = []string{"duckdb", "postgres"}
 	models     = []string{"logistic", "ridge"}
+	fitIns     = []string{"memory", "warehouse"}
 	supports   = []string{"none", "minmax", "crump"}
 	algorithms = []string{"greedy", "optimal", "full", "strata", "off"}
 	orders     = []string{"high-score-first", "low-score-first", "random", "input"}
+	distances  = []string{"logit", "mahalanobis", "rank_mahalanobis"}
 	schemes    = []string{"att", "ate", "atc", "overlap", "matching"}
 	onFails    = []string{"reject", "warn"}
 	estimands  = []string{"att", "ate", "atc", "ato", "atm"}
@@ -507,6 +526,9 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if err := enum("support", &s.Support, "none", supports); err != nil {
 		return err
 	}
+	if err := enum("score.fit_in", &s.Score.FitIn, "memory", fitIns); err != nil {
+		return err
+	}
 	m := &s.Matching
 	if err := enum("matching.algorithm", &m.Algorithm, "greedy", algorithms); err != nil {
 		return err
@@ -542,6 +564,9 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	}
 	if m.Subclasses < 0 || m.Subclasses == 1 {
 		return bad("matching.subclasses", "%d subclasses is not allowed; give at least 2 (0 picks 5)", m.Subclasses)
+	}
+	if err := m.validateDistance(c, used, bad); err != nil {
+		return err
 	}
 	if !present(doc, "matching.seed") {
 		m.Seed = DefaultSeed
@@ -594,6 +619,9 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if scheme := s.PrimaryScheme(); scheme != "" && !seenScheme[scheme] {
 		s.Weighting = append(s.Weighting, scheme)
 	}
+	if err := s.validateFitIn(doc); err != nil {
+		return err
+	}
 	o := &s.Output
 	if o.Schema == "" {
 		if s.Warehouse.Engine == "postgres" {
@@ -621,6 +649,45 @@ func (s *Spec) validate(doc *yaml.Node) error {
 }
 
 // schemeFor maps an estimand to the weighting scheme that targets it.
+// validateDistance checks matching.distance and matching.distance_on:
+// a Mahalanobis distance needs greedy or optimal matching (the ones that
+// take assign.Metric) and a caliper > 0 (which bounds the candidates each
+// treated unit compares), and its covariates must be cohort covariates.
+func (m *MatchingSpec) validateDistance(c *CohortSpec, used map[string]string, bad func(key, format string, args ...any) error) error {
+	if m.Distance == "" {
+		m.Distance = "logit"
+	}
+	if !oneOf(m.Distance, distances) {
+		return bad("matching.distance", "%q is not one of %s", m.Distance, strings.Join(distances, " | "))
+	}
+	if m.Distance == "logit" {
+		if len(m.DistanceOn) > 0 {
+			return bad("matching.distance_on", "only applies with distance: mahalanobis or rank_mahalanobis (distance is logit)")
+		}
+		return nil
+	}
+	if m.Algorithm != "greedy" && m.Algorithm != "optimal" {
+		return bad("matching.distance", "%s distance works with algorithm greedy or optimal only, not %s; use distance: logit", m.Distance, m.Algorithm)
+	}
+	if m.Caliper == 0 {
+		return bad("matching.caliper", "%s distance needs a propensity caliper > 0 (it bounds which pairs may match); 0.2 is usual", m.Distance)
+	}
+	seen := map[string]bool{}
+	for _, col := range m.DistanceOn {
+		if used[col] != "cohort.covariates" {
+			return bad("matching.distance_on", "%q is not listed in cohort.covariates", col)
+		}
+		if seen[col] {
+			return bad("matching.distance_on", "%q is listed twice", col)
+		}
+		seen[col] = true
+	}
+	if len(m.DistanceOn) == 0 && len(c.Categorical) >= len(c.Covariates) {
+		return bad("matching.distance_on", "missing; every covariate is categorical, so name the covariates of the %s distance", m.Distance)
+	}
+	return nil
+}
+
 var schemeFor = map[string]string{"att": "att", "ate": "ate", "atc": "atc", "ato": "overlap", "atm": "matching"}
 
 // estimandOf maps a weighting scheme to the estimand it targets.
@@ -696,4 +763,36 @@ func (s *Spec) OutputTarget() warehouse.Output {
 		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: c, Kind: kind})
 	}
 	return out
+}
+
+// validateFitIn rejects the options warehouse-scale mode does not carry
+// out: everything that needs the covariate matrix or per-unit outcomes in
+// the process (augmented estimates, the bootstrap's refits, weight rules
+// computed over the weight distribution), matching that is not a 1:k
+// greedy or optimal match, and reuse (whose Abadie–Imbens variance needs
+// per-unit outcomes). The engine's support for InWarehouse is checked
+// when the run opens it.
+func (s *Spec) validateFitIn(doc *yaml.Node) error {
+	if s.Score.FitIn != "warehouse" {
+		return nil
+	}
+	bad := func(key, what string) error {
+		return &SpecError{Path: s.Path, Line: lineOf(doc, key), Msg: key + ": " + what + " is not available with score.fit_in: warehouse; remove it or use fit_in: memory"}
+	}
+	m := s.Matching
+	switch {
+	case m.Algorithm == "full" || m.Algorithm == "strata":
+		return bad("matching.algorithm", m.Algorithm+" matching")
+	case m.KeepPrior:
+		return bad("matching.keep_prior", "keeping prior sets")
+	case m.Reuse:
+		return bad("matching.reuse", "matching with reuse")
+	case s.Estimate.Augment:
+		return bad("estimate.augment", "the augmented estimator")
+	case s.Estimate.Bootstrap > 0:
+		return bad("estimate.bootstrap", "the bootstrap")
+	case s.Rules.Stabilize || len(s.Rules.Percentiles) > 0 || len(s.Rules.Bounds) > 0:
+		return bad("weight_rules", "a weight rule")
+	}
+	return nil
 }

@@ -18,6 +18,9 @@ func CheckPublication(out Output, p *Publication) error {
 		return fmt.Errorf("run %s: final status %q is not one of succeeded, rejected, failed, skipped", p.Run.RunID, p.Run.Status)
 	}
 	c := p.Cohort
+	if p.InTx != nil {
+		return checkInTx(out, p)
+	}
 	if c == nil {
 		if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+p.Matches.Len()+len(p.Weights) > 0 {
 			return errors.New("rows given without their cohort")
@@ -86,6 +89,40 @@ func CheckPublication(out Output, p *Publication) error {
 	for i, wc := range p.Weights {
 		if len(wc) != n {
 			return fmt.Errorf("weights: scheme %s has %d values for %d units", out.Schemes[i], len(wc), n)
+		}
+	}
+	return nil
+}
+
+// checkInTx checks a warehouse-scale publication: the engine writes only
+// its matches (and effects) from memory, so only the unit ids the match
+// rows point at are needed.
+func checkInTx(out Output, p *Publication) error {
+	if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+len(p.Weights) > 0 {
+		return errors.New("a publication with InTx writes scores and weights inside the engine; PS, LogitPS, InSupport and Weights must be empty")
+	}
+	m := p.Matches
+	if m.Len() == 0 {
+		return nil
+	}
+	c := p.Cohort
+	if c == nil {
+		return errors.New("match rows given without the unit ids they point at")
+	}
+	n := len(c.IntIDs)
+	if c.IDKind == IDText {
+		n = len(c.TextIDs)
+	}
+	if c.IDKind != out.IDKind || c.Unit != out.Unit {
+		return fmt.Errorf("cohort unit %s differs from the output's %s", c.Unit, out.Unit)
+	}
+	k := m.Len()
+	if len(m.Unit) != k || len(m.Treated) != k || len(m.SetWeight) != k || len(m.Distance) != k {
+		return fmt.Errorf("matches: columns of unequal length")
+	}
+	for i, u := range m.Unit {
+		if u < 0 || u >= n {
+			return fmt.Errorf("matches: row %d names unit index %d of %d", i, u, n)
 		}
 	}
 	return nil

@@ -78,6 +78,20 @@
 // order of 100 s on one core. Optimal grows more gently (see the
 // benchmarks in bench_test.go).
 //
+// # Mahalanobis distance inside a propensity caliper
+//
+// Options.Metric (zero value: the score distance above, unchanged) makes
+// Greedy and Optimal rank the controls inside the caliper by a Mahalanobis
+// or rank-based Mahalanobis distance on chosen covariates (Rosenbaum &
+// Rubin 1985, Am Stat 39:33; Rosenbaum 2010, Design of Observational
+// Studies, §8.3); see Metric for the covariance used. The caliper on the
+// score still decides which pairs may match, so it is required. Greedy
+// then compares each treated unit with every unused control in its
+// caliper window (O(window p²) per treated unit); Optimal puts every
+// within-caliper pair into the network, which makes its certificate
+// complete without widening rounds, and refuses above Metric.MaxPairs
+// pairs (default 25 million).
+//
 // # What this package must not do
 //
 // It is a pure function of plain slices. It must not touch databases, files,

@@ -80,6 +80,9 @@ type Options struct {
 	// Seed seeds the PCG generator (rand.NewPCG(Seed, 0)) for Order Random;
 	// it is ignored by the other orders.
 	Seed uint64
+	// Metric chooses the distance that ranks controls inside the caliper;
+	// the zero value is the score distance (see Metric).
+	Metric Metric
 }
 
 func (o Options) validate() error {
@@ -92,7 +95,7 @@ func (o Options) validate() error {
 	if o.Order < 0 || int(o.Order) >= len(orderNames) {
 		return fmt.Errorf("option Order = %d: not a known order: %w", int(o.Order), ErrOption)
 	}
-	return nil
+	return o.Metric.validate(o.Caliper)
 }
 
 // Set is one matched set: a treated unit and its controls.
@@ -104,7 +107,8 @@ type Set struct {
 	// Controls are the controls' indexes, nearest first (ties by lower
 	// index). It holds between 1 and Options.Controls entries.
 	Controls []int
-	// Distances[j] = |score[Treated] - score[Controls[j]]|.
+	// Distances[j] = |score[Treated] - score[Controls[j]]|, or with a
+	// Mahalanobis Options.Metric the metric distance of the pair.
 	Distances []float64
 }
 
@@ -144,6 +148,9 @@ func Greedy(score []float64, treated []bool, stratum []int32, eligible []bool, o
 	}
 	if err := opt.validate(); err != nil {
 		return nil, fmt.Errorf("greedy matching: %w", err)
+	}
+	if opt.Metric.Kind != Logit {
+		return greedyMetric(score, treated, stratum, eligible, opt)
 	}
 
 	nt, nc := 0, 0

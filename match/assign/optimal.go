@@ -60,6 +60,9 @@ func Optimal(score []float64, treated []bool, stratum []int32, eligible []bool, 
 	if opt.Reuse {
 		return nil, Certificate{}, fmt.Errorf("optimal matching: option Reuse is not supported (optimal matching uses each control once): %w", ErrOption)
 	}
+	if opt.Metric.Kind != Logit {
+		return optimalMetric(start, score, treated, stratum, eligible, opt)
+	}
 	strata, err := collect("Optimal", score, treated, stratum, eligible)
 	if err != nil {
 		return nil, Certificate{}, fmt.Errorf("optimal matching: %w", err)

@@ -58,16 +58,8 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 		return err
 	}
 
-	m := p.Matches
-	matches := []bulkTarget{
-		{name: "set_id", col: &bulkCol{i64: m.SetID, kind: duckdb.TYPE_BIGINT}},
-		{name: out.Unit, col: unitCol(m.Unit)},
-		{name: "treated", col: boolean(m.Treated)},
-		{name: "set_weight", col: f64(m.SetWeight)},
-		{name: "match_distance", col: f64(m.Distance)},
-	}
-	if m.Len() > 0 {
-		if err := w.insertBulk(ctx, o.c.Schema, o.c.Matches.Name, run, matches, m.Len()); err != nil {
+	if p.Matches.Len() > 0 {
+		if err := w.appendMatches(ctx, o, out, p); err != nil {
 			return err
 		}
 	}
@@ -83,4 +75,21 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 		return err
 	}
 	return w.step("weights")
+}
+
+// appendMatches writes p's match rows; their unit ids come from p.Cohort.
+func (w *Warehouse) appendMatches(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+	c, m := p.Cohort, p.Matches
+	unit := &bulkCol{s: c.TextIDs, idx: m.Unit, kind: duckdb.TYPE_VARCHAR}
+	if c.IDKind == warehouse.IDInt {
+		unit = &bulkCol{i64: c.IntIDs, idx: m.Unit, kind: duckdb.TYPE_BIGINT}
+	}
+	matches := []bulkTarget{
+		{name: "set_id", col: &bulkCol{i64: m.SetID, kind: duckdb.TYPE_BIGINT}},
+		{name: out.Unit, col: unit},
+		{name: "treated", col: &bulkCol{b: m.Treated, kind: duckdb.TYPE_BOOLEAN}},
+		{name: "set_weight", col: &bulkCol{f64: m.SetWeight, kind: duckdb.TYPE_DOUBLE}},
+		{name: "match_distance", col: &bulkCol{f64: m.Distance, kind: duckdb.TYPE_DOUBLE}},
+	}
+	return w.insertBulk(ctx, o.c.Schema, o.c.Matches.Name, p.Run.RunID, matches, m.Len())
 }

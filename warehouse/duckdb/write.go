@@ -345,6 +345,24 @@ func (w *Warehouse) step(name string) error {
 }
 
 func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+	if p.InTx != nil {
+		// Warehouse-scale mode: matches from memory, then the caller's
+		// INSERT … SELECT statements, which may settle the run's status.
+		if p.Matches.Len() > 0 {
+			if err := w.appendMatches(ctx, o, out, p); err != nil {
+				return err
+			}
+		}
+		if err := w.step("matches"); err != nil {
+			return err
+		}
+		if err := p.InTx(ctx); err != nil {
+			return fmt.Errorf("in-warehouse rows: %w", err)
+		}
+		if err := w.step("in-warehouse"); err != nil {
+			return err
+		}
+	}
 	r := p.Run
 	finished := r.FinishedAt
 	if finished.IsZero() {
@@ -362,7 +380,7 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	if err := w.step("runs"); err != nil {
 		return err
 	}
-	if p.Cohort != nil {
+	if p.Cohort != nil && p.InTx == nil {
 		if err := w.appendAll(ctx, o, out, p); err != nil {
 			return err
 		}
@@ -408,6 +426,9 @@ func checkPublication(out warehouse.Output, p *warehouse.Publication) error {
 		return fmt.Errorf("run %s: final status %q is not one of succeeded, rejected, failed, skipped", p.Run.RunID, p.Run.Status)
 	}
 	c := p.Cohort
+	if p.InTx != nil {
+		return warehouse.CheckPublication(out, p)
+	}
 	if c == nil {
 		if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+p.Matches.Len()+len(p.Weights) > 0 {
 			return errors.New("rows given without their cohort")

@@ -131,13 +131,11 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 	c := p.Cohort
 	run := copyCol{"run_id", constText(p.Run.RunID)}
 	// unit writes cohort unit i; matchUnit the unit of match row i.
-	var unit, matchUnit field
+	var unit field
 	if c.IDKind == warehouse.IDInt {
 		unit = int64Field(func(i int) int64 { return c.IntIDs[i] })
-		matchUnit = int64Field(func(i int) int64 { return c.IntIDs[p.Matches.Unit[i]] })
 	} else {
 		unit = textField(func(i int) string { return c.TextIDs[i] })
-		matchUnit = textField(func(i int) string { return c.TextIDs[p.Matches.Unit[i]] })
 	}
 
 	cohort := []copyCol{run, {out.Unit, unit}, {out.Treatment, boolField(c.Treated)}}
@@ -178,15 +176,7 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 		return err
 	}
 
-	m := p.Matches
-	matches := []copyCol{run,
-		{"set_id", int64Field(func(i int) int64 { return m.SetID[i] })},
-		{out.Unit, matchUnit},
-		{"treated", boolField(m.Treated)},
-		{"set_weight", floatField(m.SetWeight)},
-		{"match_distance", floatField(m.Distance)},
-	}
-	if err := w.copyRows(ctx, o.c.Schema, o.c.Matches.Name, matches, m.Len()); err != nil {
+	if err := w.copyMatches(ctx, o, out, p); err != nil {
 		return err
 	}
 	if err := w.step("matches"); err != nil {
@@ -201,4 +191,27 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 		return err
 	}
 	return w.step("weights")
+}
+
+// copyMatches writes p's match rows; their unit ids come from p.Cohort.
+func (w *Warehouse) copyMatches(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+	m := p.Matches
+	if m.Len() == 0 {
+		return nil
+	}
+	c := p.Cohort
+	var matchUnit field
+	if c.IDKind == warehouse.IDInt {
+		matchUnit = int64Field(func(i int) int64 { return c.IntIDs[m.Unit[i]] })
+	} else {
+		matchUnit = textField(func(i int) string { return c.TextIDs[m.Unit[i]] })
+	}
+	matches := []copyCol{{"run_id", constText(p.Run.RunID)},
+		{"set_id", int64Field(func(i int) int64 { return m.SetID[i] })},
+		{out.Unit, matchUnit},
+		{"treated", boolField(m.Treated)},
+		{"set_weight", floatField(m.SetWeight)},
+		{"match_distance", floatField(m.Distance)},
+	}
+	return w.copyRows(ctx, o.c.Schema, o.c.Matches.Name, matches, m.Len())
 }

@@ -352,6 +352,22 @@ func (w *Warehouse) step(name string) error {
 }
 
 func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+	if p.InTx != nil {
+		// Warehouse-scale mode: matches from memory, then the caller's
+		// INSERT … SELECT statements, which may settle the run's status.
+		if err := w.copyMatches(ctx, o, out, p); err != nil {
+			return err
+		}
+		if err := w.step("matches"); err != nil {
+			return err
+		}
+		if err := p.InTx(ctx); err != nil {
+			return fmt.Errorf("in-warehouse rows: %w", err)
+		}
+		if err := w.step("in-warehouse"); err != nil {
+			return err
+		}
+	}
 	r := p.Run
 	finished := r.FinishedAt
 	if finished.IsZero() {
@@ -369,7 +385,7 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	if err := w.step("runs"); err != nil {
 		return err
 	}
-	if p.Cohort != nil {
+	if p.Cohort != nil && p.InTx == nil {
 		if err := w.copyAll(ctx, o, out, p); err != nil {
 			return err
 		}

@@ -1,0 +1,367 @@
+package study
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"sort"
+	"time"
+
+	"counterpart/match/balance"
+	"counterpart/match/score"
+	"counterpart/warehouse"
+)
+
+// runInWarehouse is Run for score.fit_in: warehouse. The covariate matrix
+// never leaves the engine:
+//
+//   - fit: Describe, then one Moments aggregate per Newton step
+//     (FitInWarehouse); support from LogitRange (SupportInWarehouse);
+//   - match: MatchInput brings id, treatment, stratum, logit and support
+//     flag per unit, and the existing greedy or optimal code matches in
+//     memory on those slices;
+//   - publish, one transaction: the runs row, the cohort snapshot by
+//     INSERT … SELECT from cohort.sql, scores and weights by ScoreInto,
+//     the matches from memory; then, inside the same transaction, balance
+//     is read back from the balance_history view and effects from
+//     aggregate sums (inWarehouseEffect), and they settle the run's
+//     status before the runs row is written.
+//
+// The summary carries no cohort fingerprint (it would need every row);
+// options needing per-unit data in the process are refused by the spec.
+func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw warehouse.InWarehouse, opt Options, sum *Summary) (*Summary, error) {
+	if iw == nil {
+		return sum, fmt.Errorf("score.fit_in: %w: engine %s does not run warehouse-scale mode; use fit_in: memory", warehouse.ErrBadInput, wh.Engine())
+	}
+	sp, ok := wh.(warehouse.ScalePublisher)
+	if !ok && !opt.DryRun {
+		return sum, fmt.Errorf("score.fit_in: %w: engine %s cannot publish in warehouse-scale mode; use fit_in: memory", warehouse.ErrBadInput, wh.Engine())
+	}
+	now := opt.Now
+	if now == nil {
+		now = time.Now
+	}
+	stage := func(name string) {
+		if opt.Stage != nil {
+			opt.Stage(name)
+		}
+	}
+	lap := now()
+	timed := func(name string) {
+		t := now()
+		sum.Timings[name] = t.Sub(lap).Seconds()
+		lap = t
+	}
+	q := warehouse.CohortQuery{SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
+		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical}
+
+	stage("fit")
+	model := score.Logistic
+	if s.Score.Model == "ridge" {
+		model = score.Ridge
+	}
+	fit, d, err := FitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+	if err != nil {
+		return sum, err
+	}
+	n, nt := fit.N, fit.NTreated
+	sum.Counts = Counts{Units: n, Treated: nt, Control: n - nt}
+	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
+		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik)}
+	for j, name := range fit.Names {
+		sum.Model.Terms = append(sum.Model.Terms, Term{Name: name, Coef: Num(fit.Coef[j]), SE: Num(fit.SE[j])})
+	}
+	sup, err := SupportInWarehouse(ctx, iw, q, d, fit.Coef, s.Support)
+	if err != nil {
+		return sum, err
+	}
+	timed("fit")
+
+	stage("match")
+	mi, err := iw.MatchInput(ctx, q, d, fit.Coef, sup, s.Matching.ExactOn)
+	if err != nil {
+		return sum, fmt.Errorf("match input: %w", err)
+	}
+	if len(mi.Treated) != n {
+		return sum, fmt.Errorf("match input: %d rows, the fit saw %d: the data changed during the run", len(mi.Treated), n)
+	}
+	sum.Model.CStatistic = Num(auc(mi.Logit, mi.Treated))
+	var keptT, keptC int
+	for i, in := range mi.InSupport {
+		if in {
+			if mi.Treated[i] {
+				keptT++
+			} else {
+				keptC++
+			}
+		}
+	}
+	sum.Support = Support{Rule: s.Support, Low: Num(logistic(sup.Low)), High: Num(logistic(sup.High)), Dropped: n - keptT - keptC}
+	sum.Counts.SupportTreated, sum.Counts.SupportControl = keptT, keptC
+	if keptT == 0 || keptC == 0 {
+		return sum, fmt.Errorf("support: %w: the %s rule leaves %d treated and %d comparison units; relax support", warehouse.ErrBadInput, s.Support, keptT, keptC)
+	}
+	// thin is the cohort as matching and the matches rows need it: ids
+	// and treatment only.
+	thin := &warehouse.Cohort{Unit: q.Unit, IDKind: mi.IDKind, IntIDs: mi.IntIDs, TextIDs: mi.TextIDs, Treatment: q.Treatment, Treated: mi.Treated}
+	var rows warehouse.MatchRows
+	var mw []float64
+	if s.Matching.Algorithm != "off" {
+		if rows, mw, err = matchInWarehouse(s, thin, mi, keptT, sum); err != nil {
+			return sum, err
+		}
+		timed("match")
+	}
+	if opt.DryRun {
+		sum.Status = "dry-run"
+		return sum, nil
+	}
+
+	stage("publish")
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
+		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes()}
+	for i, k := range d.CovKinds(q) {
+		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: q.Covariates[i], Kind: k})
+	}
+	c, err := warehouse.NewContract(out)
+	if err != nil {
+		return sum, fmt.Errorf("publish: %w", err)
+	}
+	rec := warehouse.RunRecord{
+		RunID: sum.RunID, Study: s.Study, Status: warehouse.StatusRunning, StartedAt: sum.StartedAt,
+		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256, SpecJSON: s.Redacted(), CohortSQL: s.Cohort.SQL,
+		Engine: wh.Engine(), DBUser: wh.User(ctx),
+	}
+	if err := wh.StartRun(ctx, out, rec); err != nil {
+		return sum, fmt.Errorf("start run: %w", err)
+	}
+	rec.Status = warehouse.StatusSucceeded
+	pub := &warehouse.Publication{Run: rec, Cohort: thin, Matches: rows}
+	pub.InTx = func(ctx context.Context) error {
+		if err := sp.SnapshotInto(ctx, out, sum.RunID, q, d); err != nil {
+			return err
+		}
+		if err := iw.ScoreInto(ctx, out, sum.RunID, q, d, fit.Coef, sup, s.Schemes()); err != nil {
+			return err
+		}
+		if err := balanceInWarehouse(ctx, sp, c, s, sum, thin.Treated, mw); err != nil {
+			return err
+		}
+		if err := effectsInWarehouse(ctx, sp, c, s, sum); err != nil {
+			return err
+		}
+		r := &pub.Run
+		if !sum.Gate.Pass {
+			if s.Balance.OnFail == "reject" {
+				r.Status, r.Message = warehouse.StatusRejected, sum.Gate.Message
+			} else {
+				r.Message = "balance warning: " + sum.Gate.Message
+			}
+		}
+		sum.Status, sum.Message = r.Status, r.Message
+		r.CountsJSON = mustJSON(sum.Counts)
+		r.ModelJSON = mustJSON(sum.Model)
+		r.BalanceJSON = mustJSON(struct {
+			Gate        Gate                `json:"gate"`
+			Adjustments []AdjustmentBalance `json:"adjustments"`
+		}{sum.Gate, sum.Balance})
+		r.EffectsJSON = mustJSON(sum.Effects)
+		r.FinishedAt = now().UTC()
+		sum.FinishedAt = r.FinishedAt
+		r.SummaryJSON = mustJSON(sum)
+		pub.Effects = effectRecords(sum.Effects)
+		return nil
+	}
+	if err := wh.Publish(ctx, out, pub); err != nil {
+		msg := err.Error()
+		fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+		defer cancel()
+		_ = wh.FailRun(fctx, out, sum.RunID, msg)
+		sum.Status = warehouse.StatusFailed
+		return sum, fmt.Errorf("publish: %w", err)
+	}
+	timed("publish")
+	if pub.Run.Status == warehouse.StatusRejected {
+		return sum, fmt.Errorf("%w: %s", ErrRejected, sum.Gate.Message)
+	}
+	return sum, nil
+}
+
+func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }
+
+// matchInWarehouse matches on MatchInput's slices with the in-memory
+// greedy or optimal code and returns the matches rows and each unit's
+// summed set weight (for the matched ESS).
+func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary) (warehouse.MatchRows, []float64, error) {
+	var rows warehouse.MatchRows
+	z := mi.Treated
+	sd := pooledSD(mi.Logit, z)
+	width := s.Matching.Caliper * sd
+	var st []int32
+	nstrata := 1
+	if len(s.Matching.ExactOn) > 0 {
+		st, nstrata = mi.Stratum, mi.Strata
+	}
+	ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
+		CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
+	var solver Solver
+	sets, _, err := matchUnits(matchInput{spec: s, cohort: thin, logit: mi.Logit, eligible: mi.InSupport, strata: st, width: width, solver: &solver})
+	if err != nil {
+		return rows, nil, badInput("match", err)
+	}
+	if s.Matching.Algorithm == "optimal" {
+		ms.Solver = &solver
+	}
+	groups := setsToGroups(sets)
+	mw := make([]float64, len(z))
+	used := map[int]bool{}
+	total := 0.0
+	matchedT := 0
+	for _, g := range groups {
+		for j, u := range append(append([]int(nil), g.treated...), g.controls...) {
+			isT := j < len(g.treated)
+			wt := g.wC
+			if isT {
+				wt = g.wT
+			}
+			dist := g.dist[j]
+			total += dist
+			rows.SetID = append(rows.SetID, int64(g.id))
+			rows.Unit = append(rows.Unit, u)
+			rows.Treated = append(rows.Treated, isT)
+			rows.SetWeight = append(rows.SetWeight, wt)
+			rows.Distance = append(rows.Distance, dist)
+			mw[u] += wt
+			if isT {
+				matchedT++
+			} else {
+				used[u] = true
+			}
+		}
+	}
+	ms.Sets = len(groups)
+	ms.TotalDistance = Num(total)
+	ms.MatchedTreated = matchedT
+	ms.UnmatchedTreated = keptT - matchedT
+	ms.MatchedControls = len(used)
+	sum.Matching = &ms
+	sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
+	if matchedT == 0 {
+		return rows, nil, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
+	}
+	return rows, mw, nil
+}
+
+// adjustmentNames lists the run's adjustments in the in-memory order.
+func adjustmentNames(s *Spec) []string {
+	names := []string{"unadjusted"}
+	if s.Matching.Algorithm != "off" {
+		names = append(names, "matched")
+	}
+	return append(names, s.Schemes()...)
+}
+
+func numOf(v any) float64 {
+	if f, ok := v.(float64); ok {
+		return f
+	}
+	return math.NaN()
+}
+
+func textOf(v any) string {
+	if t, ok := v.(string); ok {
+		return t
+	}
+	return ""
+}
+
+// balanceInWarehouse reads this run's rows of the balance_history view
+// (inside the publish transaction, so the rows just written are seen),
+// judges them with balance.Judge as the in-memory path does, and sets the
+// gate. ESS: unadjusted the arm sizes, matched from the summed set
+// weights, schemes (Σw)²/Σw² per arm from WeightSumsSQL.
+func balanceInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, s *Spec, sum *Summary, z []bool, mw []float64) error {
+	got, err := sp.QueryRows(ctx, warehouse.BalanceRowsSQL(c), sum.RunID)
+	if err != nil {
+		return fmt.Errorf("balance: %w", err)
+	}
+	pos := map[string]int{}
+	for i, name := range s.Cohort.Covariates {
+		pos[name] = i
+	}
+	byAdj := map[string][]balance.Stat{}
+	for _, r := range got {
+		st := balance.Stat{Name: textOf(r[0]), Level: textOf(r[1]), Binary: r[1] != nil,
+			MeanT: numOf(r[3]), MeanC: numOf(r[4]), SDT: numOf(r[5]), SDC: numOf(r[6]), SMD: numOf(r[7]), VarRatio: numOf(r[8])}
+		byAdj[textOf(r[2])] = append(byAdj[textOf(r[2])], st)
+	}
+	ess := map[string][2]float64{"unadjusted": {float64(sum.Counts.Treated), float64(sum.Counts.Control)}}
+	if mw != nil {
+		var sw, sw2 [2]float64
+		for i, w := range mw {
+			a := 0
+			if z[i] {
+				a = 1
+			}
+			sw[a] += w
+			sw2[a] += w * w
+		}
+		ess["matched"] = [2]float64{sw[1] * sw[1] / sw2[1], sw[0] * sw[0] / sw2[0]}
+	}
+	if schemes := s.Schemes(); len(schemes) > 0 {
+		text, err := warehouse.WeightSumsSQL(c, schemes)
+		if err != nil {
+			return err
+		}
+		ws, err := sp.QueryRows(ctx, text, sum.RunID)
+		if err != nil {
+			return fmt.Errorf("balance: weight sums: %w", err)
+		}
+		for k, name := range schemes {
+			var e [2]float64
+			for _, r := range ws {
+				a := 1
+				if t, _ := r[0].(bool); t {
+					a = 0
+				}
+				if s2 := numOf(r[2+2*k]); s2 > 0 {
+					e[a] = numOf(r[1+2*k]) * numOf(r[1+2*k]) / s2
+				}
+			}
+			ess[name] = e
+		}
+	}
+	for _, adj := range adjustmentNames(s) {
+		st := byAdj[adj]
+		sort.SliceStable(st, func(a, b int) bool {
+			if st[a].Name != st[b].Name {
+				return pos[st[a].Name] < pos[st[b].Name]
+			}
+			return levelLess(st[a].Level, st[b].Level)
+		})
+		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
+		sum.Balance = append(sum.Balance, AdjustmentBalance{Adjustment: adj, Pass: v.Pass, WorstSMD: Num(v.WorstSMD),
+			WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st),
+			ESSTreated: Num(ess[adj][0]), ESSControl: Num(ess[adj][1])})
+	}
+	sum.Gate = Gate{Adjustment: s.Primary(), OnFail: s.Balance.OnFail, Pass: true,
+		SMDLimit: Num(s.Balance.SMDLimit), VRLimit: Num(s.Balance.VarianceRatioLimit)}
+	for _, ab := range sum.Balance {
+		if ab.Adjustment == sum.Gate.Adjustment {
+			sum.Gate.Pass = ab.Pass
+			sum.Gate.WorstSMD, sum.Gate.WorstVariable = ab.WorstSMD, ab.WorstVariable
+			if !ab.Pass {
+				sum.Gate.Message = fmt.Sprintf("%s balance fails the limits (|SMD| < %g, variance ratio within 1/%g..%g): %s",
+					ab.Adjustment, s.Balance.SMDLimit, s.Balance.VarianceRatioLimit, s.Balance.VarianceRatioLimit, joinFirst(ab.Failures, 5))
+			}
+		}
+	}
+	return nil
+}
+
+// levelLess orders two levels as warehouse.SortLevels does.
+func levelLess(a, b string) bool {
+	l := []string{a, b}
+	warehouse.SortLevels(l, []int{0, 1})
+	return l[0] == a && a != b
+}

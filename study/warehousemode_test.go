@@ -1,0 +1,140 @@
+package study
+
+import (
+	"context"
+	"database/sql"
+	"fmt"
+	"math"
+	"path/filepath"
+	"sort"
+	"strings"
+	"testing"
+
+	_ "github.com/duckdb/duckdb-go/v2"
+
+	"counterpart/warehouse/duckdb"
+)
+
+// TestWarehouseModeMatchesMemory runs the benchmark study (BenchCohortSQL,
+// 3,000 units) in memory and in the warehouse on DuckDB and compares:
+// coefficients (1e-8 relative), matched sets (identical), weights (1e-10)
+// and every effect row (1e-9). The in-memory path is the reference:
+// match/score's fit, match/effect's estimators (checked elsewhere against
+// statsmodels and R sandwich); this test checks that the sums-only
+// formulas of inWarehouseEffect and the SQL weights are exact
+// rearrangements of them (common practice: compare two implementations).
+func TestWarehouseModeMatchesMemory(t *testing.T) {
+	ctx := context.Background()
+	dsn := filepath.Join(t.TempDir(), "wm.duckdb")
+	db, err := sql.Open("duckdb", dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := db.Exec(BenchCohortSQL(3000)); err != nil {
+		t.Fatal(err)
+	}
+	db.Close()
+	runs := map[string]*Summary{}
+	for _, mode := range []string{"memory", "warehouse"} {
+		text := fmt.Sprintf(BenchStudy, dsn)
+		text = strings.Replace(text, "select * from synth.cohort", "select * from synth.cohort order by unit_id", 1)
+		text = strings.Replace(text, "bench_run_", "m_"+mode+"_", 1)
+		text = strings.Replace(text, "support: minmax", "support: minmax\nscore:\n  fit_in: "+mode, 1)
+		s, err := Parse("bench.yaml", []byte(text), nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		wh, err := duckdb.Open(ctx, dsn)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sum, err := Run(ctx, s, wh, Options{})
+		wh.Close()
+		if err != nil {
+			t.Fatalf("%s: %v", mode, err)
+		}
+		runs[mode] = sum
+	}
+	mem, wh := runs["memory"], runs["warehouse"]
+	for j, tm := range mem.Model.Terms {
+		tw := wh.Model.Terms[j]
+		if tm.Name != tw.Name || relDiff(float64(tm.Coef), float64(tw.Coef)) > 1e-8 || relDiff(float64(tm.SE), float64(tw.SE)) > 1e-8 {
+			t.Errorf("term %d: memory %+v, warehouse %+v", j, tm, tw)
+		}
+	}
+	if len(mem.Effects) != len(wh.Effects) {
+		t.Fatalf("%d effect rows in memory, %d in the warehouse", len(mem.Effects), len(wh.Effects))
+	}
+	for i, em := range mem.Effects {
+		ew := wh.Effects[i]
+		if em.Outcome != ew.Outcome || em.Adjustment != ew.Adjustment || em.Contrast != ew.Contrast || em.Method != ew.Method ||
+			em.NTreated != ew.NTreated || em.NControl != ew.NControl || em.NMissing != ew.NMissing {
+			t.Errorf("effect row %d: memory %+v, warehouse %+v", i, em, ew)
+			continue
+		}
+		for _, p := range [][2]Num{{em.Estimate, ew.Estimate}, {em.SE, ew.SE}, {em.CILow, ew.CILow}, {em.CIHigh, ew.CIHigh}, {em.EValue, ew.EValue}} {
+			if relDiff(float64(p[0]), float64(p[1])) > 1e-9 {
+				t.Errorf("effect %s %s %s: memory %v, warehouse %v", em.Outcome, em.Adjustment, em.Contrast, p[0], p[1])
+			}
+		}
+	}
+	for i, bm := range mem.Balance {
+		bw := wh.Balance[i]
+		if bm.Adjustment != bw.Adjustment || bm.Pass != bw.Pass || relDiff(float64(bm.WorstSMD), float64(bw.WorstSMD)) > 1e-9 ||
+			relDiff(float64(bm.ESSTreated), float64(bw.ESSTreated)) > 1e-9 || relDiff(float64(bm.ESSControl), float64(bw.ESSControl)) > 1e-9 {
+			t.Errorf("balance %d: memory %s %v %v ESS %v/%v, warehouse %s %v %v ESS %v/%v", i, bm.Adjustment, bm.Pass, bm.WorstSMD, bm.ESSTreated, bm.ESSControl,
+				bw.Adjustment, bw.Pass, bw.WorstSMD, bw.ESSTreated, bw.ESSControl)
+		}
+	}
+
+	db, err = sql.Open("duckdb", dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer db.Close()
+	sets := func(prefix string) []string {
+		rows, err := db.Query(`SELECT string_agg(CAST(unit_id AS VARCHAR), ',' ORDER BY treated DESC, unit_id) FROM ` + prefix + `matches GROUP BY set_id`)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer rows.Close()
+		var out []string
+		for rows.Next() {
+			var s string
+			if err := rows.Scan(&s); err != nil {
+				t.Fatal(err)
+			}
+			out = append(out, s)
+		}
+		sort.Strings(out)
+		return out
+	}
+	sm, sw := sets("m_memory_"), sets("m_warehouse_")
+	if len(sm) == 0 || strings.Join(sm, ";") != strings.Join(sw, ";") {
+		t.Errorf("matched sets differ: %d in memory, %d in the warehouse", len(sm), len(sw))
+	}
+	var worst float64
+	var n int
+	err = db.QueryRow(`SELECT count(*), max(greatest(abs(a.att - b.att), abs(a.ate - b.ate), abs(a.overlap - b.overlap)) / greatest(abs(a.ate), 1))
+		FROM m_memory_weights a JOIN m_warehouse_weights b USING (unit_id)`).Scan(&n, &worst)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if n != 3000 || worst > 1e-10 {
+		t.Errorf("weights: %d units joined, worst relative difference %g", n, worst)
+	}
+	var cohortDiff int
+	if err := db.QueryRow(`SELECT count(*) FROM (SELECT * EXCLUDE (run_id) FROM m_memory_cohort EXCEPT SELECT * EXCLUDE (run_id) FROM m_warehouse_cohort)`).Scan(&cohortDiff); err != nil {
+		t.Fatal(err)
+	}
+	if cohortDiff != 0 {
+		t.Errorf("cohort snapshots differ in %d rows", cohortDiff)
+	}
+}
+
+func relDiff(a, b float64) float64 {
+	if math.IsNaN(a) && math.IsNaN(b) {
+		return 0
+	}
+	return math.Abs(a-b) / math.Max(math.Abs(a), 1e-300)
+}

@@ -1,0 +1,165 @@
+package warehouse
+
+import (
+	"context"
+	"fmt"
+	"strings"
+)
+
+// ScalePublisher is what warehouse-scale mode needs inside the publish
+// transaction besides InWarehouse.ScoreInto: the cohort snapshot written
+// with INSERT … SELECT, and read-back queries (the balance view, effect
+// sums) over the rows the transaction has written so far. Both run on the
+// engine's one connection without beginning or ending a transaction.
+type ScalePublisher interface {
+	// SnapshotInto writes the run's cohort snapshot with SnapshotSQL.
+	SnapshotInto(ctx context.Context, out Output, runID string, q CohortQuery, d *DesignSQL) error
+	// QueryRows runs a query built by this package (BalanceRowsSQL,
+	// EffectSumsSQL, MatchedSumsSQL) and returns its rows: numbers as
+	// float64, text as string, booleans as bool, NULL as nil.
+	QueryRows(ctx context.Context, query string, args ...any) ([][]any, error)
+}
+
+// SnapshotSQL returns the INSERT … SELECT that writes the run's cohort
+// snapshot from the cohort query ($1 is the run id), with the column types
+// and meaning of the in-memory snapshot: the unit id as is, the treatment
+// as a boolean, numeric covariates as DOUBLE PRECISION, categorical ones
+// as their level text (CAST … AS VARCHAR, the text ReadCohort's levels
+// have), outcomes as DOUBLE PRECISION with booleans as 0/1. outcomeBool
+// says which outcomes are boolean columns (Postgres casts no boolean to
+// a float).
+func SnapshotSQL(c *Contract, q CohortQuery, d *DesignSQL, covKinds []CovKind, outcomeBool []bool) (string, error) {
+	if len(covKinds) != len(q.Covariates) || len(outcomeBool) != len(q.Outcomes) {
+		panic(fmt.Sprintf("warehouse: snapshot: %d kinds for %d covariates, %d flags for %d outcomes", len(covKinds), len(q.Covariates), len(outcomeBool), len(q.Outcomes)))
+	}
+	names := []string{"run_id", Quote(c.Unit), Quote(c.Treatment)}
+	exprs := []string{"CAST($1 AS VARCHAR)", "c." + Quote(q.Unit), "(" + d.TreatmentExpr() + ") = 1"}
+	for i, name := range q.Covariates {
+		if err := ValidIdent(name); err != nil {
+			return "", fmt.Errorf("cohort.covariates: %w", err)
+		}
+		names = append(names, Quote(name))
+		if covKinds[i] == Categorical {
+			exprs = append(exprs, "CAST(c."+Quote(name)+" AS VARCHAR)")
+		} else {
+			exprs = append(exprs, "CAST(c."+Quote(name)+" AS DOUBLE PRECISION)")
+		}
+	}
+	for i, name := range q.Outcomes {
+		if err := ValidIdent(name); err != nil {
+			return "", fmt.Errorf("cohort.outcomes: %w", err)
+		}
+		names = append(names, Quote(name))
+		y := "c." + Quote(name)
+		if outcomeBool[i] {
+			exprs = append(exprs, "CASE WHEN "+y+" THEN 1.0 WHEN NOT "+y+" THEN 0.0 END")
+		} else {
+			exprs = append(exprs, "CAST("+y+" AS DOUBLE PRECISION)")
+		}
+	}
+	return fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM %s",
+		QuoteQualified(c.Schema, c.Cohort.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), From(q.SQL)), nil
+}
+
+// BalanceRowsSQL reads one run's rows of the balance_history view ($1 is
+// the run id): covariate, level, adjustment, mean_treated, mean_control,
+// sd_treated, sd_control, smd, variance_ratio.
+func BalanceRowsSQL(c *Contract) string {
+	return "SELECT covariate, level, adjustment, mean_treated, mean_control, sd_treated, sd_control, smd, variance_ratio FROM " +
+		QuoteQualified(c.Schema, c.BalanceHistory) + " WHERE run_id = CAST($1 AS VARCHAR)"
+}
+
+// EffectSumsSQL returns the per-arm sums of one outcome under one
+// weighting of a run's cohort snapshot ($1 is the run id): scheme "" is
+// the unadjusted sample (w = 1), otherwise the weights table's column.
+// One row per arm: treated, rows used (w > 0, outcome present), rows with
+// w > 0 and a missing outcome, Σw, Σw·y, Σw²·y², Σw²·y, Σw², and the
+// count of used outcomes other than 0 and 1. Every aggregate is a plain
+// sum or count, so a distributed engine computes it as partial sums per
+// node.
+func EffectSumsSQL(c *Contract, outcome, scheme string) (string, error) {
+	if err := ValidIdent(outcome); err != nil {
+		return "", fmt.Errorf("outcome: %w", err)
+	}
+	y := "CAST(c." + Quote(outcome) + " AS DOUBLE PRECISION)"
+	w, join := "CAST(1 AS DOUBLE PRECISION)", ""
+	if scheme != "" {
+		if err := ValidIdent(scheme); err != nil {
+			return "", fmt.Errorf("weighting scheme: %w", err)
+		}
+		w = "CAST(wt." + Quote(scheme) + " AS DOUBLE PRECISION)"
+		join = " JOIN " + QuoteQualified(c.Schema, c.Weights.Name) + " wt ON wt.run_id = c.run_id AND wt." + Quote(c.Unit) + " = c." + Quote(c.Unit)
+	}
+	inner := "SELECT c." + Quote(c.Treatment) + " AS t, " + y + " AS y, " + w + " AS w FROM " +
+		QuoteQualified(c.Schema, c.Cohort.Name) + " c" + join + " WHERE c.run_id = CAST($1 AS VARCHAR)"
+	return `SELECT t, CAST(count(y) AS DOUBLE PRECISION), CAST(count(*) - count(y) AS DOUBLE PRECISION),
+  sum(CASE WHEN y IS NOT NULL THEN w END), sum(w * y), sum(w * w * y * y), sum(w * w * y),
+  sum(CASE WHEN y IS NOT NULL THEN w * w END),
+  CAST(sum(CASE WHEN y <> 0 AND y <> 1 THEN 1 ELSE 0 END) AS DOUBLE PRECISION)
+FROM (` + inner + `) AS s WHERE w > 0 GROUP BY t`, nil
+}
+
+// MatchedSumsSQL returns, for one outcome over a run's matched rows
+// (matches joined to the cohort snapshot, $1 the run id; w = set_weight),
+// first the sums of each matched set g over its usable rows (w > 0,
+// outcome present),
+//
+//	A_gT = Σ_{g,T} w·y   B_gT = Σ_{g,T} w   A_gC = Σ_{g,C} w·y   B_gC = Σ_{g,C} w,
+//
+// then one row of sums over the sets: G (sets with a usable row), rows
+// used and missing per arm, ΣB_T, ΣA_T, ΣB_C, ΣA_C, the ten products
+// Σ A_T², Σ A_T·B_T, Σ B_T², Σ A_C², Σ A_C·B_C, Σ B_C², Σ A_T·A_C,
+// Σ A_T·B_C, Σ B_T·A_C, Σ B_T·B_C, and the count of used outcomes other
+// than 0 and 1. The inner GROUP BY set_id and the outer sums are plain
+// aggregates (a distributed engine shuffles on set_id once).
+func MatchedSumsSQL(c *Contract, outcome string) (string, error) {
+	if err := ValidIdent(outcome); err != nil {
+		return "", fmt.Errorf("outcome: %w", err)
+	}
+	rows := "SELECT m.set_id AS g, m.treated AS t, CAST(m.set_weight AS DOUBLE PRECISION) AS w, CAST(c." + Quote(outcome) + " AS DOUBLE PRECISION) AS y FROM " +
+		QuoteQualified(c.Schema, c.Matches.Name) + " m JOIN " + QuoteQualified(c.Schema, c.Cohort.Name) + " c ON c.run_id = m.run_id AND c." + Quote(c.Unit) + " = m." + Quote(c.Unit) +
+		" WHERE m.run_id = CAST($1 AS VARCHAR) AND m.set_weight > 0"
+	sets := `SELECT g,
+  sum(CASE WHEN t AND y IS NOT NULL THEN 1 ELSE 0 END) AS nt, sum(CASE WHEN NOT t AND y IS NOT NULL THEN 1 ELSE 0 END) AS nc,
+  sum(CASE WHEN t AND y IS NULL THEN 1 ELSE 0 END) AS mt, sum(CASE WHEN NOT t AND y IS NULL THEN 1 ELSE 0 END) AS mc,
+  coalesce(sum(CASE WHEN t THEN w * y END), 0) AS sat, coalesce(sum(CASE WHEN t AND y IS NOT NULL THEN w END), 0) AS sbt,
+  coalesce(sum(CASE WHEN NOT t THEN w * y END), 0) AS sac, coalesce(sum(CASE WHEN NOT t AND y IS NOT NULL THEN w END), 0) AS sbc,
+  sum(CASE WHEN y <> 0 AND y <> 1 THEN 1 ELSE 0 END) AS nb
+FROM (` + rows + `) AS r GROUP BY g`
+	return `SELECT CAST(sum(CASE WHEN nt + nc > 0 THEN 1 ELSE 0 END) AS DOUBLE PRECISION),
+  CAST(sum(nt) AS DOUBLE PRECISION), CAST(sum(nc) AS DOUBLE PRECISION), CAST(sum(mt) AS DOUBLE PRECISION), CAST(sum(mc) AS DOUBLE PRECISION),
+  sum(sbt), sum(sat), sum(sbc), sum(sac),
+  sum(sat * sat), sum(sat * sbt), sum(sbt * sbt), sum(sac * sac), sum(sac * sbc), sum(sbc * sbc),
+  sum(sat * sac), sum(sat * sbc), sum(sbt * sac), sum(sbt * sbc),
+  CAST(sum(nb) AS DOUBLE PRECISION)
+FROM (` + sets + `) AS s`, nil
+}
+
+// CovKinds returns the kind of each of q's covariates as d models it.
+func (d *DesignSQL) CovKinds(q CohortQuery) []CovKind {
+	kinds := make([]CovKind, len(q.Covariates))
+	for i, name := range q.Covariates {
+		for _, c := range d.Columns {
+			if c.Source == name && c.Categorical {
+				kinds[i] = Categorical
+			}
+		}
+	}
+	return kinds
+}
+
+// WeightSumsSQL returns, per arm of a run's weights table ($1 the run
+// id), Σw and Σw² of each scheme in order: treated, Σw₁, Σw₁², Σw₂, ...
+// (Kish's effective sample size is (Σw)²/Σw²).
+func WeightSumsSQL(c *Contract, schemes []string) (string, error) {
+	parts := []string{"treated"}
+	for _, s := range schemes {
+		if err := ValidIdent(s); err != nil {
+			return "", fmt.Errorf("weighting scheme: %w", err)
+		}
+		x := "CAST(" + Quote(s) + " AS DOUBLE PRECISION)"
+		parts = append(parts, "sum("+x+")", "sum("+x+" * "+x+")")
+	}
+	return "SELECT " + strings.Join(parts, ", ") + " FROM " + QuoteQualified(c.Schema, c.Weights.Name) +
+		" WHERE run_id = CAST($1 AS VARCHAR) GROUP BY treated", nil
+}

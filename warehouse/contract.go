@@ -205,3 +205,24 @@ func NewContract(out Output) (*Contract, error) {
 	}
 	return c, nil
 }
+
+// Statuses lists every status the runs table accepts.
+var Statuses = []string{StatusRunning, StatusSucceeded, StatusRejected, StatusFailed, StatusSkipped, StatusAbandoned}
+
+// Objects holds a contract and the quoted, schema-qualified names of its
+// tables, as the engines' statements use them.
+type Objects struct {
+	C                                               *Contract
+	Runs, Cohort, Scores, Matches, Weights, Effects string
+}
+
+// NewObjects builds the contract of out and quotes its table names.
+func NewObjects(out Output) (*Objects, error) {
+	c, err := NewContract(out)
+	if err != nil {
+		return nil, err
+	}
+	q := func(name string) string { return QuoteQualified(c.Schema, name) }
+	return &Objects{C: c, Runs: q(c.Runs.Name), Cohort: q(c.Cohort.Name), Scores: q(c.Scores.Name),
+		Matches: q(c.Matches.Name), Weights: q(c.Weights.Name), Effects: q(c.Effects.Name)}, nil
+}

@@ -10,7 +10,7 @@ import (
 
 // appendAll writes the cohort snapshot, scores, matches and weights of p
 // through bulk inserts (see bulk.go).
-func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) appendAll(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	c := p.Cohort
 	run := p.Run.RunID
 	unitCol := func(idx []int) *bulkCol {
@@ -42,7 +42,7 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 	for _, name := range out.Outcomes {
 		cohort = append(cohort, bulkTarget{name: name, col: f64(outcomes[name])})
 	}
-	if err := w.insertBulk(ctx, o.c.Schema, o.c.Cohort.Name, run, cohort, c.N()); err != nil {
+	if err := w.insertBulk(ctx, o.C.Schema, o.C.Cohort.Name, run, cohort, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("cohort"); err != nil {
@@ -51,7 +51,7 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 
 	scores := []bulkTarget{{name: out.Unit, col: unitCol(nil)}, {name: "treated", col: boolean(c.Treated)},
 		{name: "ps", col: f64(p.PS)}, {name: "logit_ps", col: f64(p.LogitPS)}, {name: "in_support", col: boolean(p.InSupport)}}
-	if err := w.insertBulk(ctx, o.c.Schema, o.c.Scores.Name, run, scores, c.N()); err != nil {
+	if err := w.insertBulk(ctx, o.C.Schema, o.C.Scores.Name, run, scores, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("scores"); err != nil {
@@ -71,14 +71,14 @@ func (w *Warehouse) appendAll(ctx context.Context, o *objects, out warehouse.Out
 	for k, s := range out.Schemes {
 		weights = append(weights, bulkTarget{name: s, col: f64(p.Weights[k])})
 	}
-	if err := w.insertBulk(ctx, o.c.Schema, o.c.Weights.Name, run, weights, c.N()); err != nil {
+	if err := w.insertBulk(ctx, o.C.Schema, o.C.Weights.Name, run, weights, c.N()); err != nil {
 		return err
 	}
 	return w.step("weights")
 }
 
 // appendMatches writes p's match rows; their unit ids come from p.Cohort.
-func (w *Warehouse) appendMatches(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) appendMatches(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	c, m := p.Cohort, p.Matches
 	unit := &bulkCol{s: c.TextIDs, idx: m.Unit, kind: duckdb.TYPE_VARCHAR}
 	if c.IDKind == warehouse.IDInt {
@@ -91,5 +91,5 @@ func (w *Warehouse) appendMatches(ctx context.Context, o *objects, out warehouse
 		{name: "set_weight", col: &bulkCol{f64: m.SetWeight, kind: duckdb.TYPE_DOUBLE}},
 		{name: "match_distance", col: &bulkCol{f64: m.Distance, kind: duckdb.TYPE_DOUBLE}},
 	}
-	return w.insertBulk(ctx, o.c.Schema, o.c.Matches.Name, p.Run.RunID, matches, m.Len())
+	return w.insertBulk(ctx, o.C.Schema, o.C.Matches.Name, p.Run.RunID, matches, m.Len())
 }

@@ -12,48 +12,48 @@ import (
 
 // analysisView drops and recreates the analysis view for o's covariates,
 // outcomes and schemes (sql/common/analysis_view.sql).
-func (w *Warehouse) analysisView(ctx context.Context, o *objects) error {
+func (w *Warehouse) analysisView(ctx context.Context, o *warehouse.Objects) error {
 	if _, err := w.exec(ctx, render("analysis_view.sql", analysisData(o))); err != nil {
-		return fmt.Errorf("create view %s: %w", o.c.Analysis, dbErr(err))
+		return fmt.Errorf("create view %s: %w", o.C.Analysis, dbErr(err))
 	}
 	return nil
 }
 
 // analysisData feeds analysis_view.sql.
-func analysisData(o *objects) any {
+func analysisData(o *warehouse.Objects) any {
 	type col struct{ Name, ColComment string }
 	d := struct {
 		View, Runs, Cohort, Scores, Matches, Weights, Unit, Comment string
 		CohortCols, Schemes                                         []string
 		Columns                                                     []col
-	}{View: warehouse.QuoteQualified(o.c.Schema, o.c.Analysis), Runs: o.runs, Cohort: o.cohort,
-		Scores: o.scores, Matches: o.matches, Weights: o.weights, Unit: warehouse.Quote(o.c.Unit),
+	}{View: warehouse.QuoteQualified(o.C.Schema, o.C.Analysis), Runs: o.Runs, Cohort: o.Cohort,
+		Scores: o.Scores, Matches: o.Matches, Weights: o.Weights, Unit: warehouse.Quote(o.C.Unit),
 		Comment: "The latest succeeded run ready for weighted queries: one row per unit of its cohort snapshot with its propensity score, matching summary (matched_weight) and the weight of every scheme."}
-	for _, c := range o.c.Cohort.Columns {
+	for _, c := range o.C.Cohort.Columns {
 		d.CohortCols = append(d.CohortCols, warehouse.Quote(c.Name))
 	}
-	for _, c := range o.c.Weights.Columns[3:] {
+	for _, c := range o.C.Weights.Columns[3:] {
 		d.Schemes = append(d.Schemes, warehouse.Quote(c.Name))
 	}
-	for _, c := range o.c.AnalysisColumns {
+	for _, c := range o.C.AnalysisColumns {
 		d.Columns = append(d.Columns, col{warehouse.Quote(c.Name), c.Comment})
 	}
 	return d
 }
 
 // insertEffects writes the run's effect rows; NaN becomes NULL.
-func (w *Warehouse) insertEffects(ctx context.Context, o *objects, runID string, effects []warehouse.EffectRecord) error {
+func (w *Warehouse) insertEffects(ctx context.Context, o *warehouse.Objects, runID string, effects []warehouse.EffectRecord) error {
 	if len(effects) == 0 {
 		return nil
 	}
-	q := render("insert_effect.sql", map[string]string{"Effects": o.effects})
+	q := render("insert_effect.sql", map[string]string{"Effects": o.Effects})
 	for _, e := range effects {
 		_, err := w.exec(ctx, q, runID, e.Outcome, e.Adjustment, e.Estimand, e.Contrast, e.Method,
 			nullFloat(e.Estimate), nullFloat(e.StdError), nullFloat(e.CILow), nullFloat(e.CIHigh), nullFloat(e.PValue),
 			int64(e.NTreated), int64(e.NControl), int64(e.NMissing),
 			nullFloat(e.EValue), nullFloat(e.EValueCI), nullFloat(e.RosenbaumGamma))
 		if err != nil {
-			return fmt.Errorf("insert into %s: %w", o.c.Effects.Name, dbErr(err))
+			return fmt.Errorf("insert into %s: %w", o.C.Effects.Name, dbErr(err))
 		}
 	}
 	return nil
@@ -72,33 +72,33 @@ func nullFloat(f float64) any {
 // constraint, so the table is rebuilt in the open transaction: created
 // under a new name with the current definition, filled, the old one
 // dropped and the new one renamed (views bind by name when queried).
-func (w *Warehouse) statusCheck(ctx context.Context, o *objects) error {
+func (w *Warehouse) statusCheck(ctx context.Context, o *warehouse.Objects) error {
 	var expr sql.NullString
-	err := w.conn.QueryRowContext(ctx, render("status_check.sql", nil), o.c.Schema, o.c.Runs.Name).Scan(&expr)
+	err := w.conn.QueryRowContext(ctx, render("status_check.sql", nil), o.C.Schema, o.C.Runs.Name).Scan(&expr)
 	if err == sql.ErrNoRows || (err == nil && strings.Contains(expr.String, warehouse.StatusAbandoned)) {
 		return nil
 	}
 	if err != nil {
-		return fmt.Errorf("status check of %s: %w", o.c.Runs.Name, dbErr(err))
+		return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, dbErr(err))
 	}
-	tmp := o.c.Runs
-	tmp.Name = o.c.Runs.Name + "_migrating"
-	if err := w.ensureTable(ctx, o.c.Schema, &tmp, true); err != nil {
+	tmp := o.C.Runs
+	tmp.Name = o.C.Runs.Name + "_migrating"
+	if err := w.ensureTable(ctx, o.C.Schema, &tmp, true); err != nil {
 		return err
 	}
-	cols := make([]string, len(o.c.Runs.Columns))
-	for i, c := range o.c.Runs.Columns {
+	cols := make([]string, len(o.C.Runs.Columns))
+	for i, c := range o.C.Runs.Columns {
 		cols[i] = warehouse.Quote(c.Name)
 	}
-	qtmp := warehouse.QuoteQualified(o.c.Schema, tmp.Name)
+	qtmp := warehouse.QuoteQualified(o.C.Schema, tmp.Name)
 	list := strings.Join(cols, ", ")
 	for _, stmt := range []string{
-		"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.runs,
-		"DROP TABLE " + o.runs,
-		"ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.c.Runs.Name),
+		"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
+		"DROP TABLE " + o.Runs,
+		"ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name),
 	} {
 		if _, err := w.exec(ctx, stmt); err != nil {
-			return fmt.Errorf("rebuild %s with the abandoned status: %w", o.c.Runs.Name, dbErr(err))
+			return fmt.Errorf("rebuild %s with the abandoned status: %w", o.C.Runs.Name, dbErr(err))
 		}
 	}
 	return nil
@@ -123,24 +123,24 @@ func scanRuns(rows *sql.Rows) ([]warehouse.RunRecord, error) {
 }
 
 // selectRuns runs select_runs.sql; a missing runs table gives no rows.
-func (w *Warehouse) selectRuns(ctx context.Context, out warehouse.Output, where string, args ...any) ([]warehouse.RunRecord, *objects, error) {
-	o, err := newObjects(out)
+func (w *Warehouse) selectRuns(ctx context.Context, out warehouse.Output, where string, args ...any) ([]warehouse.RunRecord, *warehouse.Objects, error) {
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return nil, nil, err
 	}
-	cols, err := w.tableColumns(ctx, o.c.Schema, o.c.Runs.Name)
+	cols, err := w.tableColumns(ctx, o.C.Schema, o.C.Runs.Name)
 	if err != nil || len(cols) == 0 {
 		return nil, o, err
 	}
 	_, hasSummary := cols["summary"]
-	q := render("select_runs.sql", map[string]any{"Runs": o.runs, "Where": where, "Limit": where == "" && len(args) > 0, "HasSummary": hasSummary})
+	q := render("select_runs.sql", map[string]any{"Runs": o.Runs, "Where": where, "Limit": where == "" && len(args) > 0, "HasSummary": hasSummary})
 	rows, err := w.conn.QueryContext(ctx, q, args...)
 	if err != nil {
-		return nil, o, fmt.Errorf("read %s: %w", o.c.Runs.Name, dbErr(err))
+		return nil, o, fmt.Errorf("read %s: %w", o.C.Runs.Name, dbErr(err))
 	}
 	runs, err := scanRuns(rows)
 	if err != nil {
-		return nil, o, fmt.Errorf("read %s: %w", o.c.Runs.Name, dbErr(err))
+		return nil, o, fmt.Errorf("read %s: %w", o.C.Runs.Name, dbErr(err))
 	}
 	return runs, o, nil
 }
@@ -166,7 +166,7 @@ func (w *Warehouse) Run(ctx context.Context, out warehouse.Output, runID string)
 	}
 	if len(runs) == 0 {
 		return warehouse.RunRecord{}, fmt.Errorf("read run: %w: no run %q in %s.%s; list the runs to see their ids",
-			warehouse.ErrBadInput, runID, out.Schema, o.c.Runs.Name)
+			warehouse.ErrBadInput, runID, out.Schema, o.C.Runs.Name)
 	}
 	return runs[0], nil
 }
@@ -189,8 +189,8 @@ func (w *Warehouse) PriorSets(ctx context.Context, out warehouse.Output, runID s
 	if _, err := w.Run(ctx, out, runID); err != nil {
 		return ps, fmt.Errorf("prior sets: %w", err)
 	}
-	o, _ := newObjects(out)
-	q := render("prior_sets.sql", map[string]string{"Matches": o.matches, "Unit": warehouse.Quote(out.Unit)})
+	o, _ := warehouse.NewObjects(out)
+	q := render("prior_sets.sql", map[string]string{"Matches": o.Matches, "Unit": warehouse.Quote(out.Unit)})
 	rows, err := w.conn.QueryContext(ctx, q, runID)
 	if err != nil {
 		return ps, fmt.Errorf("prior sets of run %s: %w", runID, dbErr(err))
@@ -241,8 +241,8 @@ func (w *Warehouse) DiffRuns(ctx context.Context, out warehouse.Output, a, b str
 			return d, fmt.Errorf("diff runs: %w", err)
 		}
 	}
-	o, _ := newObjects(out)
-	q := render("diff_runs.sql", map[string]string{"Matches": o.matches, "Unit": warehouse.Quote(out.Unit)})
+	o, _ := warehouse.NewObjects(out)
+	q := render("diff_runs.sql", map[string]string{"Matches": o.Matches, "Unit": warehouse.Quote(out.Unit)})
 	if err := w.conn.QueryRowContext(ctx, q, a, b).Scan(&d.Kept, &d.Changed, &d.New, &d.Dropped); err != nil {
 		return d, fmt.Errorf("diff runs %s and %s: %w", a, b, dbErr(err))
 	}
@@ -251,19 +251,19 @@ func (w *Warehouse) DiffRuns(ctx context.Context, out warehouse.Output, a, b str
 
 // RowCounts counts the rows of every contract table; missing ones are 0.
 func (w *Warehouse) RowCounts(ctx context.Context, out warehouse.Output) (map[string]int64, error) {
-	o, err := newObjects(out)
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return nil, fmt.Errorf("row counts: %w", err)
 	}
 	counts := map[string]int64{}
-	for _, t := range o.c.Tables() {
-		cols, err := w.tableColumns(ctx, o.c.Schema, t.Name)
+	for _, t := range o.C.Tables() {
+		cols, err := w.tableColumns(ctx, o.C.Schema, t.Name)
 		if err != nil {
 			return nil, fmt.Errorf("row counts: %w", err)
 		}
 		var n int64
 		if len(cols) > 0 {
-			q := render("count_rows.sql", map[string]string{"Table": warehouse.QuoteQualified(o.c.Schema, t.Name)})
+			q := render("count_rows.sql", map[string]string{"Table": warehouse.QuoteQualified(o.C.Schema, t.Name)})
 			if err := w.conn.QueryRowContext(ctx, q).Scan(&n); err != nil {
 				return nil, fmt.Errorf("row counts: %s: %w", t.Name, dbErr(err))
 			}

@@ -2,7 +2,6 @@ package duckdb
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"strconv"
 	"time"
@@ -24,10 +23,6 @@ var (
 	}
 )
 
-// statuses lists the statuses the runs table accepts.
-var statuses = []string{warehouse.StatusRunning, warehouse.StatusSucceeded, warehouse.StatusRejected,
-	warehouse.StatusFailed, warehouse.StatusSkipped, warehouse.StatusAbandoned}
-
 // render fills an SQL template of this dialect.
 func render(name string, data any) string {
 	s, err := sqltext.Render(dialect, name, data)
@@ -36,22 +31,6 @@ func render(name string, data any) string {
 		panic(err)
 	}
 	return s
-}
-
-// objects holds the quoted, schema-qualified names of a contract.
-type objects struct {
-	c                                               *warehouse.Contract
-	runs, cohort, scores, matches, weights, effects string
-}
-
-func newObjects(out warehouse.Output) (*objects, error) {
-	c, err := warehouse.NewContract(out)
-	if err != nil {
-		return nil, err
-	}
-	q := func(name string) string { return warehouse.QuoteQualified(c.Schema, name) }
-	return &objects{c: c, runs: q(c.Runs.Name), cohort: q(c.Cohort.Name), scores: q(c.Scores.Name),
-		matches: q(c.Matches.Name), weights: q(c.Weights.Name), effects: q(c.Effects.Name)}, nil
 }
 
 func (w *Warehouse) writable(step string) error {
@@ -70,7 +49,7 @@ func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run ware
 	if err := w.writable("start run"); err != nil {
 		return err
 	}
-	o, err := newObjects(out)
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return fmt.Errorf("start run: %w", err)
 	}
@@ -99,18 +78,18 @@ func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run ware
 	return nil
 }
 
-func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Output, run warehouse.RunRecord) error {
-	for _, t := range o.c.Tables() {
-		if err := w.ensureTable(ctx, o.c.Schema, t, t == &o.c.Runs); err != nil {
+func (w *Warehouse) startRun(ctx context.Context, o *warehouse.Objects, out warehouse.Output, run warehouse.RunRecord) error {
+	for _, t := range o.C.Tables() {
+		if err := w.ensureTable(ctx, o.C.Schema, t, t == &o.C.Runs); err != nil {
 			return err
 		}
 	}
 	if err := w.currentViews(ctx, o); err != nil {
 		return err
 	}
-	for _, v := range []string{o.c.Balance, o.c.BalanceHistory} {
+	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
 		var n int
-		if err := w.conn.QueryRowContext(ctx, render("view_exists.sql", nil), o.c.Schema, v).Scan(&n); err != nil {
+		if err := w.conn.QueryRowContext(ctx, render("view_exists.sql", nil), o.C.Schema, v).Scan(&n); err != nil {
 			return fmt.Errorf("look up view %s: %w", v, dbErr(err))
 		}
 		if n == 0 {
@@ -124,8 +103,8 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 		return err
 	}
 	var n int
-	if err := w.conn.QueryRowContext(ctx, render("view_exists.sql", nil), o.c.Schema, o.c.Analysis).Scan(&n); err != nil {
-		return fmt.Errorf("look up view %s: %w", o.c.Analysis, dbErr(err))
+	if err := w.conn.QueryRowContext(ctx, render("view_exists.sql", nil), o.C.Schema, o.C.Analysis).Scan(&n); err != nil {
+		return fmt.Errorf("look up view %s: %w", o.C.Analysis, dbErr(err))
 	}
 	if n == 0 {
 		if err := w.analysisView(ctx, o); err != nil {
@@ -138,17 +117,17 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 	}
 	// This run holds the lock, so a run of the study still marked running
 	// belongs to a process that died.
-	if _, err := w.exec(ctx, render("abandon_runs.sql", map[string]string{"Runs": o.runs}),
+	if _, err := w.exec(ctx, render("abandon_runs.sql", map[string]string{"Runs": o.Runs}),
 		run.Study, run.RunID, started, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
-		return fmt.Errorf("mark abandoned runs in %s: %w", o.c.Runs.Name, dbErr(err))
+		return fmt.Errorf("mark abandoned runs in %s: %w", o.C.Runs.Name, dbErr(err))
 	}
-	_, err := w.exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.runs}),
+	_, err := w.exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.Runs}),
 		run.RunID, run.Study, warehouse.StatusRunning, started, nullTime(run.FinishedAt),
 		run.ToolVersion, run.SpecSHA256, nullText(run.SpecJSON), run.CohortSQL, nullText(run.CohortFingerprint),
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
 		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message), nullText(run.SummaryJSON))
 	if err != nil {
-		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.c.Runs.Name, dbErr(err))
+		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.C.Runs.Name, dbErr(err))
 	}
 	return nil
 }
@@ -183,7 +162,7 @@ func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse
 		if runs {
 			data.Columns[0].Constraint = "PRIMARY KEY"
 			check := "CHECK (status IN ("
-			for i, s := range statuses {
+			for i, s := range warehouse.Statuses {
 				if i > 0 {
 					check += ", "
 				}
@@ -238,16 +217,16 @@ func (w *Warehouse) tableColumns(ctx context.Context, schema, table string) (map
 // currentViews (re)creates the four current_* views. They are recreated
 // whenever a table may have gained columns, since a view's column list is
 // fixed when it is created.
-func (w *Warehouse) currentViews(ctx context.Context, o *objects) error {
+func (w *Warehouse) currentViews(ctx context.Context, o *warehouse.Objects) error {
 	for _, v := range []struct{ view, table, what string }{
-		{o.c.CurrentCohort, o.cohort, "cohort snapshot"},
-		{o.c.CurrentScores, o.scores, "propensity scores"},
-		{o.c.CurrentMatches, o.matches, "matched sets"},
-		{o.c.CurrentWeights, o.weights, "weights"},
-		{o.c.CurrentEffects, o.effects, "effect estimates"},
+		{o.C.CurrentCohort, o.Cohort, "cohort snapshot"},
+		{o.C.CurrentScores, o.Scores, "propensity scores"},
+		{o.C.CurrentMatches, o.Matches, "matched sets"},
+		{o.C.CurrentWeights, o.Weights, "weights"},
+		{o.C.CurrentEffects, o.Effects, "effect estimates"},
 	} {
 		data := map[string]string{
-			"View": warehouse.QuoteQualified(o.c.Schema, v.view), "Table": v.table, "Runs": o.runs,
+			"View": warehouse.QuoteQualified(o.C.Schema, v.view), "Table": v.table, "Runs": o.Runs,
 			"Comment": "The " + v.what + " of the latest succeeded run.",
 		}
 		if _, err := w.exec(ctx, render("current_view.sql", data)); err != nil {
@@ -267,13 +246,13 @@ type balanceScheme struct{ Name, Col string }
 
 // balanceViews (re)creates the balance and balance_history views for the
 // covariates and schemes of out.
-func (w *Warehouse) balanceViews(ctx context.Context, o *objects, out warehouse.Output) error {
+func (w *Warehouse) balanceViews(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
 	data := struct {
 		View, Runs, Cohort, Matches, Weights, Unit, Treatment, Comment string
 		Current, HasNumeric                                            bool
 		Vars                                                           []balanceVar
 		Schemes                                                        []balanceScheme
-	}{Runs: o.runs, Cohort: o.cohort, Matches: o.matches, Weights: o.weights,
+	}{Runs: o.Runs, Cohort: o.Cohort, Matches: o.Matches, Weights: o.Weights,
 		Unit: warehouse.Quote(out.Unit), Treatment: warehouse.Quote(out.Treatment)}
 	for i, cv := range out.Covariates {
 		data.Vars = append(data.Vars, balanceVar{Name: cv.Name, Col: warehouse.Quote(cv.Name),
@@ -288,10 +267,10 @@ func (w *Warehouse) balanceViews(ctx context.Context, o *objects, out warehouse.
 		current bool
 		comment string
 	}{
-		{o.c.Balance, true, "Covariate balance of the latest succeeded run: means, SDs, SMD and variance ratio per covariate, level and adjustment (unadjusted, matched, each weighting scheme). SMD uses the unadjusted pooled SD (Austin 2009)."},
-		{o.c.BalanceHistory, false, "Covariate balance of every run still kept, computed like the balance view."},
+		{o.C.Balance, true, "Covariate balance of the latest succeeded run: means, SDs, SMD and variance ratio per covariate, level and adjustment (unadjusted, matched, each weighting scheme). SMD uses the unadjusted pooled SD (Austin 2009)."},
+		{o.C.BalanceHistory, false, "Covariate balance of every run still kept, computed like the balance view."},
 	} {
-		data.View, data.Current, data.Comment = warehouse.QuoteQualified(o.c.Schema, v.name), v.current, v.comment
+		data.View, data.Current, data.Comment = warehouse.QuoteQualified(o.C.Schema, v.name), v.current, v.comment
 		if _, err := w.exec(ctx, render("balance_view.sql", data)); err != nil {
 			return fmt.Errorf("create view %s: %w", v.name, dbErr(err))
 		}
@@ -310,11 +289,11 @@ func (w *Warehouse) Publish(ctx context.Context, out warehouse.Output, p *wareho
 	if err := w.writable("publish"); err != nil {
 		return err
 	}
-	o, err := newObjects(out)
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return fmt.Errorf("publish: %w", err)
 	}
-	if err := checkPublication(out, p); err != nil {
+	if err := warehouse.CheckPublication(out, p); err != nil {
 		return fmt.Errorf("publish: %w", err)
 	}
 	if _, err := w.exec(ctx, "BEGIN TRANSACTION"); err != nil {
@@ -344,7 +323,7 @@ func (w *Warehouse) step(name string) error {
 	return nil
 }
 
-func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) publish(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	if p.InTx != nil {
 		// Warehouse-scale mode: matches from memory, then the caller's
 		// INSERT … SELECT statements, which may settle the run's status.
@@ -368,14 +347,14 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	if finished.IsZero() {
 		finished = time.Now().UTC()
 	}
-	res, err := w.exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.runs}),
+	res, err := w.exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.Runs}),
 		r.RunID, r.Status, finished, nullText(r.CohortFingerprint), nullText(r.CountsJSON),
 		nullText(r.ModelJSON), nullText(r.BalanceJSON), nullText(r.EffectsJSON), nullText(r.Message), nullText(r.SummaryJSON))
 	if err != nil {
-		return fmt.Errorf("update %s: %w", o.c.Runs.Name, dbErr(err))
+		return fmt.Errorf("update %s: %w", o.C.Runs.Name, dbErr(err))
 	}
 	if k, err := res.RowsAffected(); err == nil && k != 1 {
-		return fmt.Errorf("run %s is not a running run in %s (StartRun must come first, and a run is published once)", r.RunID, o.c.Runs.Name)
+		return fmt.Errorf("run %s is not a running run in %s (StartRun must come first, and a run is published once)", r.RunID, o.C.Runs.Name)
 	}
 	if err := w.step("runs"); err != nil {
 		return err
@@ -392,8 +371,8 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 		return err
 	}
 	if out.KeepRuns > 0 {
-		for _, t := range []string{o.cohort, o.scores, o.matches, o.weights, o.effects, o.runs} {
-			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.runs})
+		for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
+			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.Runs})
 			if _, err := w.exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
 				return fmt.Errorf("retention on %s: %w", t, dbErr(err))
 			}
@@ -414,92 +393,6 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 		}
 	}
 	return w.step("views")
-}
-
-// checkPublication catches a publication that does not fit its output
-// description before anything is written. These are programming errors
-// of the caller, not bad input.
-func checkPublication(out warehouse.Output, p *warehouse.Publication) error {
-	switch p.Run.Status {
-	case warehouse.StatusSucceeded, warehouse.StatusRejected, warehouse.StatusFailed, warehouse.StatusSkipped:
-	default:
-		return fmt.Errorf("run %s: final status %q is not one of succeeded, rejected, failed, skipped", p.Run.RunID, p.Run.Status)
-	}
-	c := p.Cohort
-	if p.InTx != nil {
-		return warehouse.CheckPublication(out, p)
-	}
-	if c == nil {
-		if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+p.Matches.Len()+len(p.Weights) > 0 {
-			return errors.New("rows given without their cohort")
-		}
-		return nil
-	}
-	n := c.N()
-	if c.IDKind != out.IDKind || c.Unit != out.Unit || c.Treatment != out.Treatment {
-		return fmt.Errorf("cohort unit %s/treatment %s differ from the output's %s/%s", c.Unit, c.Treatment, out.Unit, out.Treatment)
-	}
-	if (c.IDKind == warehouse.IDInt && len(c.IntIDs) != n) || (c.IDKind == warehouse.IDText && len(c.TextIDs) != n) {
-		return fmt.Errorf("cohort has %d ids for %d units", max(len(c.IntIDs), len(c.TextIDs)), n)
-	}
-	covs := map[string]*warehouse.Covariate{}
-	for i := range c.Covariates {
-		covs[c.Covariates[i].Name] = &c.Covariates[i]
-	}
-	for _, m := range out.Covariates {
-		cv, ok := covs[m.Name]
-		switch {
-		case !ok:
-			return fmt.Errorf("covariate %s is not in the cohort", m.Name)
-		case cv.Kind != m.Kind:
-			return fmt.Errorf("covariate %s: kind differs between cohort and output", m.Name)
-		case m.Kind == warehouse.Numeric && len(cv.Values) != n, m.Kind == warehouse.Categorical && len(cv.Codes) != n:
-			return fmt.Errorf("covariate %s has the wrong number of values for %d units", m.Name, n)
-		}
-		if m.Kind == warehouse.Categorical {
-			for _, code := range cv.Codes {
-				if code < 0 || int(code) >= len(cv.Levels) {
-					return fmt.Errorf("covariate %s: code %d has no level", m.Name, code)
-				}
-			}
-		}
-	}
-	outcomes := map[string]int{}
-	for _, oc := range c.Outcomes {
-		outcomes[oc.Name] = len(oc.Values)
-	}
-	for _, name := range out.Outcomes {
-		if k, ok := outcomes[name]; !ok || k != n {
-			return fmt.Errorf("outcome %s: %d values for %d units", name, k, n)
-		}
-	}
-	for _, s := range []struct {
-		what string
-		k    int
-	}{{"ps", len(p.PS)}, {"logit_ps", len(p.LogitPS)}, {"in_support", len(p.InSupport)}} {
-		if s.k != n {
-			return fmt.Errorf("scores: %s has %d values for %d units", s.what, s.k, n)
-		}
-	}
-	m := p.Matches
-	k := m.Len()
-	if len(m.Unit) != k || len(m.Treated) != k || len(m.SetWeight) != k || len(m.Distance) != k {
-		return fmt.Errorf("matches: columns of unequal length")
-	}
-	for i, u := range m.Unit {
-		if u < 0 || u >= n {
-			return fmt.Errorf("matches: row %d names unit index %d of %d", i, u, n)
-		}
-	}
-	if len(p.Weights) != len(out.Schemes) {
-		return fmt.Errorf("weights: %d columns for %d schemes", len(p.Weights), len(out.Schemes))
-	}
-	for i, wc := range p.Weights {
-		if len(wc) != n {
-			return fmt.Errorf("weights: scheme %s has %d values for %d units", out.Schemes[i], len(wc), n)
-		}
-	}
-	return nil
 }
 
 // FailRun marks a running run as failed, with its finish time and message.

@@ -127,7 +127,7 @@ func (w *Warehouse) copyRows(ctx context.Context, schema, table string, cols []c
 }
 
 // copyAll writes the cohort snapshot, scores, matches and weights of p.
-func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) copyAll(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	c := p.Cohort
 	run := copyCol{"run_id", constText(p.Run.RunID)}
 	// unit writes cohort unit i; matchUnit the unit of match row i.
@@ -159,7 +159,7 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 	for _, name := range out.Outcomes {
 		cohort = append(cohort, copyCol{name, floatField(outcomes[name])})
 	}
-	if err := w.copyRows(ctx, o.c.Schema, o.c.Cohort.Name, cohort, c.N()); err != nil {
+	if err := w.copyRows(ctx, o.C.Schema, o.C.Cohort.Name, cohort, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("cohort"); err != nil {
@@ -169,7 +169,7 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 	treated := copyCol{"treated", boolField(c.Treated)}
 	scores := []copyCol{run, {out.Unit, unit}, treated,
 		{"ps", floatField(p.PS)}, {"logit_ps", floatField(p.LogitPS)}, {"in_support", boolField(p.InSupport)}}
-	if err := w.copyRows(ctx, o.c.Schema, o.c.Scores.Name, scores, c.N()); err != nil {
+	if err := w.copyRows(ctx, o.C.Schema, o.C.Scores.Name, scores, c.N()); err != nil {
 		return err
 	}
 	if err := w.step("scores"); err != nil {
@@ -187,14 +187,14 @@ func (w *Warehouse) copyAll(ctx context.Context, o *objects, out warehouse.Outpu
 	for k, s := range out.Schemes {
 		weights = append(weights, copyCol{s, floatField(p.Weights[k])})
 	}
-	if err := w.copyRows(ctx, o.c.Schema, o.c.Weights.Name, weights, c.N()); err != nil {
+	if err := w.copyRows(ctx, o.C.Schema, o.C.Weights.Name, weights, c.N()); err != nil {
 		return err
 	}
 	return w.step("weights")
 }
 
 // copyMatches writes p's match rows; their unit ids come from p.Cohort.
-func (w *Warehouse) copyMatches(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) copyMatches(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	m := p.Matches
 	if m.Len() == 0 {
 		return nil
@@ -213,5 +213,5 @@ func (w *Warehouse) copyMatches(ctx context.Context, o *objects, out warehouse.O
 		{"set_weight", floatField(m.SetWeight)},
 		{"match_distance", floatField(m.Distance)},
 	}
-	return w.copyRows(ctx, o.c.Schema, o.c.Matches.Name, matches, m.Len())
+	return w.copyRows(ctx, o.C.Schema, o.C.Matches.Name, matches, m.Len())
 }

@@ -21,10 +21,6 @@ var pgTypeName = map[warehouse.ColType]string{
 	warehouse.TypeBool: "boolean", warehouse.TypeTimestampTZ: "timestamp with time zone", warehouse.TypeJSON: "jsonb",
 }
 
-// statuses lists the statuses the runs table accepts.
-var statuses = []string{warehouse.StatusRunning, warehouse.StatusSucceeded, warehouse.StatusRejected,
-	warehouse.StatusFailed, warehouse.StatusSkipped, warehouse.StatusAbandoned}
-
 // render fills an SQL template of this dialect.
 func render(name string, data any) string {
 	s, err := sqltext.Render(dialect, name, data)
@@ -33,22 +29,6 @@ func render(name string, data any) string {
 		panic(err)
 	}
 	return s
-}
-
-// objects holds the quoted, schema-qualified names of a contract.
-type objects struct {
-	c                                               *warehouse.Contract
-	runs, cohort, scores, matches, weights, effects string
-}
-
-func newObjects(out warehouse.Output) (*objects, error) {
-	c, err := warehouse.NewContract(out)
-	if err != nil {
-		return nil, err
-	}
-	q := func(name string) string { return warehouse.QuoteQualified(c.Schema, name) }
-	return &objects{c: c, runs: q(c.Runs.Name), cohort: q(c.Cohort.Name), scores: q(c.Scores.Name),
-		matches: q(c.Matches.Name), weights: q(c.Weights.Name), effects: q(c.Effects.Name)}, nil
 }
 
 func (w *Warehouse) writable(step string) error {
@@ -82,7 +62,7 @@ func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run ware
 	if err := w.writable("start run"); err != nil {
 		return err
 	}
-	o, err := newObjects(out)
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return fmt.Errorf("start run: %w", err)
 	}
@@ -108,18 +88,18 @@ func (w *Warehouse) StartRun(ctx context.Context, out warehouse.Output, run ware
 	return nil
 }
 
-func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Output, run warehouse.RunRecord) error {
-	for _, t := range o.c.Tables() {
-		if err := w.ensureTable(ctx, o.c.Schema, t, t == &o.c.Runs); err != nil {
+func (w *Warehouse) startRun(ctx context.Context, o *warehouse.Objects, out warehouse.Output, run warehouse.RunRecord) error {
+	for _, t := range o.C.Tables() {
+		if err := w.ensureTable(ctx, o.C.Schema, t, t == &o.C.Runs); err != nil {
 			return err
 		}
 	}
 	if err := w.currentViews(ctx, o); err != nil {
 		return err
 	}
-	for _, v := range []string{o.c.Balance, o.c.BalanceHistory} {
+	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
 		var n int
-		if err := w.conn.QueryRow(ctx, render("view_exists.sql", nil), o.c.Schema, v).Scan(&n); err != nil {
+		if err := w.conn.QueryRow(ctx, render("view_exists.sql", nil), o.C.Schema, v).Scan(&n); err != nil {
 			return fmt.Errorf("look up view %s: %w", v, w.dbErr(err))
 		}
 		if n == 0 {
@@ -133,8 +113,8 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 		return err
 	}
 	var n int
-	if err := w.conn.QueryRow(ctx, render("view_exists.sql", nil), o.c.Schema, o.c.Analysis).Scan(&n); err != nil {
-		return fmt.Errorf("look up view %s: %w", o.c.Analysis, w.dbErr(err))
+	if err := w.conn.QueryRow(ctx, render("view_exists.sql", nil), o.C.Schema, o.C.Analysis).Scan(&n); err != nil {
+		return fmt.Errorf("look up view %s: %w", o.C.Analysis, w.dbErr(err))
 	}
 	if n == 0 {
 		if err := w.analysisView(ctx, o); err != nil {
@@ -147,17 +127,17 @@ func (w *Warehouse) startRun(ctx context.Context, o *objects, out warehouse.Outp
 	}
 	// This run holds the lock, so a run of the study still marked running
 	// belongs to a process that died.
-	if _, err := w.conn.Exec(ctx, render("abandon_runs.sql", map[string]string{"Runs": o.runs}),
+	if _, err := w.conn.Exec(ctx, render("abandon_runs.sql", map[string]string{"Runs": o.Runs}),
 		run.Study, run.RunID, started, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
-		return fmt.Errorf("mark abandoned runs in %s: %w", o.c.Runs.Name, w.dbErr(err))
+		return fmt.Errorf("mark abandoned runs in %s: %w", o.C.Runs.Name, w.dbErr(err))
 	}
-	_, err := w.conn.Exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.runs}),
+	_, err := w.conn.Exec(ctx, render("insert_run.sql", map[string]string{"Runs": o.Runs}),
 		run.RunID, run.Study, warehouse.StatusRunning, started, nullTime(run.FinishedAt),
 		run.ToolVersion, run.SpecSHA256, nullText(run.SpecJSON), run.CohortSQL, nullText(run.CohortFingerprint),
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
 		engineName(run.Engine), nullText(run.DBUser), nullText(run.Message), nullText(run.SummaryJSON))
 	if err != nil {
-		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.c.Runs.Name, w.dbErr(err))
+		return fmt.Errorf("insert run %s into %s: %w", run.RunID, o.C.Runs.Name, w.dbErr(err))
 	}
 	return nil
 }
@@ -192,7 +172,7 @@ func (w *Warehouse) ensureTable(ctx context.Context, schema string, t *warehouse
 		if runs {
 			data.Columns[0].Constraint = "PRIMARY KEY"
 			check := "CHECK (status IN ("
-			for i, s := range statuses {
+			for i, s := range warehouse.Statuses {
 				if i > 0 {
 					check += ", "
 				}
@@ -243,16 +223,16 @@ func (w *Warehouse) tableColumns(ctx context.Context, schema, table string) (map
 
 // currentViews (re)creates the four current_* views; a view's column list
 // is fixed when it is created, so they follow the tables' new columns.
-func (w *Warehouse) currentViews(ctx context.Context, o *objects) error {
+func (w *Warehouse) currentViews(ctx context.Context, o *warehouse.Objects) error {
 	for _, v := range []struct{ view, table, what string }{
-		{o.c.CurrentCohort, o.cohort, "cohort snapshot"},
-		{o.c.CurrentScores, o.scores, "propensity scores"},
-		{o.c.CurrentMatches, o.matches, "matched sets"},
-		{o.c.CurrentWeights, o.weights, "weights"},
-		{o.c.CurrentEffects, o.effects, "effect estimates"},
+		{o.C.CurrentCohort, o.Cohort, "cohort snapshot"},
+		{o.C.CurrentScores, o.Scores, "propensity scores"},
+		{o.C.CurrentMatches, o.Matches, "matched sets"},
+		{o.C.CurrentWeights, o.Weights, "weights"},
+		{o.C.CurrentEffects, o.Effects, "effect estimates"},
 	} {
 		data := map[string]string{
-			"View": warehouse.QuoteQualified(o.c.Schema, v.view), "Table": v.table, "Runs": o.runs,
+			"View": warehouse.QuoteQualified(o.C.Schema, v.view), "Table": v.table, "Runs": o.Runs,
 			"Comment": "The " + v.what + " of the latest succeeded run.",
 		}
 		if _, err := w.conn.Exec(ctx, render("current_view.sql", data)); err != nil {
@@ -272,13 +252,13 @@ type balanceScheme struct{ Name, Col string }
 
 // balanceViews (re)creates the balance and balance_history views for the
 // covariates and schemes of out.
-func (w *Warehouse) balanceViews(ctx context.Context, o *objects, out warehouse.Output) error {
+func (w *Warehouse) balanceViews(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
 	data := struct {
 		View, Runs, Cohort, Matches, Weights, Unit, Treatment, Comment string
 		Current, HasNumeric                                            bool
 		Vars                                                           []balanceVar
 		Schemes                                                        []balanceScheme
-	}{Runs: o.runs, Cohort: o.cohort, Matches: o.matches, Weights: o.weights,
+	}{Runs: o.Runs, Cohort: o.Cohort, Matches: o.Matches, Weights: o.Weights,
 		Unit: warehouse.Quote(out.Unit), Treatment: warehouse.Quote(out.Treatment)}
 	for i, cv := range out.Covariates {
 		data.Vars = append(data.Vars, balanceVar{Name: cv.Name, Col: warehouse.Quote(cv.Name),
@@ -293,10 +273,10 @@ func (w *Warehouse) balanceViews(ctx context.Context, o *objects, out warehouse.
 		current bool
 		comment string
 	}{
-		{o.c.Balance, true, "Covariate balance of the latest succeeded run: means, SDs, SMD and variance ratio per covariate, level and adjustment (unadjusted, matched, each weighting scheme). SMD uses the unadjusted pooled SD (Austin 2009)."},
-		{o.c.BalanceHistory, false, "Covariate balance of every run still kept, computed like the balance view."},
+		{o.C.Balance, true, "Covariate balance of the latest succeeded run: means, SDs, SMD and variance ratio per covariate, level and adjustment (unadjusted, matched, each weighting scheme). SMD uses the unadjusted pooled SD (Austin 2009)."},
+		{o.C.BalanceHistory, false, "Covariate balance of every run still kept, computed like the balance view."},
 	} {
-		data.View, data.Current, data.Comment = warehouse.QuoteQualified(o.c.Schema, v.name), v.current, v.comment
+		data.View, data.Current, data.Comment = warehouse.QuoteQualified(o.C.Schema, v.name), v.current, v.comment
 		if _, err := w.conn.Exec(ctx, render("balance_view.sql", data)); err != nil {
 			return fmt.Errorf("create view %s: %w", v.name, w.dbErr(err))
 		}
@@ -317,7 +297,7 @@ func (w *Warehouse) Publish(ctx context.Context, out warehouse.Output, p *wareho
 	if err := w.writable("publish"); err != nil {
 		return err
 	}
-	o, err := newObjects(out)
+	o, err := warehouse.NewObjects(out)
 	if err != nil {
 		return fmt.Errorf("publish: %w", err)
 	}
@@ -351,7 +331,7 @@ func (w *Warehouse) step(name string) error {
 	return nil
 }
 
-func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Output, p *warehouse.Publication) error {
+func (w *Warehouse) publish(ctx context.Context, o *warehouse.Objects, out warehouse.Output, p *warehouse.Publication) error {
 	if p.InTx != nil {
 		// Warehouse-scale mode: matches from memory, then the caller's
 		// INSERT … SELECT statements, which may settle the run's status.
@@ -373,14 +353,14 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 	if finished.IsZero() {
 		finished = time.Now().UTC()
 	}
-	tag, err := w.conn.Exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.runs}),
+	tag, err := w.conn.Exec(ctx, render("finish_run.sql", map[string]string{"Runs": o.Runs}),
 		r.RunID, r.Status, finished, nullText(r.CohortFingerprint), nullText(r.CountsJSON),
 		nullText(r.ModelJSON), nullText(r.BalanceJSON), nullText(r.EffectsJSON), nullText(r.Message), nullText(r.SummaryJSON))
 	if err != nil {
-		return fmt.Errorf("update %s: %w", o.c.Runs.Name, w.dbErr(err))
+		return fmt.Errorf("update %s: %w", o.C.Runs.Name, w.dbErr(err))
 	}
 	if tag.RowsAffected() != 1 {
-		return fmt.Errorf("run %s is not a running run in %s (StartRun must come first, and a run is published once)", r.RunID, o.c.Runs.Name)
+		return fmt.Errorf("run %s is not a running run in %s (StartRun must come first, and a run is published once)", r.RunID, o.C.Runs.Name)
 	}
 	if err := w.step("runs"); err != nil {
 		return err
@@ -397,8 +377,8 @@ func (w *Warehouse) publish(ctx context.Context, o *objects, out warehouse.Outpu
 		return err
 	}
 	if out.KeepRuns > 0 {
-		for _, t := range []string{o.cohort, o.scores, o.matches, o.weights, o.effects, o.runs} {
-			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.runs})
+		for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
+			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.Runs})
 			if _, err := w.conn.Exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
 				return fmt.Errorf("retention on %s: %w", t, w.dbErr(err))
 			}

@@ -86,6 +86,9 @@ func NewDatabase(t testing.TB) string {
 	admin := Admin(t)
 	name := fmt.Sprintf("counterpart_test_%d_%d_%d", os.Getpid(), time.Now().UnixNano()%1e9, seq.Add(1))
 	Exec(t, admin, "CREATE DATABASE "+name)
+	// A runaway test query must not outlive its test and block the
+	// scratch database's cleanup: cap every statement in it.
+	Exec(t, admin, "ALTER DATABASE "+name+" SET statement_timeout = '5min'")
 	t.Cleanup(func() {
 		ctx, cancel := context.WithTimeout(context.Background(), 30*time.Second)
 		defer cancel()

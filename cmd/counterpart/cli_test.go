@@ -88,3 +88,30 @@ func TestHelpListsExitCodes(t *testing.T) {
 		}
 	}
 }
+
+// TestLogFormatJSON: with --log-format json every stderr line is one JSON
+// record (schedulers parse them), and the failure of an unchanged rerun
+// arrives as one error record carrying the exit code.
+func TestLogFormatJSON(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"counterpart", "demo", "--dir", dir, "--units", "2500"}, &out, &errb); code != exitOK {
+		t.Fatalf("demo: %s", errb.String())
+	}
+	errb.Reset()
+	code := run(ctx, []string{"counterpart", "--log-format", "json", "run", "--skip-unchanged", filepath.Join(dir, "hf_coaching.yaml")}, &out, &errb)
+	if code != exitUnchanged {
+		t.Fatalf("exit %d, want %d: %s", code, exitUnchanged, errb.String())
+	}
+	lines := strings.Split(strings.TrimSpace(errb.String()), "\n")
+	var last map[string]any
+	for _, l := range lines {
+		if err := json.Unmarshal([]byte(l), &last); err != nil {
+			t.Fatalf("stderr line is not JSON: %q", l)
+		}
+	}
+	if last["level"] != "ERROR" || last["exit_code"] != float64(exitUnchanged) {
+		t.Errorf("last record %v, want an ERROR with exit_code 5", last)
+	}
+}

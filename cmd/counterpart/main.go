@@ -67,6 +67,9 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 		HideHelpCommand:       true,
 		CustomAppHelpTemplate: cli.AppHelpTemplate + "\n" + exitHelp + "\n",
 		ExitErrHandler:        func(*cli.Context, error) {},
+		Flags: []cli.Flag{
+			&cli.StringFlag{Name: "log-format", Usage: "log stages to stderr as `FORMAT` text or json (default: text on a terminal, nothing otherwise)"},
+		},
 		Commands: []*cli.Command{
 			{
 				Name:      "run",

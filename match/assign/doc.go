@@ -72,11 +72,11 @@
 //	sub, err := assign.Subclasses(ps, treated, eligible, 0) // 5 quantile subclasses
 //	w, err := assign.SubclassWeights(sub, treated, assign.ATT)
 //
-// Known limit: Full spends most of its time in searches that pass through
-// the hub node (treated units whose neighbouring controls are all taken),
-// and its time grows about quadratically with n; 50,000 units take on the
-// order of 100 s on one core. Optimal grows more gently (see the
-// benchmarks in bench_test.go).
+// Speed: Full starts each solve from the nearest-partner cover (package
+// flow, warmStart), so its searches stay local; 50,000 units take about
+// 0.1 s and time grows roughly linearly. Ratio bounds are slower: the
+// certificate widens the candidate windows over more rounds. See the
+// benchmarks in bench_test.go.
 //
 // # Mahalanobis distance inside a propensity caliper
 //

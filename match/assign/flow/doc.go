@@ -32,7 +32,18 @@
 // settled its neighbours are drawn from the tree in increasing order, one
 // at a time, only while they can still beat the deficit node.
 //
-// Supplies are routed in two phases: every unit node with excess pushes
+// When the controls demand flow (full matching), Solve does not start from
+// zero flow: every control first takes its cheapest candidate arc, with
+// its potential set to that arc's cost, and treated units chosen by
+// several controls take the surplus from the hub (see warmStart for why
+// the reduced costs stay >= 0). The hub then has a deficit instead of an
+// excess, so the remaining searches, from treated units no control chose,
+// end when they reach the hub rather than expanding out of it to every
+// treated unit. On the benchmark design of package assign this turned the
+// roughly quadratic time into near-linear (n = 50,000: about 100 s before,
+// 0.2 s after).
+//
+// Supplies are then routed in two phases: every unit node with excess pushes
 // to the nearest deficit, then every unit node left with a deficit pulls
 // from the nearest excess by the same search on the reversed residual
 // graph. Between calls to Solve, Reset restarts from zero flow: saturating

@@ -83,6 +83,11 @@ type Network struct {
 	inTree    segTree // v -> hub arcs, key c(v,hub) + h(v)
 	extracted []int32
 	pulling   bool // the current search runs backwards from a deficit
+	fresh     bool // zero flow and zero potentials: Solve may warm-start
+
+	// WarmStarts counts the solves that began with the nearest-partner
+	// start (see warmStart).
+	WarmStarts int
 
 	// Augmentations counts the unit augmentations done so far.
 	Augmentations int
@@ -117,6 +122,7 @@ func New(nt, nc int, spec Spec) *Network {
 		total += spec.SupplyC
 	}
 	g.excess[g.hub] = -total
+	g.fresh = true
 	g.hubTree = newSegTree(nt + nc)
 	g.inTree = newSegTree(nt + nc)
 	for v := 0; v < nt+nc; v++ {
@@ -130,6 +136,7 @@ func New(nt, nc int, spec Spec) *Network {
 // the first: saturating the new arcs instead (the warm restart) leaves
 // excesses whose searches shift the potentials of whole regions by the
 // penalty Tier, which the check against non-candidate pairs then rejects.
+// After Reset, Solve warm-starts again as after New (see warmStart).
 func (g *Network) Reset() {
 	clear(g.flow)
 	clear(g.upF)
@@ -144,6 +151,7 @@ func (g *Network) Reset() {
 		total += g.excess[v]
 	}
 	g.excess[g.hub] = -total
+	g.fresh = true
 	for v := 0; v < g.hub; v++ {
 		g.updateLeaf(v)
 	}
@@ -280,12 +288,19 @@ func fill(arc []int32, start []int32, key []int32, m int) []int32 {
 }
 
 // Solve routes all excess to the deficits at minimum cost, starting from
-// the current flow. Arcs added since the last call whose reduced cost is
+// the current flow (after New or Reset, from the warm start of warmStart
+// when SupplyC < 0). Arcs added since the last call whose reduced cost is
 // below -tol are first saturated (which keeps every residual reduced cost
 // >= 0 and moves one unit of excess), the standard restart of successive
 // shortest paths after new arcs (Ahuja, Magnanti & Orlin 1993, section 9.7).
 func (g *Network) Solve(tol float64) error {
 	g.index()
+	if g.fresh {
+		g.fresh = false
+		if g.spec.SupplyC < 0 {
+			g.warmStart()
+		}
+	}
 	for a := range g.from {
 		if g.flow[a] {
 			continue
@@ -304,7 +319,8 @@ func (g *Network) Solve(tol float64) error {
 	// searches that start at the uncovered control, which are local; a
 	// search from the hub would start at every treated node at once. (The
 	// opposite order was measured slower: pulls then spread through the
-	// controls already attached to each treated unit.)
+	// controls already attached to each treated unit.) After warmStart the
+	// hub usually has a deficit instead, and the pushes end at it.
 	for v := 0; v < g.hub; v++ {
 		for g.excess[v] > 0 {
 			if err := g.augment(v); err != nil {

@@ -62,6 +62,21 @@ func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 		p.row("matching", "%s 1:%d %s, %s, %d exact strata", mt.Algorithm, mt.Controls, reuse, cal, mt.Strata)
 		p.row("", "%s of %s treated matched to %s comparison units (%s unmatched)",
 			thousands(mt.MatchedTreated), thousands(c.SupportTreated), thousands(mt.MatchedControls), thousands(mt.UnmatchedTreated))
+		if sv := mt.Solver; sv != nil {
+			cert := "certified optimal against every eligible pair"
+			if !sv.Certified {
+				cert = p.red("NOT certified")
+			}
+			line := fmt.Sprintf("total distance %.4g, %s (%d rounds, %.2fs)", float64(sv.Objective), cert, sv.Rounds, float64(sv.Seconds))
+			if sv.GreedyTotal > 0 {
+				line += fmt.Sprintf("; greedy on the same units: %.4g", float64(sv.GreedyTotal))
+			}
+			p.row("", "%s", line)
+		}
+		if ch := mt.Churn; ch != nil {
+			p.row("", "kept %s of %s sets from run %s, released %s, formed %s new",
+				thousands(ch.Kept), thousands(ch.PriorSets), ch.PriorRun, thousands(ch.Released), thousands(ch.New))
+		}
 	}
 	p.line("")
 	vr := float64(s.Gate.VRLimit)

@@ -1,6 +1,3 @@
-// Package report renders a run's summary for people: the terminal summary
-// now, the HTML report later. It formats values it is given and must not
-// read databases, files or flags.
 package report
 
 import (

@@ -41,7 +41,11 @@ func FitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.C
 		}
 		return m.Info, m.Grad, m.LogLik, m.Perfect, nil
 	}
-	fit, _, err := score.FitMoments(d.Names(), d.Centers(), d.Scales(), desc.N, desc.NTreated, eval, opt)
+	start, err := seedInWarehouse(ctx, iw, q, d, desc.N, opt)
+	if err != nil {
+		return nil, nil, err
+	}
+	fit, _, err := score.FitMomentsFrom(d.Names(), d.Centers(), d.Scales(), desc.N, desc.NTreated, eval, opt, start)
 	if err != nil {
 		var nc *score.NotConvergedError
 		if fit == nil || !errors.As(err, &nc) {
@@ -50,6 +54,45 @@ func FitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.C
 		return fit, d, badInput("fit score", err)
 	}
 	return fit, d, nil
+}
+
+// SeedSampleSize is about how many units seedInWarehouse fits in memory to
+// start the in-warehouse Newton iteration: the sample keeps one unit in
+// max(1, n/SeedSampleSize), so it holds n units when n ≤ SeedSampleSize
+// and about SeedSampleSize otherwise (~20 MB of design for 25 columns).
+const SeedSampleSize = 100000
+
+// seedInWarehouse returns the start of the in-warehouse fit: the same
+// model fitted in memory (score.FitModel) on a deterministic sample of the
+// units (warehouse.Sampler: a hash of the unit id modulo n/SeedSampleSize),
+// or nil when the engine has no Sampler or the sample's fit fails (too few
+// units for a rare level, separation in the sample, ...): the default
+// start is then used. The sample only seeds the iteration; the moments of
+// every step and the convergence test are over the full cohort
+// (score.FitMomentsFrom), so the estimate is the full-data one to the
+// tolerance of the convergence rule. A sample of ~100k units puts the
+// start within a few standard errors of the answer, where Newton's method
+// converges quadratically: about 3 full passes instead of about 10.
+func seedInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, d *warehouse.DesignSQL, n int, opt score.Options) ([]float64, error) {
+	sm, ok := iw.(warehouse.Sampler)
+	if !ok {
+		return nil, nil
+	}
+	x, z, err := sm.SampleDesign(ctx, q, d, max(1, n/SeedSampleSize))
+	if err != nil {
+		if ctx.Err() != nil {
+			return nil, fmt.Errorf("fit score: seed sample: %w", err)
+		}
+		return nil, nil
+	}
+	if len(z) < 2*len(x)+2 {
+		return nil, nil
+	}
+	fit, err := score.FitModel(x, d.Names(), z, opt)
+	if err != nil || fit == nil {
+		return nil, nil
+	}
+	return fit.Coef, nil
 }
 
 // SupportInWarehouse returns the common-support interval of rule on the

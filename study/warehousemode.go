@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"runtime/debug"
 	"sort"
 	"time"
 
@@ -12,20 +13,35 @@ import (
 	"counterpart/warehouse"
 )
 
+// ScaleGoMemoryLimit is the Go runtime's soft memory limit during a
+// warehouse-scale run (runtime/debug.SetMemoryLimit), when GOMEMLIMIT
+// does not set one: the collector runs more often as the heap nears it,
+// which keeps the run's resident memory near its live data. It is soft:
+// a run that needs more gets more.
+const ScaleGoMemoryLimit = 160 << 20
+
 // runInWarehouse is Run for score.fit_in: warehouse. The covariate matrix
 // never leaves the engine:
 //
-//   - fit: Describe, then one Moments aggregate per Newton step
-//     (FitInWarehouse); support from LogitRange (SupportInWarehouse);
+//   - fit: Describe, a seed fitted in memory on a ~100k-unit hash sample
+//     of the cohort (warehouse.Sampler), then one Moments aggregate per
+//     Newton step from the seed (FitInWarehouse); support from LogitRange
+//     (SupportInWarehouse);
 //   - match: MatchInput brings id, treatment, stratum, logit and support
 //     flag per unit, and the existing greedy or optimal code matches in
 //     memory on those slices;
 //   - publish, one transaction: the runs row, the cohort snapshot by
 //     INSERT … SELECT from cohort.sql, scores and weights by ScoreInto,
 //     the matches from memory; then, inside the same transaction, balance
-//     is read back from the balance_history view and effects from
-//     aggregate sums (inWarehouseEffect), and they settle the run's
-//     status before the runs row is written.
+//     from one aggregate pass over the rows just written (the
+//     balance_history view's definitions) and effects from aggregate sums
+//     (inWarehouseEffect), and they settle the run's status before the
+//     runs row is written.
+//
+// Memory: an in-process engine (DuckDB) caps its buffer pool
+// (warehouse.ScaleTuner) and the Go runtime gets a soft limit
+// (ScaleGoMemoryLimit), so the run's resident memory stays a fraction of
+// the in-memory path's.
 //
 // The summary carries no cohort fingerprint (it would need every row);
 // options needing per-unit data in the process are refused by the spec.
@@ -36,6 +52,22 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	sp, ok := wh.(warehouse.ScalePublisher)
 	if !ok && !opt.DryRun {
 		return sum, fmt.Errorf("score.fit_in: %w: engine %s cannot publish in warehouse-scale mode; use fit_in: memory", warehouse.ErrBadInput, wh.Engine())
+	}
+	// An engine running in this process (DuckDB) caps its buffer pool:
+	// otherwise it keeps the pages it scans and the run's resident memory
+	// exceeds the in-memory path's, which this mode exists to avoid.
+	if t, ok := wh.(warehouse.ScaleTuner); ok {
+		if err := t.TuneForScale(ctx); err != nil {
+			return sum, fmt.Errorf("score.fit_in: %w", err)
+		}
+	}
+	// The Go heap of this mode is a few slices per unit (MatchInput, the
+	// matches rows); without a soft limit the collector lets it grow to
+	// twice the live heap between cycles. Set one for the run unless the
+	// user set GOMEMLIMIT.
+	if prev := debug.SetMemoryLimit(-1); prev == math.MaxInt64 {
+		debug.SetMemoryLimit(ScaleGoMemoryLimit)
+		defer debug.SetMemoryLimit(prev)
 	}
 	now := opt.Now
 	if now == nil {
@@ -144,7 +176,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		if err := iw.ScoreInto(ctx, out, sum.RunID, q, d, fit.Coef, sup, s.Schemes()); err != nil {
 			return err
 		}
-		if err := balanceInWarehouse(ctx, sp, c, s, sum, thin.Treated, mw); err != nil {
+		if err := balanceInWarehouse(ctx, sp, c, out.Covariates, balanceShifts(d, out.Covariates), s, sum, thin.Treated, mw); err != nil {
 			return err
 		}
 		if err := effectsInWarehouse(ctx, sp, c, s, sum); err != nil {
@@ -275,25 +307,20 @@ func textOf(v any) string {
 	return ""
 }
 
-// balanceInWarehouse reads this run's rows of the balance_history view
-// (inside the publish transaction, so the rows just written are seen),
-// judges them with balance.Judge as the in-memory path does, and sets the
+// balanceInWarehouse computes this run's balance statistics with the
+// balance_history view's definitions from one aggregate pass over the
+// rows just written (balanceRowsInWarehouse, inside the publish
+// transaction, so they are seen), judges them with balance.Judge as the in-memory path does, and sets the
 // gate. ESS: unadjusted the arm sizes, matched from the summed set
 // weights, schemes (Σw)²/Σw² per arm from WeightSumsSQL.
-func balanceInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, s *Spec, sum *Summary, z []bool, mw []float64) error {
-	got, err := sp.QueryRows(ctx, warehouse.BalanceRowsSQL(c), sum.RunID)
+func balanceInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, covs []warehouse.CovariateMeta, shifts []float64, s *Spec, sum *Summary, z []bool, mw []float64) error {
+	byAdj, err := balanceRowsInWarehouse(ctx, sp, c, sum.RunID, covs, shifts, adjustmentNames(s), mw != nil, s.Schemes())
 	if err != nil {
 		return fmt.Errorf("balance: %w", err)
 	}
 	pos := map[string]int{}
 	for i, name := range s.Cohort.Covariates {
 		pos[name] = i
-	}
-	byAdj := map[string][]balance.Stat{}
-	for _, r := range got {
-		st := balance.Stat{Name: textOf(r[0]), Level: textOf(r[1]), Binary: r[1] != nil,
-			MeanT: numOf(r[3]), MeanC: numOf(r[4]), SDT: numOf(r[5]), SDC: numOf(r[6]), SMD: numOf(r[7]), VarRatio: numOf(r[8])}
-		byAdj[textOf(r[2])] = append(byAdj[textOf(r[2])], st)
 	}
 	ess := map[string][2]float64{"unadjusted": {float64(sum.Counts.Treated), float64(sum.Counts.Control)}}
 	if mw != nil {

@@ -85,6 +85,22 @@ func TestWarehouseModeMatchesMemory(t *testing.T) {
 			t.Errorf("balance %d: memory %s %v %v ESS %v/%v, warehouse %s %v %v ESS %v/%v", i, bm.Adjustment, bm.Pass, bm.WorstSMD, bm.ESSTreated, bm.ESSControl,
 				bw.Adjustment, bw.Pass, bw.WorstSMD, bw.ESSTreated, bw.ESSControl)
 		}
+		// Every statistic, not only the worst SMD: the warehouse path
+		// computes them with its own aggregate queries.
+		if len(bm.Stats) != len(bw.Stats) {
+			t.Errorf("balance %s: %d stats in memory, %d in the warehouse", bm.Adjustment, len(bm.Stats), len(bw.Stats))
+			continue
+		}
+		for j, sm := range bm.Stats {
+			sw := bw.Stats[j]
+			for _, p := range [][2]Num{{sm.MeanT, sw.MeanT}, {sm.MeanC, sw.MeanC}, {sm.SDT, sw.SDT}, {sm.SDC, sw.SDC}, {sm.SMD, sw.SMD}, {sm.VarRatio, sw.VarRatio}} {
+				a, b := float64(p[0]), float64(p[1])
+				if sm.Name != sw.Name || sm.Level != sw.Level || math.IsNaN(a) != math.IsNaN(b) || (!math.IsNaN(a) && relDiff(a, b) > 1e-9) {
+					t.Errorf("balance %s %s %s: memory %+v, warehouse %+v", bm.Adjustment, sm.Name, sm.Level, sm, sw)
+					break
+				}
+			}
+		}
 	}
 
 	db, err = sql.Open("duckdb", dsn)

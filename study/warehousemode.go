@@ -57,7 +57,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	// otherwise it keeps the pages it scans and the run's resident memory
 	// exceeds the in-memory path's, which this mode exists to avoid.
 	if t, ok := wh.(warehouse.ScaleTuner); ok {
-		if err := t.TuneForScale(ctx); err != nil {
+		if err := t.TuneForScale(ctx, 0); err != nil {
 			return sum, fmt.Errorf("score.fit_in: %w", err)
 		}
 	}
@@ -98,6 +98,13 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	}
 	n, nt := fit.N, fit.NTreated
 	sum.Counts = Counts{Units: n, Treated: nt, Control: n - nt}
+	// Now that the cohort's size is known, give the engine room for the
+	// publish step's joins (see warehouse.ScaleTuner).
+	if t, ok := wh.(warehouse.ScaleTuner); ok {
+		if err := t.TuneForScale(ctx, n); err != nil {
+			return sum, fmt.Errorf("score.fit_in: %w", err)
+		}
+	}
 	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
 		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik)}
 	for j, name := range fit.Names {

@@ -23,9 +23,10 @@ type Sampler interface {
 // ScaleTuner is an optional engine interface: an engine that runs inside
 // the tool's process (DuckDB) lowers its own memory use for a
 // warehouse-scale run, where its buffer pool would otherwise be most of
-// the process's resident memory.
+// the process's resident memory. units is the cohort's size once known (0
+// before): the limit grows with it so that the publish step's joins fit.
 type ScaleTuner interface {
-	TuneForScale(ctx context.Context) error
+	TuneForScale(ctx context.Context, units int) error
 }
 
 // SampleSQL returns the query of SampleDesign: z (0/1), then x1..xp on

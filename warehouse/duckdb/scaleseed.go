@@ -14,7 +14,7 @@ var (
 
 // ScaleMemoryPerThread and ScaleMemoryFloor set the DuckDB memory_limit
 // of a warehouse-scale run: max(ScaleMemoryFloor, threads ×
-// ScaleMemoryPerThread) bytes. DuckDB runs in this process, so its buffer
+// ScaleMemoryPerThread, units × ScaleMemoryPerUnit) bytes. DuckDB runs in this process, so its buffer
 // pool is the tool's resident memory: by default it may grow to 80 % of
 // the machine's RAM and keeps the pages of the database file it has read,
 // which made a warehouse-scale run (3.6 GB at 2 million units × 20
@@ -29,17 +29,22 @@ var (
 const (
 	ScaleMemoryPerThread = 64 << 20
 	ScaleMemoryFloor     = 128 << 20
+	// ScaleMemoryPerUnit keeps room for the publish step's joins of the
+	// run's rows (snapshot, matches, weights), which cannot all spill: at
+	// 10,000,000 units a flat 128 MB ran out of memory in the balance sums.
+	// 96 bytes a unit is under a tenth of what the in-memory path holds.
+	ScaleMemoryPerUnit = 96
 )
 
 // TuneForScale implements warehouse.ScaleTuner: SET memory_limit (see
 // ScaleMemoryPerThread) for the rest of the session; the setting is
 // global to the database instance, which this Warehouse alone uses.
-func (w *Warehouse) TuneForScale(ctx context.Context) error {
+func (w *Warehouse) TuneForScale(ctx context.Context, units int) error {
 	var threads int64
 	if err := w.conn.QueryRowContext(ctx, "SELECT CAST(current_setting('threads') AS BIGINT)").Scan(&threads); err != nil {
 		return fmt.Errorf("read threads setting: %w", dbErr(err))
 	}
-	limit := max(int64(ScaleMemoryFloor), threads*ScaleMemoryPerThread)
+	limit := max(int64(ScaleMemoryFloor), threads*ScaleMemoryPerThread, int64(units)*ScaleMemoryPerUnit)
 	if _, err := w.exec(ctx, fmt.Sprintf("SET memory_limit = '%dMB'", limit>>20)); err != nil {
 		return fmt.Errorf("set memory_limit: %w", dbErr(err))
 	}

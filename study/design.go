@@ -152,20 +152,7 @@ func fingerprint(c *warehouse.Cohort) string {
 // pooledSD is √((s₁² + s₀²)/2) with n−1 sample variances: the SD the
 // caliper is measured in (Austin 2011, Pharm Stat 10:150, pooled reading).
 func pooledSD(x []float64, z []bool) float64 {
-	var v [2]struct{ n, mean, m2 float64 }
-	for i, xi := range x {
-		a := &v[0]
-		if z[i] {
-			a = &v[1]
-		}
-		a.n++
-		d := xi - a.mean
-		a.mean += d / a.n
-		a.m2 += d * (xi - a.mean)
-	}
-	s1 := v[1].m2 / (v[1].n - 1)
-	s0 := v[0].m2 / (v[0].n - 1)
-	return math.Sqrt((s1 + s0) / 2)
+	return balance.PooledSD(balance.Variable{Values: x}, z)
 }
 
 // auc is the c-statistic of the score: the probability that a random

@@ -51,14 +51,18 @@ type matchedRows struct {
 // ratios), each with its sensitivity figures.
 func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRows, logit []float64, scale outcomeScale) ([]EffectRow, error) {
 	y := o.Values
+	// Matched estimates work on the expanded rows (one per set appearance).
+	var yy []float64
+	if a.matched {
+		yy = make([]float64, len(mr.unit))
+		for r, u := range mr.unit {
+			yy[r] = y[u]
+		}
+	}
 	var rows []effect.Estimate
 	var err error
 	switch {
 	case a.matched:
-		yy := make([]float64, len(mr.unit))
-		for r, u := range mr.unit {
-			yy[r] = y[u]
-		}
 		if o.Binary {
 			rows, err = effect.Contrasts(yy, mr.z, mr.w, mr.cluster)
 		} else {
@@ -89,10 +93,6 @@ func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRow
 		// difference is still estimable.
 		var e effect.Estimate
 		if a.matched {
-			yy := make([]float64, len(mr.unit))
-			for r, u := range mr.unit {
-				yy[r] = y[u]
-			}
 			e, err = effect.ClusteredDifference(yy, mr.z, mr.w, mr.cluster)
 		} else {
 			e, err = effect.Difference(y, z, a.w)

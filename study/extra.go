@@ -39,7 +39,7 @@ func applyRules(r WeightRules, w []float64, z []bool) ([]float64, error) {
 // (clustered by matched set for matching): the estimate stays consistent
 // if either the score or the outcome model is right. Rows are named
 // "<adjustment>+regression".
-func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]float64, names []string, sum *Summary) error {
+func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]float64, sum *Summary) error {
 	for _, o := range c.Outcomes {
 		for _, a := range adjs {
 			var e effect.Estimate
@@ -61,7 +61,7 @@ func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]f
 				e, err = effect.Augmented(o.Values, c.Treated, a.w, x, nil)
 			}
 			if err != nil {
-				return badInput(fmt.Sprintf("estimate %s (%s+regression)", o.Name, a.name), namedColumnError(err, names))
+				return badInput(fmt.Sprintf("estimate %s (%s+regression)", o.Name, a.name), err)
 			}
 			r := effectRow(o.Name, a.name+"+regression", a.estimand, e)
 			sum.Effects = append(sum.Effects, r)
@@ -69,10 +69,6 @@ func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]f
 	}
 	return nil
 }
-
-// namedColumnError keeps an error as it is; covariate names are added by
-// the message of effect.Augmented's caller when it can tell them apart.
-func namedColumnError(err error, _ []string) error { return err }
 
 // bootstrapAll adds bootstrap intervals to the weighting estimators'
 // difference rows. Each replicate resamples units with replacement,
@@ -91,6 +87,15 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 		for _, sc := range schemes {
 			keys = append(keys, key{o.Name, sc})
 		}
+	}
+	// Resolve the schemes once, not in every replicate.
+	fns := make([]func(ps []float64, z []bool) []float64, len(schemes))
+	for i, sc := range schemes {
+		fn, err := weights.ByName(sc)
+		if err != nil {
+			return badInput("bootstrap", err)
+		}
+		fns[i] = fn
 	}
 	reps := s.Estimate.Bootstrap
 	n := c.N()
@@ -137,9 +142,8 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 					for i, k := range idx {
 						y[i] = o.Values[k]
 					}
-					for _, sc := range schemes {
-						fn, _ := weights.ByName(sc)
-						w, err := applyRules(s.Rules, weights.Restrict(fn(fit.PS, z), keep), z)
+					for si := range schemes {
+						w, err := applyRules(s.Rules, weights.Restrict(fns[si](fit.PS, z), keep), z)
 						var e effect.Estimate
 						if err == nil {
 							e, err = effect.Difference(y, z, w)

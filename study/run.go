@@ -111,8 +111,10 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 			return sum, fmt.Errorf("skip unchanged: %w", err)
 		}
 		if ok && last.SpecSHA256 == s.SHA256 {
-			if fp := fingerprint(c); fp == last.CohortFingerprint {
-				sum.Status, sum.Fingerprint = warehouse.StatusSkipped, fp
+			// Kept in the summary, so the analysis does not hash again.
+			sum.Fingerprint = fingerprint(c)
+			if sum.Fingerprint == last.CohortFingerprint {
+				sum.Status = warehouse.StatusSkipped
 				sum.Message = "cohort and study unchanged since run " + last.RunID
 				return sum, fmt.Errorf("%w (run %s)", ErrUnchanged, last.RunID)
 			}
@@ -224,10 +226,13 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	if err := checkTextNumbers(s, c); err != nil {
 		return nil, err
 	}
-	// The fingerprint only needs the cohort: hash it while the model fits.
-	fp := make(chan string, 1)
-	go func() { fp <- fingerprint(c) }()
-	defer func() { sum.Fingerprint = <-fp }()
+	// The fingerprint only needs the cohort: hash it while the model fits
+	// (unless the skip-unchanged check already did).
+	if sum.Fingerprint == "" {
+		fp := make(chan string, 1)
+		go func() { fp <- fingerprint(c) }()
+		defer func() { sum.Fingerprint = <-fp }()
+	}
 	d, err := buildDesign(c)
 	if err != nil {
 		return nil, fmt.Errorf("design: %w", err)
@@ -444,7 +449,7 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		return nil, err
 	}
 	if s.Estimate.Augment {
-		if err := augmentAll(c, adjs, mr, d.x, d.names, sum); err != nil {
+		if err := augmentAll(c, adjs, mr, d.x, sum); err != nil {
 			return nil, err
 		}
 	}

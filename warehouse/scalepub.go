@@ -14,8 +14,8 @@ import (
 type ScalePublisher interface {
 	// SnapshotInto writes the run's cohort snapshot with SnapshotSQL.
 	SnapshotInto(ctx context.Context, out Output, runID string, q CohortQuery, d *DesignSQL) error
-	// QueryRows runs a query built by this package (BalanceRowsSQL,
-	// EffectSumsSQL, MatchedSumsSQL) and returns its rows: numbers as
+	// QueryRows runs a query built by this package (EffectSumsSQL,
+	// MatchedSumsSQL, BalanceSumsSQL) and returns its rows: numbers as
 	// float64, text as string, booleans as bool, NULL as nil.
 	QueryRows(ctx context.Context, query string, args ...any) ([][]any, error)
 }
@@ -59,14 +59,6 @@ func SnapshotSQL(c *Contract, q CohortQuery, d *DesignSQL, covKinds []CovKind, o
 	}
 	return fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM %s",
 		QuoteQualified(c.Schema, c.Cohort.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), From(q.SQL)), nil
-}
-
-// BalanceRowsSQL reads one run's rows of the balance_history view ($1 is
-// the run id): covariate, level, adjustment, mean_treated, mean_control,
-// sd_treated, sd_control, smd, variance_ratio.
-func BalanceRowsSQL(c *Contract) string {
-	return "SELECT covariate, level, adjustment, mean_treated, mean_control, sd_treated, sd_control, smd, variance_ratio FROM " +
-		QuoteQualified(c.Schema, c.BalanceHistory) + " WHERE run_id = CAST($1 AS VARCHAR)"
 }
 
 // EffectSumsSQL returns the per-arm sums of one outcome under one

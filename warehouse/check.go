@@ -3,6 +3,7 @@ package warehouse
 import (
 	"errors"
 	"fmt"
+	"strings"
 )
 
 // CheckPublication catches a publication that does not fit its output
@@ -126,4 +127,18 @@ func checkInTx(out Output, p *Publication) error {
 		}
 	}
 	return nil
+}
+
+// Placeholders returns "$1, $2, …, $n": the bound-parameter list of an IN
+// clause over n values (retention's run ids). Both engines number their
+// parameters this way.
+func Placeholders(n int) string {
+	var b strings.Builder
+	for i := 1; i <= n; i++ {
+		if i > 1 {
+			b.WriteString(", ")
+		}
+		fmt.Fprintf(&b, "$%d", i)
+	}
+	return b.String()
 }

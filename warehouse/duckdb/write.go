@@ -371,10 +371,18 @@ func (w *Warehouse) publish(ctx context.Context, o *warehouse.Objects, out wareh
 		return err
 	}
 	if out.KeepRuns > 0 {
-		for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
-			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.Runs})
-			if _, err := w.exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
-				return fmt.Errorf("retention on %s: %w", t, dbErr(err))
+		ids, err := w.expiredRuns(ctx, o, r.RunID, out.KeepRuns)
+		if err != nil {
+			return err
+		}
+		if len(ids) > 0 {
+			q := func(t string) string {
+				return render("retention.sql", map[string]string{"Table": t, "Params": warehouse.Placeholders(len(ids))})
+			}
+			for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
+				if _, err := w.exec(ctx, q(t), ids...); err != nil {
+					return fmt.Errorf("retention on %s: %w", t, dbErr(err))
+				}
 			}
 		}
 		if err := w.step("retention"); err != nil {
@@ -443,4 +451,26 @@ func nullTime(t time.Time) any {
 		return nil
 	}
 	return t
+}
+
+// expiredRuns lists the runs retention deletes (expired_runs.sql), as
+// bound values for retention.sql.
+func (w *Warehouse) expiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep int) ([]any, error) {
+	rows, err := w.conn.QueryContext(ctx, render("expired_runs.sql", map[string]string{"Runs": o.Runs}), runID, keep)
+	if err != nil {
+		return nil, fmt.Errorf("retention: list expired runs: %w", dbErr(err))
+	}
+	defer rows.Close()
+	var ids []any
+	for rows.Next() {
+		var id string
+		if err := rows.Scan(&id); err != nil {
+			return nil, fmt.Errorf("retention: list expired runs: %w", dbErr(err))
+		}
+		ids = append(ids, id)
+	}
+	if err := rows.Err(); err != nil {
+		return nil, fmt.Errorf("retention: list expired runs: %w", dbErr(err))
+	}
+	return ids, nil
 }

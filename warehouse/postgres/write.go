@@ -377,10 +377,18 @@ func (w *Warehouse) publish(ctx context.Context, o *warehouse.Objects, out wareh
 		return err
 	}
 	if out.KeepRuns > 0 {
-		for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
-			q := render("retention.sql", map[string]string{"Table": t, "Runs": o.Runs})
-			if _, err := w.conn.Exec(ctx, q, r.RunID, out.KeepRuns); err != nil {
-				return fmt.Errorf("retention on %s: %w", t, w.dbErr(err))
+		ids, err := w.expiredRuns(ctx, o, r.RunID, out.KeepRuns)
+		if err != nil {
+			return err
+		}
+		if len(ids) > 0 {
+			q := func(t string) string {
+				return render("retention.sql", map[string]string{"Table": t, "Params": warehouse.Placeholders(len(ids))})
+			}
+			for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
+				if _, err := w.conn.Exec(ctx, q(t), ids...); err != nil {
+					return fmt.Errorf("retention on %s: %w", t, w.dbErr(err))
+				}
 			}
 		}
 		if err := w.step("retention"); err != nil {
@@ -449,4 +457,22 @@ func nullTime(t time.Time) any {
 		return nil
 	}
 	return t
+}
+
+// expiredRuns lists the runs retention deletes (expired_runs.sql), as
+// bound values for retention.sql.
+func (w *Warehouse) expiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep int) ([]any, error) {
+	rows, err := w.conn.Query(ctx, render("expired_runs.sql", map[string]string{"Runs": o.Runs}), runID, keep)
+	if err != nil {
+		return nil, fmt.Errorf("retention: list expired runs: %w", w.dbErr(err))
+	}
+	ids, err := pgx.CollectRows(rows, pgx.RowTo[string])
+	if err != nil {
+		return nil, fmt.Errorf("retention: list expired runs: %w", w.dbErr(err))
+	}
+	out := make([]any, len(ids))
+	for i, id := range ids {
+		out[i] = id
+	}
+	return out, nil
 }

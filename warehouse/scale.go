@@ -57,8 +57,10 @@ type InWarehouse interface {
 	// same rule as ReadCohort (the first is the reference).
 	Describe(ctx context.Context, q CohortQuery) (*Description, error)
 	// Moments evaluates one Newton step's sums at beta, given on the
-	// standardised scale of d (intercept first).
-	Moments(ctx context.Context, q CohortQuery, d *DesignSQL, beta []float64) (*Moments, error)
+	// standardised scale of d (intercept first); with info false it
+	// leaves out the k(k+1)/2 information sums (Moments.Info nil), which
+	// are most of the query's work.
+	Moments(ctx context.Context, q CohortQuery, d *DesignSQL, beta []float64, info bool) (*Moments, error)
 	// LogitRange returns the smallest and largest linear predictor in each
 	// arm at coef (original scale, intercept first), for the minmax
 	// common-support rule.
@@ -403,7 +405,7 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 //	√w = √t/(1+t), u_a = √w·x̃_a, Info_ab = Σ u_a u_b
 //
 // the same cancellation-free forms as match/score's in-memory pass.
-func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral bool) (string, []any) {
+func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bool) (string, []any) {
 	k := len(d.Columns) + 1
 	if len(beta) != k {
 		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(beta), k-1))
@@ -429,10 +431,15 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral bool) (s
 		{"r", "CASE WHEN z = 1 THEN q ELSE -p END"},
 		{"ll", "CASE WHEN z = 1 THEN eta - l1p ELSE -l1p END"},
 		{"perfect", "CASE WHEN (z = 1 AND eta > 15) OR (z = 0 AND eta < -15) THEN 1 ELSE 0 END"},
-		{"u0", "sw"},
 	}
-	for j := 1; j < k; j++ {
-		last = append(last, col{fmt.Sprintf("u%d", j), fmt.Sprintf("sw * x%d", j)})
+	if info {
+		last = append(last, col{"u0", "sw"})
+		for j := 1; j < k; j++ {
+			last = append(last, col{fmt.Sprintf("u%d", j), fmt.Sprintf("sw * x%d", j)})
+		}
+	} else {
+		levels[3] = levels[3][:3] // √w only feeds the information sums
+
 	}
 	levels = append(levels, last)
 
@@ -440,9 +447,11 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral bool) (s
 	for j := 1; j < k; j++ {
 		sums = append(sums, fmt.Sprintf("sum(r * x%d)", j))
 	}
-	for a := range k {
-		for c := a; c < k; c++ {
-			sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
+	if info {
+		for a := range k {
+			for c := a; c < k; c++ {
+				sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
+			}
 		}
 	}
 	sel := `SELECT CAST(count(*) AS DOUBLE PRECISION), CAST(sum(z) AS DOUBLE PRECISION),
@@ -504,13 +513,21 @@ func fenceText(fence bool) string {
 	return ""
 }
 
-// SplitMoments unpacks MomentsSQL's array into m (k = design columns + 1).
-func SplitMoments(m *Moments, k int, arr []float64) error {
-	want := k + k*(k+1)/2
+// SplitMoments unpacks MomentsSQL's array into m (k = design columns + 1);
+// info says whether the query had the information sums (m.Info stays nil
+// otherwise).
+func SplitMoments(m *Moments, k int, arr []float64, info bool) error {
+	want := k
+	if info {
+		want += k * (k + 1) / 2
+	}
 	if len(arr) != want {
 		return fmt.Errorf("moments: %d sums returned, want %d", len(arr), want)
 	}
 	m.Grad = append([]float64(nil), arr[:k]...)
+	if !info {
+		return nil
+	}
 	m.Info = make([]float64, k*k)
 	i := k
 	for a := range k {

@@ -166,10 +166,10 @@ func floatList(v any) ([]float64, error) {
 }
 
 // Moments implements warehouse.InWarehouse with warehouse.MomentsSQL.
-func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64) (*warehouse.Moments, error) {
+func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64, info bool) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q.SQL, d, beta, false)
+		text, args := warehouse.MomentsSQL(q.SQL, d, beta, false, info)
 		var n, nt, perfect sql.NullFloat64
 		var ll sql.NullFloat64
 		var raw any
@@ -181,7 +181,7 @@ func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *war
 			return fmt.Errorf("moments: %w", err)
 		}
 		m.N, m.NTreated, m.LogLik, m.Perfect = int(n.Float64), int(nt.Float64), ll.Float64, int(perfect.Float64)
-		return warehouse.SplitMoments(m, len(beta), arr)
+		return warehouse.SplitMoments(m, len(beta), arr, info)
 	})
 	if err != nil {
 		return nil, err

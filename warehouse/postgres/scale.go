@@ -141,17 +141,17 @@ func (w *Warehouse) Describe(ctx context.Context, q warehouse.CohortQuery) (*war
 
 // Moments implements warehouse.InWarehouse with warehouse.MomentsSQL: one
 // aggregate query, parallel where the server allows it.
-func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64) (*warehouse.Moments, error) {
+func (w *Warehouse) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64, info bool) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := w.readOnlyQuery(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q.SQL, d, beta, true)
+		text, args := warehouse.MomentsSQL(q.SQL, d, beta, true, info)
 		var n, nt, perfect float64
 		var arr []float64
 		if err := w.conn.QueryRow(ctx, text, args...).Scan(&n, &nt, &m.LogLik, &perfect, &arr); err != nil {
 			return fmt.Errorf("moments: %w", w.queryError(err))
 		}
 		m.N, m.NTreated, m.Perfect = int(n), int(nt), int(perfect)
-		return warehouse.SplitMoments(m, len(beta), arr)
+		return warehouse.SplitMoments(m, len(beta), arr, info)
 	})
 	if err != nil {
 		return nil, err

@@ -39,7 +39,7 @@ func TestPostgresMomentsPlanIsParallel(t *testing.T) {
 		{Name: "grp=1", Source: "grp", Categorical: true, Text: true, Level: "1", Center: 0.33, Scale: 2},
 	}}
 	for _, fence := range []bool{true} {
-		q, args := warehouse.MomentsSQL("SELECT * FROM big", d, []float64{-1.8, 0.1, 0.2, 0.3}, fence)
+		q, args := warehouse.MomentsSQL("SELECT * FROM big", d, []float64{-1.8, 0.1, 0.2, 0.3}, fence, true)
 		rows, err := conn.Query(ctx, "EXPLAIN "+q, args...)
 		if err != nil {
 			t.Fatal(err)

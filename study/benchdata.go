@@ -1,16 +1,32 @@
 package study
 
-import "fmt"
+import (
+	"fmt"
+	"strings"
+)
+
+// BenchNumeric is the default number of numeric covariates of the benchmark
+// cohort (17 numeric + 3 categorical = 20 covariates, the foundation
+// issue's workload); the warehouse-scale benchmark uses 27 (30 in all).
+const BenchNumeric = 17
 
 // BenchCohortSQL returns DuckDB SQL that creates synth.cohort: n synthetic
-// units, about 10 % treated, 17 numeric and 3 categorical covariates and
-// two outcomes. It is the fixed workload of the whole-run benchmark, built
-// inside DuckDB so that generating a million rows costs seconds, not the
-// benchmark's time. Synthetic numbers only; no scenario, no people.
-func BenchCohortSQL(n int) string {
+// units, about 10 % treated, BenchNumeric numeric and 3 categorical
+// covariates and two outcomes (BenchCohortSQLWith for another width). It
+// is the fixed workload of the whole-run benchmark, built inside DuckDB so
+// that generating a million rows costs seconds, not the benchmark's time.
+// Synthetic numbers only; no scenario, no people.
+func BenchCohortSQL(n int) string { return BenchCohortSQLWith(n, BenchNumeric) }
+
+// BenchCohortSQLWith is BenchCohortSQL with numeric numeric covariates
+// (x01 … xNN, at least 6: the treatment model uses the first six). The
+// first 17 columns are the same for every width, so the 20-covariate
+// workload is a projection of the wider one.
+func BenchCohortSQLWith(n, numeric int) string {
+	numeric = max(numeric, 6)
 	num := ""
 	lin := "-2.6"
-	for j := 1; j <= 17; j++ {
+	for j := 1; j <= numeric; j++ {
 		num += fmt.Sprintf(", (random() * 2 - 1) * %d + sin(i * %d) AS x%02d", 1+j%4, j, j)
 	}
 	for j := 1; j <= 6; j++ {
@@ -38,7 +54,18 @@ DROP TABLE synth.base;
 }
 
 // BenchStudy is the study file of the whole-run benchmark; %s is the DSN.
-const BenchStudy = `study: bench_run
+var BenchStudy = BenchStudyWith(BenchNumeric)
+
+// BenchStudyWith is BenchStudy over BenchCohortSQLWith(n, numeric)'s
+// columns: the numeric covariates x01 … xNN and c1, c2, c3.
+func BenchStudyWith(numeric int) string {
+	numeric = max(numeric, 6)
+	covs := make([]string, 0, numeric+3)
+	for j := 1; j <= numeric; j++ {
+		covs = append(covs, fmt.Sprintf("x%02d", j))
+	}
+	covs = append(covs, "c1", "c2", "c3")
+	return `study: bench_run
 warehouse:
   engine: duckdb
   dsn: %s
@@ -47,7 +74,7 @@ cohort:
   unit: unit_id
   treatment: treated
   outcomes: [y_bin, y_cont]
-  covariates: [x01, x02, x03, x04, x05, x06, x07, x08, x09, x10, x11, x12, x13, x14, x15, x16, x17, c1, c2, c3]
+  covariates: [` + strings.Join(covs, ", ") + `]
 support: minmax
 matching:
   algorithm: greedy
@@ -59,3 +86,4 @@ output:
   prefix: bench_run_
   keep_runs: 2
 `
+}

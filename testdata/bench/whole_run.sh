@@ -12,7 +12,7 @@ mkdir -p "$out"
 go build -o "$out/counterpart" ./cmd/counterpart
 go build -o "$out/readfloor" ./testdata/bench/readfloor
 go run ./testdata/bench/mkwarehouse -out "$out/bench.duckdb" -units "$units" -csv "$out/bench.csv"
-printf "$(sed -n '/^const BenchStudy = `/,/^`/p' study/benchdata.go | sed '1s/.*`//;$d')" "$out/bench.duckdb" > "$out/bench.yaml"
+go run ./testdata/bench/mkwarehouse -out "$out/bench.duckdb" -study "$out/bench.yaml"
 rss() { grep 'Maximum resident' "$1" | awk '{printf "%.0f MB", $6/1024}'; }
 
 echo "== floor: read the same columns into Go"

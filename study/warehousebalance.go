@@ -9,26 +9,20 @@ import (
 	"counterpart/warehouse"
 )
 
-// balanceRowsInWarehouse computes this run's balance statistics from the
-// run's snapshot, matches and weights rows inside the publish transaction,
-// with the definitions of the balance_history view (Austin 2009; Austin &
-// Stuart 2015; sql/common/balance_view.sql), keyed by adjustment:
-//
-//	mean  m = Σw·x / Σw
-//	var   v = Σw·(x − m)² / (Σw − Σw²/Σw)   (second pass; for a level
-//	      Σw·x − (Σw·x)²/Σw in the numerator, exactly equal for 0/1)
-//	smd   (m_T − m_C)/d, d the unadjusted pooled SD: √((v_T + v_C)/2), or
-//	      √((p_T(1−p_T) + p_C(1−p_C))/2) for a level; NaN when d = 0
-//	ratio v_T / v_C, NaN when v_C = 0
-//
-// NaN stands where the view has NULL (an arm with no weight). It reads
-// three aggregate passes (warehouse.BalanceSumsSQL, BalanceLevelsSQL per
-// categorical covariate, BalanceSquaresSQL) instead of the view, whose
-// joins over every kept run cost most of the publish stage at scale.
-func balanceRowsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, runID string, covs []warehouse.CovariateMeta, shifts []float64, adjs []string, matched bool, schemes []string) (map[string][]balance.Stat, error) {
-	na := len(adjs)
-	levels := make([][]string, len(covs))
-	text, err := warehouse.BalanceLevelsSQL(c, covs)
+// runSums holds warehouse.RunSumsSQL's one row per arm (index 0 the
+// comparison arm, 1 the treated arm; the columns after t), zeros where an
+// arm has no row or a sum is NULL.
+type runSums struct {
+	spec warehouse.RunSums
+	arm  [2][]float64
+}
+
+// runSumsInWarehouse reads the run's categorical levels from its
+// snapshot (BalanceLevelsSQL) and then makes RunSumsSQL's one pass over
+// the rows the publish transaction has written.
+func runSumsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, runID string, spec warehouse.RunSums) (*runSums, error) {
+	spec.Levels = make([][]string, len(spec.Covariates))
+	text, err := warehouse.BalanceLevelsSQL(c, spec.Covariates)
 	if err != nil {
 		return nil, err
 	}
@@ -39,56 +33,92 @@ func balanceRowsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c 
 		}
 		for _, r := range rows {
 			i := int(numOf(r[0]))
-			if i < 0 || i >= len(covs) {
-				return nil, fmt.Errorf("balance levels: covariate %d of %d", i, len(covs))
+			if i < 0 || i >= len(spec.Covariates) {
+				return nil, fmt.Errorf("balance levels: covariate %d of %d", i, len(spec.Covariates))
 			}
-			levels[i] = append(levels[i], textOf(r[1]))
+			spec.Levels[i] = append(spec.Levels[i], textOf(r[1]))
 		}
 	}
-	text, args, err := warehouse.BalanceSumsSQL(c, covs, matched, schemes, shifts, levels)
+	text, args, err := warehouse.RunSumsSQL(c, spec, sp.PlannerFence())
 	if err != nil {
 		return nil, err
 	}
 	args[0] = runID
 	rows, err := sp.QueryRows(ctx, text, args...)
 	if err != nil {
-		return nil, fmt.Errorf("balance sums: %w", err)
+		return nil, fmt.Errorf("balance and effect sums: %w", err)
 	}
-	per := 2
-	for i, cv := range covs {
-		if cv.Kind == warehouse.Categorical {
-			per += len(levels[i])
-		} else {
-			per += 2
-		}
-	}
-	// sums[a][arm] holds adjustment a's Σw, Σw², then the covariates' sums.
-	sums := make([][2][]float64, na)
+	width := spec.Adjustments()*spec.BalanceWidth() + len(spec.Outcomes)*(spec.Adjustments()-matchedCount(spec))*warehouse.EffectWidth
+	rs := &runSums{spec: spec}
 	for _, r := range rows {
-		if len(r) != 1+na*per {
-			return nil, fmt.Errorf("balance sums: %d columns, want %d", len(r), 1+na*per)
+		if len(r) != 1+width {
+			return nil, fmt.Errorf("balance and effect sums: %d columns, want %d", len(r), 1+width)
 		}
 		g := 0
 		if t, _ := r[0].(bool); t {
 			g = 1
 		}
-		for a := range na {
-			v := make([]float64, per)
-			for j := range v {
-				v[j] = numOf(r[1+a*per+j])
-				if math.IsNaN(v[j]) {
-					v[j] = 0 // NULL: no row in this arm
-				}
+		v := make([]float64, width)
+		for j := range v {
+			if v[j] = numOf(r[1+j]); math.IsNaN(v[j]) {
+				v[j] = 0 // NULL: no row in this arm
 			}
-			sums[a][g] = v
+		}
+		rs.arm[g] = v
+	}
+	for g := range 2 {
+		if rs.arm[g] == nil {
+			rs.arm[g] = make([]float64, width)
 		}
 	}
+	return rs, nil
+}
+
+func matchedCount(r warehouse.RunSums) int {
+	if r.Matched {
+		return 1
+	}
+	return 0
+}
+
+// balance returns adjustment a's balance sums in arm g: Σw, Σw², then the
+// covariates' sums.
+func (r *runSums) balance(a, g int) []float64 {
+	w := r.spec.BalanceWidth()
+	return r.arm[g][a*w : (a+1)*w]
+}
+
+// effect returns the effect sums of outcome o under adjustment a (an
+// index into the adjustments, never the matched one) in arm g.
+func (r *runSums) effect(o, a, g int) armSums {
+	if r.spec.Matched && a > 1 {
+		a--
+	}
+	per := r.spec.Adjustments() - matchedCount(r.spec)
+	v := r.arm[g][r.spec.Adjustments()*r.spec.BalanceWidth()+(o*per+a)*warehouse.EffectWidth:]
+	return armSums{n: v[0], miss: v[1], sw: v[2], swy: v[3], sw2y2: v[4], sw2y: v[5], sw2: v[6], nonBinary: v[7]}
+}
+
+// balanceFromSums computes this run's balance statistics from RunSumsSQL's
+// sums, with the definitions of the balance_history view (Austin 2009;
+// Austin & Stuart 2015; sql/common/balance_view.sql), keyed by
+// adjustment (adjs, in RunSums order):
+//
+//	mean  m = Σw·x / Σw
+//	var   v = Σw·(x − m)² / (Σw − Σw²/Σw)   (for a level
+//	      Σw·x − (Σw·x)²/Σw in the numerator, exactly equal for 0/1)
+//	smd   (m_T − m_C)/d, d the unadjusted pooled SD: √((v_T + v_C)/2), or
+//	      √((p_T(1−p_T) + p_C(1−p_C))/2) for a level; NaN when d = 0
+//	ratio v_T / v_C, NaN when v_C = 0
+//
+// NaN stands where the view has NULL (an arm with no weight).
+func balanceFromSums(rs *runSums, adjs []string) map[string][]balance.Stat {
+	na := len(adjs)
+	covs, levels, shifts := rs.spec.Covariates, rs.spec.Levels, rs.spec.Shifts
+	// sums[a][arm] holds adjustment a's Σw, Σw², then the covariates' sums.
+	sums := make([][2][]float64, na)
 	for a := range na {
-		for g := range 2 {
-			if sums[a][g] == nil {
-				sums[a][g] = make([]float64, per)
-			}
-		}
+		sums[a] = [2][]float64{rs.balance(a, 0), rs.balance(a, 1)}
 	}
 	out := map[string][]balance.Stat{}
 	stat := func(name, level string, binary bool, m, v [2]float64, d2 float64) balance.Stat {
@@ -163,11 +193,11 @@ func balanceRowsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c 
 			pos++
 		}
 	}
-	return out, nil
+	return out
 }
 
 // balanceShifts returns the shift of each numeric covariate of covs, in
-// order, for warehouse.BalanceSumsSQL: its cohort mean (the design's
+// order, for warehouse.RunSumsSQL: its cohort mean (the design's
 // centre), near every arm's mean, which is what the shifted one-pass
 // variance needs.
 func balanceShifts(d *warehouse.DesignSQL, covs []warehouse.CovariateMeta) []float64 {

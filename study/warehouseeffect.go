@@ -10,7 +10,7 @@ import (
 )
 
 // armSums are one arm's sums over its usable rows (w > 0, outcome
-// present), as warehouse.EffectSumsSQL returns them.
+// present), as warehouse.RunSumsSQL returns them.
 type armSums struct {
 	n, miss                   float64
 	sw, swy, sw2y2, sw2y, sw2 float64
@@ -114,34 +114,13 @@ func inWarehouseEffect(t, c armSums, sets *setSums, binary bool) ([]effect.Estim
 
 // effectsInWarehouse fills sum.Effects, outcome by outcome and adjustment
 // by adjustment in the in-memory order, from the sums of the rows written
-// in the publish transaction. Rosenbaum's Γ needs the pairs' outcomes and
-// is left undefined (NaN).
-func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, s *Spec, sum *Summary) error {
-	arms := func(text string) (armSums, armSums, error) {
-		rows, err := sp.QueryRows(ctx, text, sum.RunID)
-		if err != nil {
-			return armSums{}, armSums{}, err
-		}
-		var t, cc armSums
-		for _, r := range rows {
-			a := armSums{n: numOf(r[1]), miss: numOf(r[2]), sw: numOf(r[3]), swy: numOf(r[4]), sw2y2: numOf(r[5]), sw2y: numOf(r[6]), sw2: numOf(r[7]), nonBinary: numOf(r[8])}
-			if tr, _ := r[0].(bool); tr {
-				t = a
-			} else {
-				cc = a
-			}
-		}
-		return t, cc, nil
-	}
-	for _, o := range s.Cohort.Outcomes {
-		text, err := warehouse.EffectSumsSQL(c, o, "")
-		if err != nil {
-			return err
-		}
-		ut, uc, err := arms(text)
-		if err != nil {
-			return fmt.Errorf("effects %s: %w", o, err)
-		}
+// in the publish transaction: RunSumsSQL's per-arm sums (rs) for the
+// unadjusted and weighted estimates, MatchedSumsSQL's per-set sums for
+// the matched one. Rosenbaum's Γ needs the pairs' outcomes and is left
+// undefined (NaN).
+func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, s *Spec, sum *Summary, rs *runSums) error {
+	for o, name := range s.Cohort.Outcomes {
+		ut, uc := rs.effect(o, 0, 1), rs.effect(o, 0, 0)
 		binary := ut.nonBinary+uc.nonBinary == 0
 		sc := outcomeScale{prevalence: (ut.swy + uc.swy) / (ut.n + uc.n)}
 		// Unadjusted w = 1: Σw²y² = Σy², so the n−1 variance per arm is
@@ -149,7 +128,7 @@ func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 		vT := (ut.sw2y2 - ut.swy*ut.swy/ut.n) / (ut.n - 1)
 		vC := (uc.sw2y2 - uc.swy*uc.swy/uc.n) / (uc.n - 1)
 		sc.sd = math.Sqrt((vT + vC) / 2)
-		for _, adj := range adjustmentNames(s) {
+		for a, adj := range adjustmentNames(s) {
 			var t, cc armSums
 			var sets *setSums
 			estimand := "none"
@@ -158,13 +137,13 @@ func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 				t, cc = ut, uc
 			case "matched":
 				estimand = "att"
-				text, err := warehouse.MatchedSumsSQL(c, o)
+				text, err := warehouse.MatchedSumsSQL(c, name)
 				if err != nil {
 					return err
 				}
 				rows, err := sp.QueryRows(ctx, text, sum.RunID)
 				if err != nil || len(rows) != 1 {
-					return fmt.Errorf("effects %s (matched): %v rows: %w", o, len(rows), err)
+					return fmt.Errorf("effects %s (matched): %v rows: %w", name, len(rows), err)
 				}
 				r := rows[0]
 				v := make([]float64, len(r))
@@ -186,20 +165,14 @@ func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 				}
 			default:
 				estimand = estimandOf[adj]
-				text, err := warehouse.EffectSumsSQL(c, o, adj)
-				if err != nil {
-					return err
-				}
-				if t, cc, err = arms(text); err != nil {
-					return fmt.Errorf("effects %s (%s): %w", o, adj, err)
-				}
+				t, cc = rs.effect(o, a, 1), rs.effect(o, a, 0)
 			}
 			ests, err := inWarehouseEffect(t, cc, sets, binary)
 			if err != nil {
-				return badInput(fmt.Sprintf("estimate %s (%s)", o, adj), err)
+				return badInput(fmt.Sprintf("estimate %s (%s)", name, adj), err)
 			}
 			for _, e := range ests {
-				r := effectRow(o, adj, estimand, e)
+				r := effectRow(name, adj, estimand, e)
 				addEValue(&r, e, binary, sc)
 				sum.Effects = append(sum.Effects, r)
 			}

@@ -24,19 +24,20 @@ const ScaleGoMemoryLimit = 160 << 20
 // never leaves the engine:
 //
 //   - fit: Describe, a seed fitted in memory on a ~100k-unit hash sample
-//     of the cohort (warehouse.Sampler), then one Moments aggregate per
-//     Newton step from the seed (FitInWarehouse); support from LogitRange
-//     (SupportInWarehouse);
+//     of the cohort (warehouse.Sampler), then gradient aggregates from the
+//     seed and one full Moments aggregate for the standard errors
+//     (FitInWarehouse); support from LogitRange (SupportInWarehouse);
 //   - match: MatchInput brings id, treatment, stratum, logit and support
 //     flag per unit, and the existing greedy or optimal code matches in
 //     memory on those slices;
 //   - publish, one transaction: the runs row, the cohort snapshot by
 //     INSERT … SELECT from cohort.sql, scores and weights by ScoreInto,
-//     the matches from memory; then, inside the same transaction, balance
-//     from one aggregate pass over the rows just written (the
-//     balance_history view's definitions) and effects from aggregate sums
-//     (inWarehouseEffect), and they settle the run's status before the
-//     runs row is written.
+//     the matches from memory; then, inside the same transaction, one
+//     aggregate pass over the snapshot just written gives the balance (the
+//     balance_history view's definitions), the effective sample sizes and
+//     the weighted effects' sums (warehouse.RunSumsSQL), one more over the
+//     matches the matched effect's per-set sums (inWarehouseEffect), and
+//     they settle the run's status before the runs row is written.
 //
 // Memory: an in-process engine (DuckDB) caps its buffer pool
 // (warehouse.ScaleTuner) and the Go runtime gets a soft limit
@@ -183,10 +184,14 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		if err := iw.ScoreInto(ctx, out, sum.RunID, q, d, fit.Coef, sup, s.Schemes()); err != nil {
 			return err
 		}
-		if err := balanceInWarehouse(ctx, sp, c, out.Covariates, balanceShifts(d, out.Covariates), s, sum, thin.Treated, mw); err != nil {
-			return err
+		rs, err := runSumsInWarehouse(ctx, sp, c, sum.RunID, warehouse.RunSums{
+			Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: mw != nil,
+			Schemes: s.Schemes(), Design: d, Coef: fit.Coef, Support: sup, Outcomes: q.Outcomes})
+		if err != nil {
+			return fmt.Errorf("balance: %w", err)
 		}
-		if err := effectsInWarehouse(ctx, sp, c, s, sum); err != nil {
+		balanceInWarehouse(rs, s, sum)
+		if err := effectsInWarehouse(ctx, sp, c, s, sum, rs); err != nil {
 			return err
 		}
 		r := &pub.Run
@@ -315,55 +320,27 @@ func textOf(v any) string {
 }
 
 // balanceInWarehouse computes this run's balance statistics with the
-// balance_history view's definitions from one aggregate pass over the
-// rows just written (balanceRowsInWarehouse, inside the publish
-// transaction, so they are seen), judges them with balance.Judge as the in-memory path does, and sets the
-// gate. ESS: unadjusted the arm sizes, matched from the summed set
-// weights, schemes (Σw)²/Σw² per arm from WeightSumsSQL.
-func balanceInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, covs []warehouse.CovariateMeta, shifts []float64, s *Spec, sum *Summary, z []bool, mw []float64) error {
-	byAdj, err := balanceRowsInWarehouse(ctx, sp, c, sum.RunID, covs, shifts, adjustmentNames(s), mw != nil, s.Schemes())
-	if err != nil {
-		return fmt.Errorf("balance: %w", err)
-	}
+// balance_history view's definitions from RunSumsSQL's one aggregate pass
+// over the rows just written (balanceFromSums), judges them with
+// balance.Judge as the in-memory path does, and sets the gate. ESS per
+// arm: (Σw)²/Σw² from the same sums (the arm sizes unadjusted; the summed
+// set weights for matched).
+func balanceInWarehouse(rs *runSums, s *Spec, sum *Summary) {
+	adjs := adjustmentNames(s)
+	byAdj := balanceFromSums(rs, adjs)
 	pos := map[string]int{}
 	for i, name := range s.Cohort.Covariates {
 		pos[name] = i
 	}
-	ess := map[string][2]float64{"unadjusted": {float64(sum.Counts.Treated), float64(sum.Counts.Control)}}
-	if mw != nil {
-		var sw, sw2 [2]float64
-		for i, w := range mw {
-			a := 0
-			if z[i] {
-				a = 1
+	ess := map[string][2]float64{}
+	for a, name := range adjs {
+		var e [2]float64 // treated, comparison
+		for g := range 2 {
+			if b := rs.balance(a, g); b[1] > 0 {
+				e[1-g] = b[0] * b[0] / b[1]
 			}
-			sw[a] += w
-			sw2[a] += w * w
 		}
-		ess["matched"] = [2]float64{sw[1] * sw[1] / sw2[1], sw[0] * sw[0] / sw2[0]}
-	}
-	if schemes := s.Schemes(); len(schemes) > 0 {
-		text, err := warehouse.WeightSumsSQL(c, schemes)
-		if err != nil {
-			return err
-		}
-		ws, err := sp.QueryRows(ctx, text, sum.RunID)
-		if err != nil {
-			return fmt.Errorf("balance: weight sums: %w", err)
-		}
-		for k, name := range schemes {
-			var e [2]float64
-			for _, r := range ws {
-				a := 1
-				if t, _ := r[0].(bool); t {
-					a = 0
-				}
-				if s2 := numOf(r[2+2*k]); s2 > 0 {
-					e[a] = numOf(r[1+2*k]) * numOf(r[1+2*k]) / s2
-				}
-			}
-			ess[name] = e
-		}
+		ess[name] = e
 	}
 	for _, adj := range adjustmentNames(s) {
 		st := byAdj[adj]
@@ -390,7 +367,6 @@ func balanceInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 			}
 		}
 	}
-	return nil
 }
 
 // levelLess orders two levels as warehouse.SortLevels does.

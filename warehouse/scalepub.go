@@ -14,10 +14,16 @@ import (
 type ScalePublisher interface {
 	// SnapshotInto writes the run's cohort snapshot with SnapshotSQL.
 	SnapshotInto(ctx context.Context, out Output, runID string, q CohortQuery, d *DesignSQL) error
-	// QueryRows runs a query built by this package (EffectSumsSQL,
-	// MatchedSumsSQL, BalanceSumsSQL) and returns its rows: numbers as
+	// QueryRows runs a query built by this package (RunSumsSQL,
+	// MatchedSumsSQL, BalanceLevelsSQL) and returns its rows: numbers as
 	// float64, text as string, booleans as bool, NULL as nil.
 	QueryRows(ctx context.Context, query string, args ...any) ([][]any, error)
+	// PlannerFence reports whether the engine's planner merges derived
+	// tables into their parent and copies each column's defining
+	// expression into every reference (Postgres), so that queries built
+	// here need an OFFSET 0 fence under each derived table to compute a
+	// per-row value once (RunSumsSQL).
+	PlannerFence() bool
 }
 
 // SnapshotSQL returns the INSERT … SELECT that writes the run's cohort
@@ -59,36 +65,6 @@ func SnapshotSQL(c *Contract, q CohortQuery, d *DesignSQL, covKinds []CovKind, o
 	}
 	return fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM %s",
 		QuoteQualified(c.Schema, c.Cohort.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), From(q.SQL)), nil
-}
-
-// EffectSumsSQL returns the per-arm sums of one outcome under one
-// weighting of a run's cohort snapshot ($1 is the run id): scheme "" is
-// the unadjusted sample (w = 1), otherwise the weights table's column.
-// One row per arm: treated, rows used (w > 0, outcome present), rows with
-// w > 0 and a missing outcome, Σw, Σw·y, Σw²·y², Σw²·y, Σw², and the
-// count of used outcomes other than 0 and 1. Every aggregate is a plain
-// sum or count, so a distributed engine computes it as partial sums per
-// node.
-func EffectSumsSQL(c *Contract, outcome, scheme string) (string, error) {
-	if err := ValidIdent(outcome); err != nil {
-		return "", fmt.Errorf("outcome: %w", err)
-	}
-	y := "CAST(c." + Quote(outcome) + " AS DOUBLE PRECISION)"
-	w, join := "CAST(1 AS DOUBLE PRECISION)", ""
-	if scheme != "" {
-		if err := ValidIdent(scheme); err != nil {
-			return "", fmt.Errorf("weighting scheme: %w", err)
-		}
-		w = "CAST(wt." + Quote(scheme) + " AS DOUBLE PRECISION)"
-		join = " JOIN " + QuoteQualified(c.Schema, c.Weights.Name) + " wt ON wt.run_id = c.run_id AND wt." + Quote(c.Unit) + " = c." + Quote(c.Unit)
-	}
-	inner := "SELECT c." + Quote(c.Treatment) + " AS t, " + y + " AS y, " + w + " AS w FROM " +
-		QuoteQualified(c.Schema, c.Cohort.Name) + " c" + join + " WHERE c.run_id = CAST($1 AS VARCHAR)"
-	return `SELECT t, CAST(count(y) AS DOUBLE PRECISION), CAST(count(*) - count(y) AS DOUBLE PRECISION),
-  sum(CASE WHEN y IS NOT NULL THEN w END), sum(w * y), sum(w * w * y * y), sum(w * w * y),
-  sum(CASE WHEN y IS NOT NULL THEN w * w END),
-  CAST(sum(CASE WHEN y <> 0 AND y <> 1 THEN 1 ELSE 0 END) AS DOUBLE PRECISION)
-FROM (` + inner + `) AS s WHERE w > 0 GROUP BY t`, nil
 }
 
 // MatchedSumsSQL returns, for one outcome over a run's matched rows
@@ -138,20 +114,4 @@ func (d *DesignSQL) CovKinds(q CohortQuery) []CovKind {
 		}
 	}
 	return kinds
-}
-
-// WeightSumsSQL returns, per arm of a run's weights table ($1 the run
-// id), Σw and Σw² of each scheme in order: treated, Σw₁, Σw₁², Σw₂, ...
-// (Kish's effective sample size is (Σw)²/Σw²).
-func WeightSumsSQL(c *Contract, schemes []string) (string, error) {
-	parts := []string{"treated"}
-	for _, s := range schemes {
-		if err := ValidIdent(s); err != nil {
-			return "", fmt.Errorf("weighting scheme: %w", err)
-		}
-		x := "CAST(" + Quote(s) + " AS DOUBLE PRECISION)"
-		parts = append(parts, "sum("+x+")", "sum("+x+" * "+x+")")
-	}
-	return "SELECT " + strings.Join(parts, ", ") + " FROM " + QuoteQualified(c.Schema, c.Weights.Name) +
-		" WHERE run_id = CAST($1 AS VARCHAR) GROUP BY treated", nil
 }

@@ -106,3 +106,7 @@ func normalise(v any) any {
 	}
 	return v
 }
+
+// PlannerFence implements warehouse.ScalePublisher: DuckDB computes each
+// projection of a derived table once.
+func (w *Warehouse) PlannerFence() bool { return false }

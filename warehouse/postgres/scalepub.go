@@ -81,3 +81,7 @@ func (w *Warehouse) QueryRows(ctx context.Context, query string, args ...any) ([
 	}
 	return out, nil
 }
+
+// PlannerFence implements warehouse.ScalePublisher: Postgres pulls simple
+// subqueries up into the parent query, copying their expressions.
+func (w *Warehouse) PlannerFence() bool { return true }

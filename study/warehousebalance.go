@@ -39,7 +39,7 @@ func runSumsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 			spec.Levels[i] = append(spec.Levels[i], textOf(r[1]))
 		}
 	}
-	text, args, err := warehouse.RunSumsSQL(c, spec, sp.PlannerFence())
+	text, args, err := warehouse.RunSumsSQL(c, spec, sp.LateralLevels())
 	if err != nil {
 		return nil, err
 	}

@@ -279,6 +279,10 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 			if isT {
 				matchedT++
 			} else {
+				if used[u] {
+					// RunSumsSQL reads one weight per unit.
+					return rows, nil, fmt.Errorf("match: comparison unit %d is in two sets; warehouse-scale mode matches without reuse", u)
+				}
 				used[u] = true
 			}
 		}

@@ -411,7 +411,6 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bo
 		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(beta), k-1))
 	}
 	b := &ScaleSQL{}
-	type col struct{ name, expr string }
 	std := []col{{"z", d.TreatmentExpr()}}
 	for j, c := range d.Columns {
 		std = append(std, col{fmt.Sprintf("x%d", j+1), fmt.Sprintf("(%s - %s) * %s", b.rawExpr(c), b.Num(c.Center), b.Num(c.Scale))})

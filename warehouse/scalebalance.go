@@ -23,8 +23,9 @@ type RunSums struct {
 	Covariates []CovariateMeta
 	Levels     [][]string
 	Shifts     []float64
-	// Matched adds the matched adjustment: Σ set_weight of the unit's
-	// rows in the matches table, 0 for an unmatched unit.
+	// Matched adds the matched adjustment: the unit's set_weight in the
+	// matches table, 0 for an unmatched unit. Each unit must be in at
+	// most one set (warehouse-scale mode matches without reuse).
 	Matched bool
 	// Schemes are the weighting schemes, computed from the snapshot's
 	// row with Design, Coef and Support exactly as ScoreInto computed the
@@ -87,29 +88,29 @@ const EffectWidth = 8
 // LeVeque 1983), so one pass gives what the view's two passes give. A
 // weight of 0 adds nothing to any sum, which is the view's exclusion of
 // unmatched and zero-weight units. Every aggregate is a plain sum, so a
-// distributed engine computes it as partial sums per node. fence puts an
-// OFFSET 0 planner fence under each derived table (Postgres; see
-// fenceText), so each per-row value is computed once.
-func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
+// distributed engine computes it as partial sums per node. lateral
+// chooses how each per-row value is computed once (chainLevels): true
+// for Postgres.
+func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 	if len(r.Levels) != len(r.Covariates) {
 		panic(fmt.Sprintf("warehouse: %d level lists for %d covariates", len(r.Levels), len(r.Covariates)))
 	}
 	b := &ScaleSQL{args: []any{nil}}
-	snap := QuoteQualified(c.Schema, c.Cohort.Name)
-	// Level 1: the snapshot row's covariate deltas and level indicators,
-	// outcomes, and (for the schemes) the linear predictor.
-	cols := []string{"c." + Quote(c.Treatment) + " AS t"}
+	// Level 0: per snapshot row, the treatment, covariate deltas and level
+	// indicators, outcomes, the weights of unadjusted and matched, and
+	// (for the schemes) the linear predictor.
+	l0 := []col{{"t", "c." + Quote(c.Treatment)}}
 	var bal []string // per-row balance terms, w·term summed
 	k := 0
 	for i, cv := range r.Covariates {
 		if err := ValidIdent(cv.Name); err != nil {
 			return "", nil, fmt.Errorf("cohort.covariates: %w", err)
 		}
-		col := "c." + Quote(cv.Name)
+		src := "c." + Quote(cv.Name)
 		if cv.Kind == Categorical {
 			for j, l := range r.Levels[i] {
 				name := fmt.Sprintf("i%d_%d", i+1, j)
-				cols = append(cols, fmt.Sprintf("CAST(CASE WHEN CAST(%s AS VARCHAR) = %s THEN 1 ELSE 0 END AS DOUBLE PRECISION) AS %s", col, b.Str(l), name))
+				l0 = append(l0, col{name, fmt.Sprintf("CAST(CASE WHEN CAST(%s AS VARCHAR) = %s THEN 1 ELSE 0 END AS DOUBLE PRECISION)", src, b.Str(l))})
 				bal = append(bal, name)
 			}
 			continue
@@ -118,7 +119,7 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 			panic("warehouse: too few shifts")
 		}
 		name := fmt.Sprintf("d%d", i+1)
-		cols = append(cols, fmt.Sprintf("CAST(%s AS DOUBLE PRECISION) - %s AS %s", col, b.Num(r.Shifts[k]), name))
+		l0 = append(l0, col{name, fmt.Sprintf("CAST(%s AS DOUBLE PRECISION) - %s", src, b.Num(r.Shifts[k]))})
 		k++
 		bal = append(bal, name, name+" * "+name)
 	}
@@ -126,16 +127,15 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 		if err := ValidIdent(o); err != nil {
 			return "", nil, fmt.Errorf("cohort.outcomes: %w", err)
 		}
-		cols = append(cols, fmt.Sprintf("CAST(c.%s AS DOUBLE PRECISION) AS y%d", Quote(o), i+1))
+		l0 = append(l0, col{fmt.Sprintf("y%d", i+1), "CAST(c." + Quote(o) + " AS DOUBLE PRECISION)"})
 	}
-	cols = append(cols, "CAST(1 AS DOUBLE PRECISION) AS w0")
+	l0 = append(l0, col{"w0", "CAST(1 AS DOUBLE PRECISION)"})
 	weights := []string{"w0"} // per adjustment, the column of w
 	if r.Matched {
-		cols = append(cols, "CAST(coalesce(m.w, 0) AS DOUBLE PRECISION) AS wm")
+		l0 = append(l0, col{"wm", "CAST(coalesce(m.w, 0) AS DOUBLE PRECISION)"})
 		weights = append(weights, "wm")
 	}
-	level1 := "SELECT " + strings.Join(cols, ",\n  ")
-	var level2 []string
+	levels := [][]col{l0}
 	if len(r.Schemes) > 0 {
 		// The snapshot's columns under the design's reading: treatment
 		// boolean, categorical levels as text.
@@ -147,7 +147,7 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 				d.Columns[j].Text = true
 			}
 		}
-		level1 += ",\n  " + d.TreatmentExpr() + " AS z, " + b.RawEta(&d, r.Coef) + " AS eta"
+		levels[0] = append(levels[0], col{"z", d.TreatmentExpr()}, col{"eta", b.RawEta(&d, r.Coef)})
 		lo, hi := "TRUE", "TRUE"
 		if !math.IsInf(r.Support.Low, -1) {
 			lo = "eta >= " + b.Num(r.Support.Low)
@@ -155,19 +155,8 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 		if !math.IsInf(r.Support.High, 1) {
 			hi = "eta <= " + b.Num(r.Support.High)
 		}
-		level2 = append(level2, Logistic("eta")+" AS e", "("+lo+" AND "+hi+") AS ins")
-	}
-	level1 += "\nFROM " + snap + " AS c"
-	if r.Matched {
-		unit := Quote(c.Unit)
-		level1 += "\nLEFT JOIN (SELECT " + unit + " AS k, sum(set_weight) AS w FROM " + QuoteQualified(c.Schema, c.Matches.Name) +
-			" WHERE run_id = CAST($1 AS VARCHAR) GROUP BY " + unit + ") AS m ON m.k = c." + unit
-	}
-	level1 += "\nWHERE c.run_id = CAST($1 AS VARCHAR)"
-	from := "(" + level1 + "\n" + fenceText(fence) + ") AS l1"
-	if len(level2) > 0 {
-		from = "(SELECT l1.*, " + strings.Join(level2, ", ") + " FROM " + from + "\n" + fenceText(fence) + ") AS l2"
-		var ws []string
+		levels = append(levels, []col{{"e", Logistic("eta")}, {"ins", "(" + lo + " AND " + hi + ")"}})
+		var ws []col
 		for i, s := range r.Schemes {
 			if err := ValidIdent(s); err != nil {
 				return "", nil, fmt.Errorf("weighting scheme: %w", err)
@@ -176,11 +165,31 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 			if err != nil {
 				return "", nil, err
 			}
-			ws = append(ws, fmt.Sprintf("%s AS ws%d", w, i+1))
+			ws = append(ws, col{fmt.Sprintf("ws%d", i+1), w})
 			weights = append(weights, fmt.Sprintf("ws%d", i+1))
 		}
-		from = "(SELECT l2.*, " + strings.Join(ws, ", ") + " FROM " + from + "\n" + fenceText(fence) + ") AS l3"
+		levels = append(levels, ws)
 	}
+	base := QuoteQualified(c.Schema, c.Cohort.Name) + " AS c"
+	if r.Matched {
+		unit := Quote(c.Unit)
+		if lateral {
+			// Each unit is in at most one of the run's sets (RunSums.Matched),
+			// so a plain join gives its weight; Postgres cannot put an
+			// aggregated subquery, which has a parallel plan of its own,
+			// under the parallel aggregate.
+			base += "\nLEFT JOIN (SELECT " + unit + " AS k, set_weight AS w FROM " + QuoteQualified(c.Schema, c.Matches.Name) +
+				" WHERE run_id = CAST($1 AS VARCHAR)) AS m ON m.k = c." + unit
+		} else {
+			// DuckDB does not count the transaction's own new rows in its
+			// estimates; the aggregate makes the matches side the small,
+			// built side of the join.
+			base += "\nLEFT JOIN (SELECT " + unit + " AS k, sum(set_weight) AS w FROM " + QuoteQualified(c.Schema, c.Matches.Name) +
+				" WHERE run_id = CAST($1 AS VARCHAR) GROUP BY " + unit + ") AS m ON m.k = c." + unit
+		}
+	}
+	from := chainLevels(base, "c.run_id = CAST($1 AS VARCHAR)", levels, lateral)
+
 	parts := []string{"t"}
 	for _, w := range weights {
 		parts = append(parts, "sum("+w+")", "sum("+w+" * "+w+")")
@@ -205,6 +214,51 @@ func RunSumsSQL(c *Contract, r RunSums, fence bool) (string, []any, error) {
 		}
 	}
 	return "SELECT " + strings.Join(parts, ",\n  ") + "\nFROM " + from + "\nGROUP BY t", b.args, nil
+}
+
+// col is one per-row value of a query level: its name and defining
+// expression.
+type col struct{ name, expr string }
+
+// chainLevels returns a FROM clause over base (filtered by where) in
+// which each level's columns are computed once per row and visible to
+// the later levels and the outer select. Without lateral, nested derived
+// tables (DuckDB computes each projection once). With lateral, a chain of
+// CROSS JOIN LATERAL unnest(ARRAY[…]) function scans: Postgres would pull
+// plain derived tables up and copy each column's defining expression into
+// every reference, while an OFFSET 0 fence, which stops that, also stops
+// the aggregate above from running as partial aggregates in parallel
+// workers; a function scan's outputs stay plain columns and keep the
+// parallel plan (see MomentsSQL).
+func chainLevels(base, where string, levels [][]col, lateral bool) string {
+	if lateral {
+		var sb strings.Builder
+		sb.WriteString(base)
+		for i, lv := range levels {
+			arrs := make([]string, len(lv))
+			names := make([]string, len(lv))
+			for j, c := range lv {
+				arrs[j] = "ARRAY[" + c.expr + "]"
+				names[j] = c.name
+			}
+			fmt.Fprintf(&sb, "\nCROSS JOIN LATERAL unnest(%s) AS l%d(%s)", strings.Join(arrs, ", "), i, strings.Join(names, ", "))
+		}
+		sb.WriteString("\nWHERE " + where)
+		return sb.String()
+	}
+	from := base
+	for i, lv := range levels {
+		parts := make([]string, len(lv))
+		for j, c := range lv {
+			parts[j] = c.expr + " AS " + c.name
+		}
+		if i == 0 {
+			from = fmt.Sprintf("(\nSELECT %s\nFROM %s\nWHERE %s\n) AS l0", strings.Join(parts, ",\n  "), from, where)
+			continue
+		}
+		from = fmt.Sprintf("(\nSELECT l%d.*, %s\nFROM %s\n) AS l%d", i-1, strings.Join(parts, ",\n  "), from, i)
+	}
+	return from
 }
 
 // BalanceLevelsSQL returns the distinct levels of the run's categorical

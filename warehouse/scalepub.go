@@ -18,12 +18,12 @@ type ScalePublisher interface {
 	// MatchedSumsSQL, BalanceLevelsSQL) and returns its rows: numbers as
 	// float64, text as string, booleans as bool, NULL as nil.
 	QueryRows(ctx context.Context, query string, args ...any) ([][]any, error)
-	// PlannerFence reports whether the engine's planner merges derived
+	// LateralLevels reports whether the engine's planner merges derived
 	// tables into their parent and copies each column's defining
 	// expression into every reference (Postgres), so that queries built
-	// here need an OFFSET 0 fence under each derived table to compute a
-	// per-row value once (RunSumsSQL).
-	PlannerFence() bool
+	// here compute per-row values in LATERAL function scans instead
+	// (RunSumsSQL's lateral argument; chainLevels).
+	LateralLevels() bool
 }
 
 // SnapshotSQL returns the INSERT … SELECT that writes the run's cohort

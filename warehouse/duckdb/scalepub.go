@@ -107,6 +107,6 @@ func normalise(v any) any {
 	return v
 }
 
-// PlannerFence implements warehouse.ScalePublisher: DuckDB computes each
+// LateralLevels implements warehouse.ScalePublisher: DuckDB computes each
 // projection of a derived table once.
-func (w *Warehouse) PlannerFence() bool { return false }
+func (w *Warehouse) LateralLevels() bool { return false }

@@ -82,6 +82,6 @@ func (w *Warehouse) QueryRows(ctx context.Context, query string, args ...any) ([
 	return out, nil
 }
 
-// PlannerFence implements warehouse.ScalePublisher: Postgres pulls simple
+// LateralLevels implements warehouse.ScalePublisher: Postgres pulls simple
 // subqueries up into the parent query, copying their expressions.
-func (w *Warehouse) PlannerFence() bool { return true }
+func (w *Warehouse) LateralLevels() bool { return true }

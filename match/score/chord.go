@@ -42,9 +42,10 @@ const (
 // Options.Tol (the distance to the fixed point is then below
 // ρ/(1 − ρ)·Tol), and one full moments pass at the result gives the
 // information for the standard errors and the checks FitMomentsFrom makes
-// (collinearity, separation, the exact Newton step being below √Tol). The
-// fixed point is where the penalised score is zero, which is the maximum
-// FitMomentsFrom converges to, so the estimates agree to the tolerance.
+// (collinearity, separation, the exact Newton step being below √Tol), and
+// that exact Newton step is taken. The fixed point is where the penalised
+// score is zero, which is the maximum FitMomentsFrom converges to, and
+// the final Newton step puts the estimate on it to rounding.
 //
 // Whenever the chord iteration does not behave — A not positive definite,
 // a step that chordHalvings halvings cannot make lower the deviance, a
@@ -207,6 +208,16 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 			return handOver(beta, steps)
 		}
 	}
+	// The chord result is within about ρ/(1 − ρ)·Tol of the maximum; one
+	// exact Newton step from there (quadratic convergence) leaves an error
+	// of order that squared, below rounding, so the estimate no longer
+	// depends on where the chord iteration stopped. The information it
+	// was computed at, and so the standard errors, differ from those at
+	// the polished point by a relative O(Tol).
+	for j, s := range exact {
+		beta[j] += s
+	}
+	steps++
 	fit = &Fit{
 		Model:      opt.Model,
 		Lambda:     lambda,

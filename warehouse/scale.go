@@ -20,13 +20,14 @@ import (
 //   - Describe: one aggregate query (plus one LIMIT 0 query for the column
 //     types, and one GROUP BY per categorical covariate for its levels):
 //     counts, NULL counts, means and SDs — O(p) numbers.
-//   - Moments: one aggregate query per Newton (IRLS) step returning the
-//     upper triangle of X̃'WX̃, the score X̃'(z − e), the log-likelihood
-//     and the number of perfectly predicted units — k(k+1)/2 + k + 3
-//     numbers, k = design columns + 1.
+//   - Moments: one aggregate query per pass returning the score
+//     X̃'(z − e), the log-likelihood, the number of perfectly predicted
+//     units and, on a full pass, the upper triangle of X̃'WX̃ — k + 3 or
+//     k(k+1)/2 + k + 3 numbers, k = design columns + 1.
 //   - Sampler.SampleDesign (optional): the design columns of a ~100k-unit
-//     hash sample, once, to seed the Newton iteration so that it takes ~3
-//     full passes instead of ~10.
+//     hash sample, once, to seed the iteration and approximate the
+//     information, so that the fit takes gradient passes and one full
+//     pass (score.FitMomentsChord) instead of a full pass per Newton step.
 //   - ScoreInto: one INSERT … SELECT per table; nothing comes back.
 //   - MatchInput: three columns per unit (id, stratum, logit), which is
 //     what matching needs and all it needs.
@@ -38,7 +39,7 @@ import (
 // own rows' w·x_a·x_b) and let the coordinator add the partial sums — the
 // same Partial Aggregate / Gather / Finalize Aggregate plan Postgres uses
 // for its parallel workers on one machine (tested in
-// warehouse/postgres/scale_test.go). One IRLS step is one such query,
+// warehouse/scaletest/plan_test.go). One pass is one such query,
 // whatever the number of rows; ScoreInto's INSERT … SELECT runs where the
 // rows are (co-located when the output tables are distributed on the unit
 // column). Summation order then differs from run to run, which moves
@@ -383,7 +384,8 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 	return strings.Join(parts, " + ")
 }
 
-// MomentsSQL is the one aggregate query of a Newton step (see Moments).
+// MomentsSQL is the one aggregate query of a pass of the fit (see Moments;
+// info false leaves out the information sums: a gradient pass).
 // Each per-row quantity is computed once, at its own level: nested derived
 // tables for DuckDB (lateral false; DuckDB computes each projection once),
 // and for Postgres (lateral true) a chain of CROSS JOIN LATERAL

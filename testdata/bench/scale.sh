@@ -2,7 +2,8 @@
 # Warehouse-scale benchmark (issue "Warehouse-scale mode"): the same study
 # run with score.fit_in: memory and score.fit_in: warehouse, printing the
 # wall time, the seconds per stage (--json stage_seconds) and the peak RSS
-# of each mode.
+# of each mode, then how the two runs' matched sets, scores and weights
+# differ (testdata/bench/modediff).
 #
 # DuckDB: UNITS units (default 10,000,000) of study.BenchCohortSQLWith:
 # ~10 % treated, NUMERIC numeric (default 27) + 3 categorical covariates,
@@ -37,6 +38,7 @@ if [[ " $engines " == *" duckdb "* ]]; then
     "$out/mkwarehouse" -out "$db" -numeric "$numeric" -fit-in "$mode" -prefix "s_${mode}_" -study "$out/duckdb-$mode.yaml"
     run "duckdb-$units-$mode" "$out/duckdb-$mode.yaml"
   done
+  [ "$modes" = "memory warehouse" ] && go run ./testdata/bench/modediff -db "$db"
 fi
 
 if [ -n "${PG_DSN:-}" ] && [[ " $engines " == *" postgres "* ]]; then
@@ -70,4 +72,5 @@ SQL
       -from synth_scale.cohort -study "$out/pg-$mode.yaml"
     run "postgres-$pg_units-$mode" "$out/pg-$mode.yaml"
   done
+  [ "$modes" = "memory warehouse" ] && go run ./testdata/bench/modediff -print -schema public | psql "$PG_DSN" -At
 fi

@@ -459,43 +459,7 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bo
   CAST(sum(ll) AS DOUBLE PRECISION), CAST(sum(perfect) AS DOUBLE PRECISION),
   CAST(ARRAY[` + strings.Join(sums, ", ") + `] AS DOUBLE PRECISION[])
 FROM `
-	var from string
-	if lateral {
-		// Level 0 is a derived table so that only z, x1, ... are visible
-		// to the later levels, never the cohort's own columns.
-		parts := make([]string, len(std))
-		for j, c := range std {
-			parts[j] = c.expr + " AS " + c.name
-		}
-		var b strings.Builder
-		b.WriteString("(\nSELECT " + strings.Join(parts, ",\n  ") + "\nFROM " + From(cohortSQL) + "\n) AS l0")
-		for i, lv := range levels {
-			if i == 0 {
-				continue
-			}
-			arrs := make([]string, len(lv))
-			names := make([]string, len(lv))
-			for j, c := range lv {
-				arrs[j] = "ARRAY[" + c.expr + "]"
-				names[j] = c.name
-			}
-			fmt.Fprintf(&b, "\nCROSS JOIN LATERAL unnest(%s) AS l%d(%s)", strings.Join(arrs, ", "), i, strings.Join(names, ", "))
-		}
-		from = b.String()
-	} else {
-		from = From(cohortSQL)
-		for i, lv := range levels {
-			parts := make([]string, len(lv))
-			for j, c := range lv {
-				parts[j] = c.expr + " AS " + c.name
-			}
-			prev := "l" + fmt.Sprint(i-1) + ".*, "
-			if i == 0 {
-				prev = ""
-			}
-			from = fmt.Sprintf("(\nSELECT %s%s\nFROM %s\n) AS l%d", prev, strings.Join(parts, ",\n  "), from, i)
-		}
-	}
+	from := chainLevels(From(cohortSQL), "", levels, lateral)
 	return sel + from, b.args
 }
 

@@ -147,7 +147,19 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 				d.Columns[j].Text = true
 			}
 		}
-		levels[0] = append(levels[0], col{"z", d.TreatmentExpr()}, col{"eta", b.RawEta(&d, r.Coef)})
+		// The design's columns on their original scale in level 0 and η
+		// from them in its own level: the same operations in the same
+		// order as RawEta, so the same numbers as the weights table's.
+		if len(r.Coef) != len(d.Columns)+1 {
+			panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(r.Coef), len(d.Columns)))
+		}
+		levels[0] = append(levels[0], col{"z", d.TreatmentExpr()})
+		eta := []string{b.Num(r.Coef[0])}
+		for j, dc := range d.Columns {
+			levels[0] = append(levels[0], col{fmt.Sprintf("r%d", j+1), b.rawExpr(dc)})
+			eta = append(eta, fmt.Sprintf("%s * r%d", b.Num(r.Coef[j+1]), j+1))
+		}
+		levels = append(levels, []col{{"eta", strings.Join(eta, " + ")}})
 		lo, hi := "TRUE", "TRUE"
 		if !math.IsInf(r.Support.Low, -1) {
 			lo = "eta >= " + b.Num(r.Support.Low)
@@ -220,45 +232,47 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 // expression.
 type col struct{ name, expr string }
 
-// chainLevels returns a FROM clause over base (filtered by where) in
-// which each level's columns are computed once per row and visible to
-// the later levels and the outer select. Without lateral, nested derived
-// tables (DuckDB computes each projection once). With lateral, a chain of
-// CROSS JOIN LATERAL unnest(ARRAY[…]) function scans: Postgres would pull
-// plain derived tables up and copy each column's defining expression into
-// every reference, while an OFFSET 0 fence, which stops that, also stops
-// the aggregate above from running as partial aggregates in parallel
-// workers; a function scan's outputs stay plain columns and keep the
-// parallel plan (see MomentsSQL).
+// chainLevels returns a FROM clause over base (filtered by where, when
+// not empty) in which each level's columns are computed once per row and
+// visible to the later levels and the outer select. Level 0 is a derived
+// table over base, so that only its columns are visible above it, never
+// base's own (whose names are the user's and could be any of ours); its
+// expressions should be cheap, since Postgres pulls it up and copies them
+// into every reference. The later levels are nested derived tables
+// without lateral (DuckDB computes each projection once), and with
+// lateral a chain of CROSS JOIN LATERAL unnest(ARRAY[…]) function scans:
+// Postgres would pull plain derived tables up and copy each column's
+// defining expression into every reference (η into each of k(k+1)/2
+// sums, compounding per level), while an OFFSET 0 fence, which stops
+// that, also stops the aggregate above from running as partial
+// aggregates in parallel workers; a function scan's outputs stay plain
+// columns and keep the parallel plan.
 func chainLevels(base, where string, levels [][]col, lateral bool) string {
-	if lateral {
-		var sb strings.Builder
-		sb.WriteString(base)
-		for i, lv := range levels {
-			arrs := make([]string, len(lv))
-			names := make([]string, len(lv))
-			for j, c := range lv {
-				arrs[j] = "ARRAY[" + c.expr + "]"
-				names[j] = c.name
-			}
-			fmt.Fprintf(&sb, "\nCROSS JOIN LATERAL unnest(%s) AS l%d(%s)", strings.Join(arrs, ", "), i, strings.Join(names, ", "))
-		}
-		sb.WriteString("\nWHERE " + where)
-		return sb.String()
+	if where != "" {
+		where = "\nWHERE " + where
 	}
-	from := base
+	var sb strings.Builder
 	for i, lv := range levels {
 		parts := make([]string, len(lv))
+		names := make([]string, len(lv))
+		arrs := make([]string, len(lv))
 		for j, c := range lv {
 			parts[j] = c.expr + " AS " + c.name
+			names[j] = c.name
+			arrs[j] = "ARRAY[" + c.expr + "]"
 		}
-		if i == 0 {
-			from = fmt.Sprintf("(\nSELECT %s\nFROM %s\nWHERE %s\n) AS l0", strings.Join(parts, ",\n  "), from, where)
-			continue
+		switch {
+		case i == 0:
+			fmt.Fprintf(&sb, "(\nSELECT %s\nFROM %s%s\n) AS l0", strings.Join(parts, ",\n  "), base, where)
+		case lateral:
+			fmt.Fprintf(&sb, "\nCROSS JOIN LATERAL unnest(%s) AS l%d(%s)", strings.Join(arrs, ", "), i, strings.Join(names, ", "))
+		default:
+			inner := sb.String()
+			sb.Reset()
+			fmt.Fprintf(&sb, "(\nSELECT l%d.*, %s\nFROM %s\n) AS l%d", i-1, strings.Join(parts, ",\n  "), inner, i)
 		}
-		from = fmt.Sprintf("(\nSELECT l%d.*, %s\nFROM %s\n) AS l%d", i-1, strings.Join(parts, ",\n  "), from, i)
 	}
-	return from
+	return sb.String()
 }
 
 // BalanceLevelsSQL returns the distinct levels of the run's categorical

@@ -24,7 +24,7 @@ func TestPostgresAggregatesPlanParallel(t *testing.T) {
 	dsn := pgtest.NewDatabase(t)
 	pgtest.Exec(t, dsn, `CREATE TABLE big AS SELECT g AS id, (g % 7 = 0) AS treated,
 		sin(g) AS x1, cos(g) AS x2, CAST(g % 3 AS VARCHAR) AS grp, CAST(g % 5 AS DOUBLE PRECISION) AS y FROM generate_series(1, 50000) AS g;
-	CREATE TABLE p_cohort AS SELECT 'r1'::text AS run_id, * FROM big;
+	CREATE TABLE p_cohort AS SELECT 'r1'::text AS run_id, *, x1 + x2 AS eta, x1 - x2 AS t FROM big;
 	CREATE TABLE p_matches AS SELECT 'r1'::text AS run_id, id AS set_id, id, treated, 1.0::double precision AS set_weight, 0.0::double precision AS match_distance FROM big WHERE id % 3 = 0;
 	ANALYZE p_cohort; ANALYZE p_matches`)
 	ctx := context.Background()
@@ -47,13 +47,15 @@ func TestPostgresAggregatesPlanParallel(t *testing.T) {
 	beta := []float64{-1.8, 0.1, 0.2, 0.3}
 	c, err := warehouse.NewContract(warehouse.Output{Schema: "public", Prefix: "p_", Study: "p", Unit: "id", IDKind: warehouse.IDInt,
 		Treatment: "treated", Outcomes: []string{"y"}, Schemes: []string{"att", "overlap"},
-		Covariates: []warehouse.CovariateMeta{{Name: "x1"}, {Name: "x2"}, {Name: "grp", Kind: warehouse.Categorical}}})
+		Covariates: []warehouse.CovariateMeta{{Name: "x1"}, {Name: "x2"}, {Name: "grp", Kind: warehouse.Categorical}, {Name: "eta"}, {Name: "t"}}})
 	if err != nil {
 		t.Fatal(err)
 	}
 	runSums, runArgs, err := warehouse.RunSumsSQL(c, warehouse.RunSums{
-		Covariates: []warehouse.CovariateMeta{{Name: "x1"}, {Name: "x2"}, {Name: "grp", Kind: warehouse.Categorical}},
-		Levels:     [][]string{nil, nil, {"0", "1", "2"}}, Shifts: []float64{0, 0}, Matched: true,
+		// Covariates named like the query's own per-row columns (eta, t)
+		// must not be confused with them.
+		Covariates: []warehouse.CovariateMeta{{Name: "x1"}, {Name: "x2"}, {Name: "grp", Kind: warehouse.Categorical}, {Name: "eta"}, {Name: "t"}},
+		Levels:     [][]string{nil, nil, {"0", "1", "2"}, nil, nil}, Shifts: []float64{0, 0, 0, 0}, Matched: true,
 		Schemes: []string{"att", "overlap"}, Design: d, Coef: beta, Support: warehouse.Support{Low: math.Inf(-1), High: 2},
 		Outcomes: []string{"y"}}, true)
 	if err != nil {

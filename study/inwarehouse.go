@@ -22,7 +22,7 @@ import (
 // score.FitMomentsChord: gradient passes (k sums each) with the sample's
 // information held fixed, then one full Moments pass (k(k+1)/2 more sums)
 // for the standard errors. A full pass costs several gradient passes
-// (about 5× at 40 design columns on DuckDB), so this takes a fraction of
+// (about 5× at 40 design columns on DuckDB), so this takes about half
 // the time of Newton's method, which needs a full pass per step
 // (score.FitMomentsFrom, used without a seed and whenever the chord
 // iteration hands over). Both converge to the same maximum.

@@ -48,9 +48,9 @@ const (
 // the final Newton step puts the estimate on it to rounding.
 //
 // Whenever the chord iteration does not behave — A not positive definite,
-// a step that chordHalvings halvings cannot make lower the deviance, a
-// perfectly predicted unit, chordMaxSteps steps, or the final checks
-// failing — it hands over to FitMomentsFrom from the best point reached,
+// a step that chordHalvings halvings cannot make lower the deviance,
+// chordMaxSteps steps (as under separation, where the steps do not
+// shrink), or the final checks failing — it hands over to FitMomentsFrom from the best point reached,
 // so results and every error are FitMomentsFrom's. Fit.Iterations counts
 // chord steps plus any Newton steps after a hand-over; passes reports how
 // many gradient passes were made (full passes are counted by eval's
@@ -100,12 +100,17 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 		}
 		return -2*ll + lambda*s
 	}
-	// gradPass evaluates the penalised score and deviance at b.
-	gradPass := func(b []float64) (g []float64, dev float64, perfect int, err error) {
+	// gradPass evaluates the penalised score and deviance at b. The
+	// perfect count is not used: units predicted to within 1e-7 are no
+	// sign of separation while the estimate converges (FitMomentsFrom
+	// reads them the same way), and under separation the chord steps do
+	// not shrink, so the iteration hands over to Newton's method, which
+	// diagnoses it.
+	gradPass := func(b []float64) (g []float64, dev float64, err error) {
 		passes++
-		gr, ll, perfect, err := grad(b)
+		gr, ll, _, err := grad(b)
 		if err != nil {
-			return nil, 0, 0, fmt.Errorf("score: gradient at chord step %d: %w", passes, err)
+			return nil, 0, fmt.Errorf("score: gradient at chord step %d: %w", passes, err)
 		}
 		if len(gr) != k {
 			panic(fmt.Sprintf("score: gradient returned %d values for k = %d", len(gr), k))
@@ -114,17 +119,17 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 		for j := 1; j < k; j++ {
 			g[j] -= lambda * b[j]
 		}
-		return g, objective(ll, b), perfect, nil
+		return g, objective(ll, b), nil
 	}
-	g, dev, perfect, err := gradPass(beta)
+	g, dev, err := gradPass(beta)
 	if err != nil {
 		return nil, nil, passes, err
 	}
 	// A seed worse than the intercept-only model is FitMomentsFrom's to
-	// drop; so is a start that already predicts some unit perfectly.
+	// drop.
 	p := float64(nTreated) / float64(n)
 	nullDev := -2 * (float64(nTreated)*math.Log(p) + float64(n-nTreated)*math.Log(1-p))
-	if !(dev <= nullDev) || (opt.Model == Logistic && perfect > 0) {
+	if !(dev <= nullDev) {
 		return newton(start, 0)
 	}
 	handOver := func(b []float64, steps int) (*Fit, []float64, int, error) {
@@ -155,13 +160,9 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 				next[j] = beta[j] + step[j]
 				size = max(size, math.Abs(step[j])/(1+math.Abs(next[j])))
 			}
-			var nperfect int
-			ng, ndev, nperfect, err = gradPass(next)
+			ng, ndev, err = gradPass(next)
 			if err != nil {
 				return nil, nil, passes, err
-			}
-			if opt.Model == Logistic && nperfect > 0 {
-				return handOver(beta, steps)
 			}
 			if ndev <= dev+1e-11*(math.Abs(dev)+1) {
 				improved = true
@@ -185,7 +186,7 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 	}
 	// One full pass at the result: the information for the standard
 	// errors, and the checks of FitMomentsFrom's first and last steps.
-	info, gr, ll, perfect, err := eval(beta)
+	info, gr, ll, _, err := eval(beta)
 	if err != nil {
 		return nil, nil, passes, fmt.Errorf("score: moments at the chord result: %w", err)
 	}
@@ -196,7 +197,7 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 	if err := checkCollinear(mom.info, k, names); err != nil {
 		return nil, nil, passes, err
 	}
-	if opt.Model == Logistic && (perfect > 0 || -2*ll < completeDev) {
+	if opt.Model == Logistic && -2*ll < completeDev {
 		return handOver(beta, steps)
 	}
 	exact, ok := newtonStep(&mom, beta, lambda)

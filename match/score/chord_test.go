@@ -63,6 +63,14 @@ func TestFitMomentsChord(t *testing.T) {
 		{"fair ridge", fair, Options{Model: Ridge, Lambda: 2}, nil, 5, 0, true, false},
 		{"spector logistic", spector, Options{}, &sm.Spector, 1, 0, true, false},
 		{"fair, useless information", fair, Options{}, &sm.Fair, 5, 1e-3, false, true},
+		// Seeded synthetic units (a log-normal column puts 22 of them at
+		// |η| > 15 at the estimate): predicted that well is not separation, and the chord
+		// iteration must not give up on it (common practice: agreement
+		// with FitModel).
+		{"synthetic, near-certain units", func(*testing.T) ([][]float64, []string, []bool) {
+			x, names, z := synth(2028, 40_000, 6, 4, -1, 0.6)
+			return x, names, z
+		}, Options{}, nil, 10, 0, true, false},
 	}
 	for _, tc := range tests {
 		t.Run(tc.name, func(t *testing.T) {

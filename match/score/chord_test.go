@@ -111,14 +111,7 @@ func TestFitMomentsChord(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			for j := range want.Coef {
-				if e := relErr(got.Coef[j], want.Coef[j]); !(e <= 1e-8) {
-					t.Errorf("coef %s: chord %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.Coef[j], want.Coef[j], e)
-				}
-				if e := relErr(got.SE[j], want.SE[j]); !(e <= 1e-8) {
-					t.Errorf("SE %s: chord %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.SE[j], want.SE[j], e)
-				}
-			}
+			sameAsFitModel(t, "chord", got, want)
 			if !got.Converged || got.LogLik != got.LogLik || math.Abs(got.LogLik-want.LogLik) > 1e-8*math.Abs(want.LogLik) {
 				t.Errorf("converged %v, log-likelihood %.12g vs %.12g", got.Converged, got.LogLik, want.LogLik)
 			}

@@ -65,14 +65,7 @@ func TestFitMomentsFromStart(t *testing.T) {
 				t.Fatal(err)
 			}
 			compareFit(t, got, *tc.ref, 1e-6)
-			for j := range want.Coef {
-				if e := relErr(got.Coef[j], want.Coef[j]); !(e <= 1e-8) {
-					t.Errorf("coef %s: seeded %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.Coef[j], want.Coef[j], e)
-				}
-				if e := relErr(got.SE[j], want.SE[j]); !(e <= 1e-8) {
-					t.Errorf("SE %s: seeded %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.SE[j], want.SE[j], e)
-				}
-			}
+			sameAsFitModel(t, "seeded", got, want)
 			if tc.fewer && got.Iterations >= want.Iterations {
 				t.Errorf("seeded fit took %d steps, default start %d", got.Iterations, want.Iterations)
 			}

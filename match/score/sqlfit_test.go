@@ -115,14 +115,7 @@ func TestFitMomentsMatchesFitModel(t *testing.T) {
 			if err != nil {
 				t.Fatal(err)
 			}
-			for j := range want.Coef {
-				if e := relErr(got.Coef[j], want.Coef[j]); !(e <= 1e-8) {
-					t.Errorf("coef %s: moments %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.Coef[j], want.Coef[j], e)
-				}
-				if e := relErr(got.SE[j], want.SE[j]); !(e <= 1e-8) {
-					t.Errorf("SE %s: moments %.15g, FitModel %.15g (rel %.2g)", want.Names[j], got.SE[j], want.SE[j], e)
-				}
-			}
+			sameAsFitModel(t, "moments", got, want)
 			if got.Iterations != want.Iterations || got.PS != nil {
 				t.Errorf("iterations %d vs %d, PS %v", got.Iterations, want.Iterations, got.PS != nil)
 			}
@@ -170,5 +163,19 @@ func TestFitMomentsErrors(t *testing.T) {
 	}, Options{})
 	if !errors.Is(err, boom) {
 		t.Errorf("moments error: got %v", err)
+	}
+}
+
+// sameAsFitModel checks a moments-driver fit against FitModel's on the
+// same data: coefficients and SEs to 1e-8 relative.
+func sameAsFitModel(t *testing.T, label string, got, want *Fit) {
+	t.Helper()
+	for j := range want.Coef {
+		if e := relErr(got.Coef[j], want.Coef[j]); !(e <= 1e-8) {
+			t.Errorf("coef %s: %s %.15g, FitModel %.15g (rel %.2g)", want.Names[j], label, got.Coef[j], want.Coef[j], e)
+		}
+		if e := relErr(got.SE[j], want.SE[j]); !(e <= 1e-8) {
+			t.Errorf("SE %s: %s %.15g, FitModel %.15g (rel %.2g)", want.Names[j], label, got.SE[j], want.SE[j], e)
+		}
 	}
 }

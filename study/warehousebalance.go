@@ -48,7 +48,7 @@ func runSumsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 	if err != nil {
 		return nil, fmt.Errorf("balance and effect sums: %w", err)
 	}
-	width := spec.Adjustments()*spec.BalanceWidth() + len(spec.Outcomes)*(spec.Adjustments()-matchedCount(spec))*warehouse.EffectWidth
+	width := spec.Adjustments()*spec.BalanceWidth() + len(spec.Outcomes)*spec.EffectAdjustments()*warehouse.EffectWidth
 	rs := &runSums{spec: spec}
 	for _, r := range rows {
 		if len(r) != 1+width {
@@ -74,13 +74,6 @@ func runSumsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 	return rs, nil
 }
 
-func matchedCount(r warehouse.RunSums) int {
-	if r.Matched {
-		return 1
-	}
-	return 0
-}
-
 // balance returns adjustment a's balance sums in arm g: Σw, Σw², then the
 // covariates' sums.
 func (r *runSums) balance(a, g int) []float64 {
@@ -94,8 +87,7 @@ func (r *runSums) effect(o, a, g int) armSums {
 	if r.spec.Matched && a > 1 {
 		a--
 	}
-	per := r.spec.Adjustments() - matchedCount(r.spec)
-	v := r.arm[g][r.spec.Adjustments()*r.spec.BalanceWidth()+(o*per+a)*warehouse.EffectWidth:]
+	v := r.arm[g][r.spec.Adjustments()*r.spec.BalanceWidth()+(o*r.spec.EffectAdjustments()+a)*warehouse.EffectWidth:]
 	return armSums{n: v[0], miss: v[1], sw: v[2], swy: v[3], sw2y2: v[4], sw2y: v[5], sw2: v[6], nonBinary: v[7]}
 }
 

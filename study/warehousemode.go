@@ -145,9 +145,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	// and treatment only.
 	thin := &warehouse.Cohort{Unit: q.Unit, IDKind: mi.IDKind, IntIDs: mi.IntIDs, TextIDs: mi.TextIDs, Treatment: q.Treatment, Treated: mi.Treated}
 	var rows warehouse.MatchRows
-	var mw []float64
 	if s.Matching.Algorithm != "off" {
-		if rows, mw, err = matchInWarehouse(s, thin, mi, keptT, sum); err != nil {
+		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum); err != nil {
 			return sum, err
 		}
 		timed("match")
@@ -185,7 +184,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 			return err
 		}
 		rs, err := runSumsInWarehouse(ctx, sp, c, sum.RunID, warehouse.RunSums{
-			Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: mw != nil,
+			Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
 			Schemes: s.Schemes(), Design: d, Coef: fit.Coef, Support: sup, Outcomes: q.Outcomes})
 		if err != nil {
 			return fmt.Errorf("balance: %w", err)
@@ -234,9 +233,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }
 
 // matchInWarehouse matches on MatchInput's slices with the in-memory
-// greedy or optimal code and returns the matches rows and each unit's
-// summed set weight (for the matched ESS).
-func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary) (warehouse.MatchRows, []float64, error) {
+// greedy or optimal code and returns the matches rows.
+func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary) (warehouse.MatchRows, error) {
 	var rows warehouse.MatchRows
 	z := mi.Treated
 	sd := pooledSD(mi.Logit, z)
@@ -251,13 +249,12 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 	var solver Solver
 	sets, _, err := matchUnits(matchInput{spec: s, cohort: thin, logit: mi.Logit, eligible: mi.InSupport, strata: st, width: width, solver: &solver})
 	if err != nil {
-		return rows, nil, badInput("match", err)
+		return rows, badInput("match", err)
 	}
 	if s.Matching.Algorithm == "optimal" {
 		ms.Solver = &solver
 	}
 	groups := setsToGroups(sets)
-	mw := make([]float64, len(z))
 	used := map[int]bool{}
 	total := 0.0
 	matchedT := 0
@@ -275,13 +272,12 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 			rows.Treated = append(rows.Treated, isT)
 			rows.SetWeight = append(rows.SetWeight, wt)
 			rows.Distance = append(rows.Distance, dist)
-			mw[u] += wt
 			if isT {
 				matchedT++
 			} else {
 				if used[u] {
 					// RunSumsSQL reads one weight per unit.
-					return rows, nil, fmt.Errorf("match: comparison unit %d is in two sets; warehouse-scale mode matches without reuse", u)
+					return rows, fmt.Errorf("match: comparison unit %d is in two sets; warehouse-scale mode matches without reuse", u)
 				}
 				used[u] = true
 			}
@@ -295,9 +291,9 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 	sum.Matching = &ms
 	sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
 	if matchedT == 0 {
-		return rows, nil, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
+		return rows, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
 	}
-	return rows, mw, nil
+	return rows, nil
 }
 
 // adjustmentNames lists the run's adjustments in the in-memory order.

@@ -52,6 +52,12 @@ func (r RunSums) Adjustments() int {
 	return n
 }
 
+// EffectAdjustments is the number of adjustments with effect sums: all
+// but matched.
+func (r RunSums) EffectAdjustments() int {
+	return 1 + len(r.Schemes)
+}
+
 // BalanceWidth is the number of balance columns per adjustment: Σw, Σw²,
 // then 2 per numeric covariate and 1 per level.
 func (r RunSums) BalanceWidth() int {

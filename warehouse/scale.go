@@ -57,7 +57,7 @@ type InWarehouse interface {
 	// covariates, and the levels of categorical covariates sorted by the
 	// same rule as ReadCohort (the first is the reference).
 	Describe(ctx context.Context, q CohortQuery) (*Description, error)
-	// Moments evaluates one Newton step's sums at beta, given on the
+	// Moments evaluates one pass's sums at beta, given on the
 	// standardised scale of d (intercept first); with info false it
 	// leaves out the k(k+1)/2 information sums (Moments.Info nil), which
 	// are most of the query's work.
@@ -440,7 +440,6 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bo
 		}
 	} else {
 		levels[3] = levels[3][:3] // √w only feeds the information sums
-
 	}
 	levels = append(levels, last)
 
@@ -552,14 +551,21 @@ func ScoredSQL(b *ScaleSQL, cohortSQL string, d *DesignSQL, coef []float64, sup 
 		cols = append(cols, "c."+Quote(e))
 	}
 	inner := "SELECT " + strings.Join(cols, ", ") + " FROM " + From(cohortSQL)
+	return "SELECT s.*, " + Logistic("eta") + " AS e, " + b.InSupport("eta", sup) + " AS ins FROM (" + inner + " " + fenceText(fence) + ") AS s"
+}
+
+// InSupport returns the support flag of the linear predictor eta,
+// (eta >= Low AND eta <= High) with the finite bounds bound as
+// parameters.
+func (b *ScaleSQL) InSupport(eta string, sup Support) string {
 	lo, hi := "TRUE", "TRUE"
 	if !math.IsInf(sup.Low, -1) {
-		lo = "eta >= " + b.Num(sup.Low)
+		lo = eta + " >= " + b.Num(sup.Low)
 	}
 	if !math.IsInf(sup.High, 1) {
-		hi = "eta <= " + b.Num(sup.High)
+		hi = eta + " <= " + b.Num(sup.High)
 	}
-	return "SELECT s.*, " + Logistic("eta") + " AS e, (" + lo + " AND " + hi + ") AS ins FROM (" + inner + " " + fenceText(fence) + ") AS s"
+	return "(" + lo + " AND " + hi + ")"
 }
 
 // ScoreInsertSQL returns the INSERT … SELECT statements of ScoreInto for

@@ -2,7 +2,6 @@ package warehouse
 
 import (
 	"fmt"
-	"math"
 	"strings"
 )
 
@@ -166,14 +165,7 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 			eta = append(eta, fmt.Sprintf("%s * r%d", b.Num(r.Coef[j+1]), j+1))
 		}
 		levels = append(levels, []col{{"eta", strings.Join(eta, " + ")}})
-		lo, hi := "TRUE", "TRUE"
-		if !math.IsInf(r.Support.Low, -1) {
-			lo = "eta >= " + b.Num(r.Support.Low)
-		}
-		if !math.IsInf(r.Support.High, 1) {
-			hi = "eta <= " + b.Num(r.Support.High)
-		}
-		levels = append(levels, []col{{"e", Logistic("eta")}, {"ins", "(" + lo + " AND " + hi + ")"}})
+		levels = append(levels, []col{{"e", Logistic("eta")}, {"ins", b.InSupport("eta", r.Support)}})
 		var ws []col
 		for i, s := range r.Schemes {
 			if err := ValidIdent(s); err != nil {

@@ -226,3 +226,10 @@ func NewObjects(out Output) (*Objects, error) {
 	return &Objects{C: c, Runs: q(c.Runs.Name), Cohort: q(c.Cohort.Name), Scores: q(c.Scores.Name),
 		Matches: q(c.Matches.Name), Weights: q(c.Weights.Name), Effects: q(c.Effects.Name)}, nil
 }
+
+// RetentionTables lists the quoted tables retention deletes from, in
+// order: the run's child tables first, the runs table last, so that no
+// child row outlives its run.
+func (o *Objects) RetentionTables() []string {
+	return []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs}
+}

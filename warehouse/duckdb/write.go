@@ -376,11 +376,10 @@ func (w *Warehouse) publish(ctx context.Context, o *warehouse.Objects, out wareh
 			return err
 		}
 		if len(ids) > 0 {
-			q := func(t string) string {
-				return render("retention.sql", map[string]string{"Table": t, "Params": warehouse.Placeholders(len(ids))})
-			}
-			for _, t := range []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs} {
-				if _, err := w.exec(ctx, q(t), ids...); err != nil {
+			params := warehouse.Placeholders(len(ids))
+			for _, t := range o.RetentionTables() {
+				q := render("retention.sql", map[string]string{"Table": t, "Params": params})
+				if _, err := w.exec(ctx, q, ids...); err != nil {
 					return fmt.Errorf("retention on %s: %w", t, dbErr(err))
 				}
 			}

@@ -93,13 +93,6 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 	if !ch.Factorize(penalised(&moments{info: startInfo}, k, lambda)) {
 		return newton(start, 0)
 	}
-	objective := func(ll float64, b []float64) float64 {
-		var s float64
-		for _, v := range b[1:] {
-			s += v * v
-		}
-		return -2*ll + lambda*s
-	}
 	// gradPass evaluates the penalised score and deviance at b. The
 	// perfect count is not used: units predicted to within 1e-7 are no
 	// sign of separation while the estimate converges (FitMomentsFrom
@@ -119,7 +112,7 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 		for j := 1; j < k; j++ {
 			g[j] -= lambda * b[j]
 		}
-		return g, objective(ll, b), nil
+		return g, penalisedDeviance(ll, b, lambda), nil
 	}
 	g, dev, err := gradPass(beta)
 	if err != nil {
@@ -127,9 +120,7 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 	}
 	// A seed worse than the intercept-only model is FitMomentsFrom's to
 	// drop.
-	p := float64(nTreated) / float64(n)
-	nullDev := -2 * (float64(nTreated)*math.Log(p) + float64(n-nTreated)*math.Log(1-p))
-	if !(dev <= nullDev) {
+	if !(dev <= -2*nullLogLik(n, nTreated)) {
 		return newton(start, 0)
 	}
 	handOver := func(b []float64, steps int) (*Fit, []float64, int, error) {
@@ -226,7 +217,7 @@ func FitMomentsChord(names []string, center, invScale []float64, n, nTreated int
 		Iterations: steps,
 		Converged:  true,
 		LogLik:     ll,
-		NullLogLik: float64(nTreated)*math.Log(p) + float64(n-nTreated)*math.Log(1-p),
+		NullLogLik: nullLogLik(n, nTreated),
 		N:          n,
 		NTreated:   nTreated,
 	}

@@ -214,14 +214,7 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 	d := &design{cols: x, names: names, center: center, invScale: invScale, z: z, n: n, k: k}
 	eta := make([]float64, n)
 
-	// penalised deviance −2ℓ + λΣ_{j≥1} β̃_j²
-	objective := func(m *moments, b []float64) float64 {
-		var s float64
-		for _, v := range b[1:] {
-			s += v * v
-		}
-		return -2*m.logLik + lambda*s
-	}
+	objective := func(m *moments, b []float64) float64 { return penalisedDeviance(m.logLik, b, lambda) }
 	perfect := func() int {
 		c := 0
 		for i, h := range eta {
@@ -321,7 +314,7 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 		Iterations: it,
 		Converged:  notConv == "",
 		LogLik:     mom.logLik,
-		NullLogLik: float64(nt)*math.Log(float64(nt)/float64(n)) + float64(n-nt)*math.Log(float64(n-nt)/float64(n)),
+		NullLogLik: nullLogLik(n, nt),
 		N:          n,
 		NTreated:   nt,
 		Logit:      eta,
@@ -458,4 +451,20 @@ func (d *design) separation(complete bool, units int, step []float64) *Separatio
 		e.Columns = append(e.Columns, d.names[cs[i].j])
 	}
 	return e
+}
+
+// penalisedDeviance is −2ℓ + λΣ_{j≥1} β̃_j², what every fitting driver
+// minimises (the intercept is not penalised).
+func penalisedDeviance(logLik float64, beta []float64, lambda float64) float64 {
+	var s float64
+	for _, v := range beta[1:] {
+		s += v * v
+	}
+	return -2*logLik + lambda*s
+}
+
+// nullLogLik is the intercept-only model's log-likelihood,
+// n₁ log(n₁/n) + n₀ log(n₀/n).
+func nullLogLik(n, nt int) float64 {
+	return float64(nt)*math.Log(float64(nt)/float64(n)) + float64(n-nt)*math.Log(float64(n-nt)/float64(n))
 }

@@ -83,13 +83,7 @@ func FitMomentsFrom(names []string, center, invScale []float64, n, nTreated int,
 		}
 		return moments{info: info, grad: grad, logLik: ll}, perfect, nil
 	}
-	objective := func(m *moments, b []float64) float64 {
-		var s float64
-		for _, v := range b[1:] {
-			s += v * v
-		}
-		return -2*m.logLik + lambda*s
-	}
+	objective := func(m *moments, b []float64) float64 { return penalisedDeviance(m.logLik, b, lambda) }
 
 	beta := make([]float64, k)
 	beta[0] = math.Log(float64(nt) / float64(n-nt))
@@ -117,9 +111,7 @@ func FitMomentsFrom(names []string, center, invScale []float64, n, nTreated int,
 	if seeded {
 		// The intercept-only model's deviance (its penalty is 0) has a
 		// closed form; a seed worse than it is dropped.
-		p := float64(nt) / float64(n)
-		nullDev := -2 * (float64(nt)*math.Log(p) + float64(n-nt)*math.Log(1-p))
-		if !(dev <= nullDev) {
+		if !(dev <= -2*nullLogLik(n, nt)) {
 			beta = null
 			if mom, perfect, err = pass(beta); err != nil {
 				return nil, nil, err
@@ -204,7 +196,7 @@ func FitMomentsFrom(names []string, center, invScale []float64, n, nTreated int,
 		Iterations: it,
 		Converged:  notConv == "",
 		LogLik:     mom.logLik,
-		NullLogLik: float64(nt)*math.Log(float64(nt)/float64(n)) + float64(n-nt)*math.Log(float64(n-nt)/float64(n)),
+		NullLogLik: nullLogLik(n, nt),
 		N:          n,
 		NTreated:   nt,
 	}

@@ -119,6 +119,25 @@ func inWarehouseEffect(t, c armSums, sets *setSums, binary bool) ([]effect.Estim
 // the matched one. Rosenbaum's Γ needs the pairs' outcomes and is left
 // undefined (NaN).
 func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *warehouse.Contract, s *Spec, sum *Summary, rs *runSums) error {
+	// The matched sets' sums of every outcome, from one join of the
+	// matches to the snapshot.
+	var matched []float64
+	if s.Matching.Algorithm != "off" && len(s.Cohort.Outcomes) > 0 {
+		text, err := warehouse.MatchedSumsSQL(c, s.Cohort.Outcomes)
+		if err != nil {
+			return err
+		}
+		rows, err := sp.QueryRows(ctx, text, sum.RunID)
+		if err != nil {
+			return fmt.Errorf("effects (matched): %w", err)
+		}
+		if len(rows) != 1 || len(rows[0]) != len(s.Cohort.Outcomes)*warehouse.MatchedWidth {
+			return fmt.Errorf("effects (matched): %d rows, want one of %d sums", len(rows), len(s.Cohort.Outcomes)*warehouse.MatchedWidth)
+		}
+		for _, x := range rows[0] {
+			matched = append(matched, numOf(x))
+		}
+	}
 	for o, name := range s.Cohort.Outcomes {
 		ut, uc := rs.effect(o, 0, 1), rs.effect(o, 0, 0)
 		binary := ut.nonBinary+uc.nonBinary == 0
@@ -137,19 +156,7 @@ func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 				t, cc = ut, uc
 			case "matched":
 				estimand = "att"
-				text, err := warehouse.MatchedSumsSQL(c, name)
-				if err != nil {
-					return err
-				}
-				rows, err := sp.QueryRows(ctx, text, sum.RunID)
-				if err != nil || len(rows) != 1 {
-					return fmt.Errorf("effects %s (matched): %v rows: %w", name, len(rows), err)
-				}
-				r := rows[0]
-				v := make([]float64, len(r))
-				for i := range r {
-					v[i] = numOf(r[i])
-				}
+				v := matched[o*warehouse.MatchedWidth : (o+1)*warehouse.MatchedWidth]
 				sets = &setSums{g: v[0]}
 				t = armSums{n: v[1], miss: v[3], sw: v[5], swy: v[6]}
 				cc = armSums{n: v[2], miss: v[4], sw: v[7], swy: v[8]}

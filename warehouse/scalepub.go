@@ -67,40 +67,57 @@ func SnapshotSQL(c *Contract, q CohortQuery, d *DesignSQL, covKinds []CovKind, o
 		QuoteQualified(c.Schema, c.Cohort.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), From(q.SQL)), nil
 }
 
-// MatchedSumsSQL returns, for one outcome over a run's matched rows
-// (matches joined to the cohort snapshot, $1 the run id; w = set_weight),
-// first the sums of each matched set g over its usable rows (w > 0,
-// outcome present),
+// MatchedWidth is the number of MatchedSumsSQL columns per outcome.
+const MatchedWidth = 20
+
+// MatchedSumsSQL returns, for each outcome over a run's matched rows
+// (matches joined to the cohort snapshot once, $1 the run id; w =
+// set_weight), first the sums of each matched set g over its usable rows
+// (w > 0, outcome present),
 //
 //	A_gT = Σ_{g,T} w·y   B_gT = Σ_{g,T} w   A_gC = Σ_{g,C} w·y   B_gC = Σ_{g,C} w,
 //
-// then one row of sums over the sets: G (sets with a usable row), rows
-// used and missing per arm, ΣB_T, ΣA_T, ΣB_C, ΣA_C, the ten products
-// Σ A_T², Σ A_T·B_T, Σ B_T², Σ A_C², Σ A_C·B_C, Σ B_C², Σ A_T·A_C,
-// Σ A_T·B_C, Σ B_T·A_C, Σ B_T·B_C, and the count of used outcomes other
-// than 0 and 1. The inner GROUP BY set_id and the outer sums are plain
-// aggregates (a distributed engine shuffles on set_id once).
-func MatchedSumsSQL(c *Contract, outcome string) (string, error) {
-	if err := ValidIdent(outcome); err != nil {
-		return "", fmt.Errorf("outcome: %w", err)
+// then one row of sums over the sets, MatchedWidth columns per outcome in
+// order: G (sets with a usable row), rows used and missing per arm, ΣB_T,
+// ΣA_T, ΣB_C, ΣA_C, the ten products Σ A_T², Σ A_T·B_T, Σ B_T², Σ A_C²,
+// Σ A_C·B_C, Σ B_C², Σ A_T·A_C, Σ A_T·B_C, Σ B_T·A_C, Σ B_T·B_C, and the
+// count of used outcomes other than 0 and 1. The inner GROUP BY set_id
+// and the outer sums are plain aggregates (a distributed engine shuffles
+// on set_id once).
+func MatchedSumsSQL(c *Contract, outcomes []string) (string, error) {
+	ys := make([]string, len(outcomes))
+	for i, o := range outcomes {
+		if err := ValidIdent(o); err != nil {
+			return "", fmt.Errorf("outcome: %w", err)
+		}
+		ys[i] = fmt.Sprintf("CAST(c.%s AS DOUBLE PRECISION) AS y%d", Quote(o), i+1)
 	}
-	rows := "SELECT m.set_id AS g, m.treated AS t, CAST(m.set_weight AS DOUBLE PRECISION) AS w, CAST(c." + Quote(outcome) + " AS DOUBLE PRECISION) AS y FROM " +
+	rows := "SELECT m.set_id AS g, m.treated AS t, CAST(m.set_weight AS DOUBLE PRECISION) AS w, " + strings.Join(ys, ", ") + " FROM " +
 		QuoteQualified(c.Schema, c.Matches.Name) + " m JOIN " + QuoteQualified(c.Schema, c.Cohort.Name) + " c ON c.run_id = m.run_id AND c." + Quote(c.Unit) + " = m." + Quote(c.Unit) +
 		" WHERE m.run_id = CAST($1 AS VARCHAR) AND m.set_weight > 0"
-	sets := `SELECT g,
-  sum(CASE WHEN t AND y IS NOT NULL THEN 1 ELSE 0 END) AS nt, sum(CASE WHEN NOT t AND y IS NOT NULL THEN 1 ELSE 0 END) AS nc,
-  sum(CASE WHEN t AND y IS NULL THEN 1 ELSE 0 END) AS mt, sum(CASE WHEN NOT t AND y IS NULL THEN 1 ELSE 0 END) AS mc,
-  coalesce(sum(CASE WHEN t THEN w * y END), 0) AS sat, coalesce(sum(CASE WHEN t AND y IS NOT NULL THEN w END), 0) AS sbt,
-  coalesce(sum(CASE WHEN NOT t THEN w * y END), 0) AS sac, coalesce(sum(CASE WHEN NOT t AND y IS NOT NULL THEN w END), 0) AS sbc,
-  sum(CASE WHEN y <> 0 AND y <> 1 THEN 1 ELSE 0 END) AS nb
-FROM (` + rows + `) AS r GROUP BY g`
-	return `SELECT CAST(sum(CASE WHEN nt + nc > 0 THEN 1 ELSE 0 END) AS DOUBLE PRECISION),
-  CAST(sum(nt) AS DOUBLE PRECISION), CAST(sum(nc) AS DOUBLE PRECISION), CAST(sum(mt) AS DOUBLE PRECISION), CAST(sum(mc) AS DOUBLE PRECISION),
-  sum(sbt), sum(sat), sum(sbc), sum(sac),
-  sum(sat * sat), sum(sat * sbt), sum(sbt * sbt), sum(sac * sac), sum(sac * sbc), sum(sbc * sbc),
-  sum(sat * sac), sum(sat * sbc), sum(sbt * sac), sum(sbt * sbc),
-  CAST(sum(nb) AS DOUBLE PRECISION)
-FROM (` + sets + `) AS s`, nil
+	var per, outer []string
+	for i := range outcomes {
+		y := fmt.Sprintf("y%d", i+1)
+		r := func(name string) string { return fmt.Sprintf("%s_%d", name, i+1) }
+		per = append(per,
+			"sum(CASE WHEN t AND "+y+" IS NOT NULL THEN 1 ELSE 0 END) AS "+r("nt"), "sum(CASE WHEN NOT t AND "+y+" IS NOT NULL THEN 1 ELSE 0 END) AS "+r("nc"),
+			"sum(CASE WHEN t AND "+y+" IS NULL THEN 1 ELSE 0 END) AS "+r("mt"), "sum(CASE WHEN NOT t AND "+y+" IS NULL THEN 1 ELSE 0 END) AS "+r("mc"),
+			"coalesce(sum(CASE WHEN t THEN w * "+y+" END), 0) AS "+r("sat"), "coalesce(sum(CASE WHEN t AND "+y+" IS NOT NULL THEN w END), 0) AS "+r("sbt"),
+			"coalesce(sum(CASE WHEN NOT t THEN w * "+y+" END), 0) AS "+r("sac"), "coalesce(sum(CASE WHEN NOT t AND "+y+" IS NOT NULL THEN w END), 0) AS "+r("sbc"),
+			"sum(CASE WHEN "+y+" <> 0 AND "+y+" <> 1 THEN 1 ELSE 0 END) AS "+r("nb"))
+		sat, sbt, sac, sbc := r("sat"), r("sbt"), r("sac"), r("sbc")
+		outer = append(outer,
+			"CAST(sum(CASE WHEN "+r("nt")+" + "+r("nc")+" > 0 THEN 1 ELSE 0 END) AS DOUBLE PRECISION)",
+			"CAST(sum("+r("nt")+") AS DOUBLE PRECISION)", "CAST(sum("+r("nc")+") AS DOUBLE PRECISION)",
+			"CAST(sum("+r("mt")+") AS DOUBLE PRECISION)", "CAST(sum("+r("mc")+") AS DOUBLE PRECISION)",
+			"sum("+sbt+")", "sum("+sat+")", "sum("+sbc+")", "sum("+sac+")",
+			"sum("+sat+" * "+sat+")", "sum("+sat+" * "+sbt+")", "sum("+sbt+" * "+sbt+")",
+			"sum("+sac+" * "+sac+")", "sum("+sac+" * "+sbc+")", "sum("+sbc+" * "+sbc+")",
+			"sum("+sat+" * "+sac+")", "sum("+sat+" * "+sbc+")", "sum("+sbt+" * "+sac+")", "sum("+sbt+" * "+sbc+")",
+			"CAST(sum("+r("nb")+") AS DOUBLE PRECISION)")
+	}
+	sets := "SELECT g,\n  " + strings.Join(per, ",\n  ") + "\nFROM (" + rows + ") AS r GROUP BY g"
+	return "SELECT " + strings.Join(outer, ",\n  ") + "\nFROM (" + sets + ") AS s", nil
 }
 
 // CovKinds returns the kind of each of q's covariates as d models it.

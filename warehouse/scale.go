@@ -115,7 +115,7 @@ type ColumnDescription struct {
 
 // DesignSQL is the propensity model's design as the engine computes it: a
 // numeric covariate as is, a categorical one as 0/1 indicators of every
-// level but the reference, in the order of study/design.go, so the
+// level but the reference, in the order of match/study/design.go, so the
 // coefficients line up with the in-memory fit's.
 type DesignSQL struct {
 	Unit, Treatment string

@@ -11,7 +11,7 @@ import (
 	"strings"
 	"testing"
 
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 // baseStudy is a valid study over the demo table; each bad-input case

@@ -8,7 +8,7 @@ import (
 	"math"
 	"testing"
 
-	"counterpart/study"
+	"counterpart/match/study"
 	"counterpart/warehouse/postgres/pgtest"
 )
 

@@ -6,7 +6,7 @@ import (
 	"io"
 	"sort"
 
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 // runDemo writes the synthetic warehouse, runs its study and sets the

@@ -19,8 +19,8 @@ import (
 	"github.com/urfave/cli/v2"
 	"golang.org/x/term"
 
-	"counterpart/report"
-	"counterpart/study"
+	"counterpart/match/report"
+	"counterpart/match/study"
 	"counterpart/warehouse"
 )
 

@@ -11,8 +11,8 @@ import (
 
 	"github.com/urfave/cli/v2"
 
-	"counterpart/report"
-	"counterpart/study"
+	"counterpart/match/report"
+	"counterpart/match/study"
 	"counterpart/warehouse"
 )
 

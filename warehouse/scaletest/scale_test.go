@@ -19,8 +19,8 @@ import (
 	"github.com/jackc/pgx/v5"
 
 	"counterpart/match/score"
+	"counterpart/match/study"
 	"counterpart/match/weights"
-	"counterpart/study"
 	"counterpart/warehouse"
 	"counterpart/warehouse/duckdb"
 	"counterpart/warehouse/postgres"
@@ -243,7 +243,7 @@ func pgEngine(t *testing.T, sets []dataset) engine {
 }
 
 // inMemory is the in-memory path: ReadCohort, the design of
-// study/design.go (numeric as is, categorical → indicators of every level
+// match/study/design.go (numeric as is, categorical → indicators of every level
 // but the first), FitModel.
 func inMemory(t *testing.T, w warehouse.Warehouse, q warehouse.CohortQuery) (*warehouse.Cohort, *score.Fit) {
 	t.Helper()

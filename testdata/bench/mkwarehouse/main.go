@@ -13,7 +13,7 @@ import (
 
 	_ "github.com/duckdb/duckdb-go/v2"
 
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 func main() {

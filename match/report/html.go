@@ -12,7 +12,7 @@ import (
 	"strings"
 	"time"
 
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 // HTML writes a run's report as one self-contained HTML file: the run

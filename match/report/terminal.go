@@ -6,7 +6,7 @@ import (
 	"math"
 	"strings"
 
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 // TerminalOptions tune the terminal summary.

@@ -35,7 +35,7 @@ type diagInput struct {
 
 func readDiagInput(t *testing.T) diagInput {
 	t.Helper()
-	f, err := os.Open("../testdata/report/diagnostics_input.csv")
+	f, err := os.Open("../../testdata/report/diagnostics_input.csv")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -88,7 +88,7 @@ func near(t *testing.T, what string, got Num, want float64) {
 func TestDiagnoseReference(t *testing.T) {
 	in := readDiagInput(t)
 	var ref diagRef
-	b, err := os.ReadFile("../testdata/report/diagnostics_ref.json")
+	b, err := os.ReadFile("../../testdata/report/diagnostics_ref.json")
 	if err != nil {
 		t.Fatal(err)
 	}

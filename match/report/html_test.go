@@ -23,7 +23,7 @@ import (
 	_ "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/match/balance"
-	"counterpart/study"
+	"counterpart/match/study"
 )
 
 // demoUnits keeps the demo run small: the report's shape, not its
@@ -422,7 +422,7 @@ func TestScreenshot(t *testing.T) {
 		t.Fatal(err)
 	}
 	out := filepath.Join(dir, "report.png")
-	cmd := exec.Command("sh", "../testdata/report/screenshot.sh", in, out)
+	cmd := exec.Command("sh", "../../testdata/report/screenshot.sh", in, out)
 	if b, err := cmd.CombinedOutput(); err != nil {
 		t.Fatalf("screenshot.sh: %v\n%s", err, b)
 	}

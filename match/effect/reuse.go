@@ -3,6 +3,7 @@ package effect
 import (
 	"fmt"
 	"math"
+	"slices"
 )
 
 // Reuse is a matching estimate of the effect on the treated with the
@@ -148,6 +149,66 @@ func ConditionalVariance(y []float64, neighbours [][]int) []float64 {
 		j := float64(len(nb))
 		m /= j
 		out[i] = j / (j + 1) * sq(y[i]-m)
+	}
+	return out
+}
+
+// ReuseEstimate is the matching estimate with the Abadie–Imbens (2006)
+// population variance. σ²(x) of each unit is estimated from its two
+// nearest neighbours in logit(ps) within its own arm (their J = 2);
+// treated[s] and controls[s] are matched set s, as for ReuseVariance.
+func ReuseEstimate(y []float64, z []bool, logit []float64, treated []int, controls [][]int) (Estimate, error) {
+	neighbours := ArmNeighbours(logit, z, y, 2)
+	sigma2 := ConditionalVariance(y, neighbours)
+	r, err := ReuseVariance(y, treated, controls, sigma2)
+	if err != nil {
+		return Estimate{}, err
+	}
+	e := Estimate{Estimate: r.Estimate, SE: r.SEPopulation, NTreated: r.NTreated, NControl: r.NControl, Method: MethodReuse}
+	e.CILow, e.CIHigh = e.Estimate-ZCrit*e.SE, e.Estimate+ZCrit*e.SE
+	e.Z = e.Estimate / e.SE
+	e.P = math.Erfc(math.Abs(e.Z) / math.Sqrt2)
+	return e, nil
+}
+
+// ArmNeighbours returns, for every unit with an observed outcome, the j
+// units of its own arm nearest in logit(ps) (ties by position), found by
+// sorting each arm once.
+func ArmNeighbours(logit []float64, z []bool, y []float64, j int) [][]int {
+	out := make([][]int, len(logit))
+	for _, arm := range []bool{true, false} {
+		var idx []int
+		for i := range logit {
+			if z[i] == arm && !math.IsNaN(y[i]) {
+				idx = append(idx, i)
+			}
+		}
+		slices.SortFunc(idx, func(a, b int) int {
+			switch {
+			case logit[a] < logit[b]:
+				return -1
+			case logit[a] > logit[b]:
+				return 1
+			}
+			return a - b
+		})
+		for p, i := range idx {
+			lo, hi := p-1, p+1
+			var nb []int
+			for len(nb) < j && (lo >= 0 || hi < len(idx)) {
+				switch {
+				case lo < 0:
+					nb, hi = append(nb, idx[hi]), hi+1
+				case hi >= len(idx):
+					nb, lo = append(nb, idx[lo]), lo-1
+				case logit[i]-logit[idx[lo]] <= logit[idx[hi]]-logit[i]:
+					nb, lo = append(nb, idx[lo]), lo-1
+				default:
+					nb, hi = append(nb, idx[hi]), hi+1
+				}
+			}
+			out[i] = nb
+		}
 	}
 	return out
 }

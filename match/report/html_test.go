@@ -90,7 +90,7 @@ func runDemo(dir string) (*study.Summary, *study.DemoData, error) {
 }
 
 // diagnosticsFromWarehouse reads the run's scores, weights and matches
-// back and calls study.Diagnose with the demo's balance variables.
+// back and calls balance.Diagnose with the demo's balance variables.
 func diagnosticsFromWarehouse(ctx context.Context, db, runID string, data *study.DemoData) (study.Diagnostics, error) {
 	conn, err := sql.Open("duckdb", db+"?access_mode=read_only")
 	if err != nil {
@@ -170,7 +170,7 @@ func diagnosticsFromWarehouse(ctx context.Context, db, runID string, data *study
 	for _, a := range []string{"matched", "att", "ate", "overlap"} {
 		adj = append(adj, study.NamedWeights{Name: a, W: wt[a]})
 	}
-	return study.Diagnose(ps, z, in, vars, adj, 3), nil
+	return balance.Diagnose(ps, z, in, vars, adj, 3), nil
 }
 
 func renderHTML(t *testing.T, s *study.Summary) string {

@@ -155,41 +155,6 @@ func pooledSD(x []float64, z []bool) float64 {
 	return balance.PooledSD(balance.Variable{Values: x}, z)
 }
 
-// auc is the c-statistic of the score: the probability that a random
-// treated unit scores above a random control, ties counting one half
-// (Mann–Whitney form; Hanley & McNeil 1982). Each arm is sorted once and
-// the two are merged.
-func auc(ps []float64, z []bool) float64 {
-	var t, c []float64
-	for i, p := range ps {
-		if z[i] {
-			t = append(t, p)
-		} else {
-			c = append(c, p)
-		}
-	}
-	if len(t) == 0 || len(c) == 0 {
-		return math.NaN()
-	}
-	slices.Sort(t)
-	slices.Sort(c)
-	var wins float64 // Σ over treated of (#controls below + ½ #controls equal)
-	lo, hi := 0, 0   // c[:lo] < v, c[:hi] <= v
-	for _, v := range t {
-		for lo < len(c) && c[lo] < v {
-			lo++
-		}
-		if hi < lo {
-			hi = lo
-		}
-		for hi < len(c) && c[hi] <= v {
-			hi++
-		}
-		wins += float64(lo) + float64(hi-lo)/2
-	}
-	return wins / (float64(len(t)) * float64(len(c)))
-}
-
 // checkTextNumbers refuses a text covariate whose values are numbers (all
 // or most of them): it is almost always a numeric column that picked up a
 // stray marker like "n/a", and treating it as categories would silently

@@ -4,7 +4,6 @@ import (
 	"errors"
 	"fmt"
 	"math"
-	"slices"
 
 	"counterpart/match/effect"
 	"counterpart/match/sensitivity"
@@ -75,7 +74,7 @@ func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRow
 			// control creates; use Abadie & Imbens (2006) for the
 			// difference instead.
 			var ai effect.Estimate
-			ai, err = reuseEstimate(y, z, logit, mr)
+			ai, err = effect.ReuseEstimate(y, z, logit, mr.setTreated, mr.setControls)
 			if err == nil {
 				ai.Contrast = effect.ContrastDifference
 				rows[0] = ai
@@ -202,65 +201,6 @@ func rosenbaumGamma(y []float64, pairs [][2]int, binary bool, estimate float64) 
 	}
 	g, err := sensitivity.SignedRankGamma(diffs, sensitivityAlpha)
 	return g, err == nil
-}
-
-// reuseEstimate is the matching estimate with the Abadie–Imbens (2006)
-// population variance. σ²(x) of each unit is estimated from its two
-// nearest neighbours in logit(ps) within its own arm (their J = 2).
-func reuseEstimate(y []float64, z []bool, logit []float64, mr *matchedRows) (effect.Estimate, error) {
-	neighbours := armNeighbours(logit, z, y, 2)
-	sigma2 := effect.ConditionalVariance(y, neighbours)
-	r, err := effect.ReuseVariance(y, mr.setTreated, mr.setControls, sigma2)
-	if err != nil {
-		return effect.Estimate{}, err
-	}
-	e := effect.Estimate{Estimate: r.Estimate, SE: r.SEPopulation, NTreated: r.NTreated, NControl: r.NControl, Method: effect.MethodReuse}
-	e.CILow, e.CIHigh = e.Estimate-effect.ZCrit*e.SE, e.Estimate+effect.ZCrit*e.SE
-	e.Z = e.Estimate / e.SE
-	e.P = math.Erfc(math.Abs(e.Z) / math.Sqrt2)
-	return e, nil
-}
-
-// armNeighbours returns, for every unit with an observed outcome, the j
-// units of its own arm nearest in logit(ps) (ties by position), found by
-// sorting each arm once.
-func armNeighbours(logit []float64, z []bool, y []float64, j int) [][]int {
-	out := make([][]int, len(logit))
-	for _, arm := range []bool{true, false} {
-		var idx []int
-		for i := range logit {
-			if z[i] == arm && !math.IsNaN(y[i]) {
-				idx = append(idx, i)
-			}
-		}
-		slices.SortFunc(idx, func(a, b int) int {
-			switch {
-			case logit[a] < logit[b]:
-				return -1
-			case logit[a] > logit[b]:
-				return 1
-			}
-			return a - b
-		})
-		for p, i := range idx {
-			lo, hi := p-1, p+1
-			var nb []int
-			for len(nb) < j && (lo >= 0 || hi < len(idx)) {
-				switch {
-				case lo < 0:
-					nb, hi = append(nb, idx[hi]), hi+1
-				case hi >= len(idx):
-					nb, lo = append(nb, idx[lo]), lo-1
-				case logit[i]-logit[idx[lo]] <= logit[idx[hi]]-logit[i]:
-					nb, lo = append(nb, idx[lo]), lo-1
-				default:
-					nb, hi = append(nb, idx[hi]), hi+1
-				}
-			}
-			out[i] = nb
-		}
-	}
-	return out
 }
 
 func effectRow(outcome, adjustment, estimand string, e effect.Estimate) EffectRow {

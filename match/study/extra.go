@@ -136,7 +136,7 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 					failed[r] = true
 					continue
 				}
-				keep := supportMask(s.Support, fit.PS, z)
+				keep := score.SupportMask(s.Support, fit.PS, z)
 				out := make([]float64, 0, len(keys))
 				for _, o := range c.Outcomes {
 					for i, k := range idx {
@@ -204,38 +204,4 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 		}
 	}
 	return nil
-}
-
-// supportMask applies a support rule to scores (the rule of the run; see
-// analyse).
-func supportMask(rule string, ps []float64, z []bool) []bool {
-	low, high := supportBounds(rule, ps, z)
-	keep := make([]bool, len(ps))
-	for i, p := range ps {
-		keep[i] = p >= low && p <= high
-	}
-	return keep
-}
-
-// supportBounds returns the kept score interval of a support rule: none
-// keeps [0, 1]; minmax keeps [max of the arms' minima, min of their
-// maxima]; crump keeps [0.1, 0.9] (Crump, Hotz, Imbens & Mitnik 2009).
-func supportBounds(rule string, ps []float64, z []bool) (float64, float64) {
-	switch rule {
-	case "minmax":
-		lo := [2]float64{math.Inf(1), math.Inf(1)}
-		hi := [2]float64{math.Inf(-1), math.Inf(-1)}
-		for i, p := range ps {
-			a := 0
-			if z[i] {
-				a = 1
-			}
-			lo[a] = math.Min(lo[a], p)
-			hi[a] = math.Max(hi[a], p)
-		}
-		return math.Max(lo[0], lo[1]), math.Min(hi[0], hi[1])
-	case "crump":
-		return 0.1, 0.9
-	}
-	return 0, 1
 }

@@ -248,14 +248,14 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		return nil, badInput("fit score", err)
 	}
 	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
-		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik), CStatistic: Num(auc(fit.PS, z))}
+		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik), CStatistic: Num(score.CStatistic(fit.PS, z))}
 	for j, name := range fit.Names {
 		sum.Model.Terms = append(sum.Model.Terms, Term{Name: name, Coef: Num(fit.Coef[j]), SE: Num(fit.SE[j])})
 	}
 	timed("fit")
 
 	res := &results{ps: fit.PS, logit: fit.Logit, inSupport: make([]bool, n)}
-	low, high := supportBounds(s.Support, fit.PS, z)
+	low, high := score.SupportBounds(s.Support, fit.PS, z)
 	var keptT, keptC int
 	for i, p := range fit.PS {
 		in := p >= low && p <= high
@@ -425,7 +425,7 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 	}
 	timed("weight")
 	if diagnostics {
-		dg := Diagnose(fit.PS, z, res.inSupport, d.vars, diagAdj, DefaultWorst)
+		dg := balance.Diagnose(fit.PS, z, res.inSupport, d.vars, diagAdj, balance.DefaultWorst)
 		sum.Diagnostics = &dg
 		timed("diagnostics")
 	}

@@ -1,12 +1,10 @@
 package study
 
 import (
-	"encoding/json"
-	"math"
-	"strconv"
 	"time"
 
 	"counterpart/match/balance"
+	"counterpart/match/num"
 )
 
 // Summary is what a run reports: the JSON of --json, the runs row's JSON
@@ -171,27 +169,15 @@ type EffectRow struct {
 
 // Num is a float64 that encodes NaN and ±Inf as JSON null instead of
 // failing the whole summary.
-type Num float64
+type Num = num.Num
 
-// MarshalJSON implements json.Marshaler.
-func (n Num) MarshalJSON() ([]byte, error) {
-	f := float64(n)
-	if math.IsNaN(f) || math.IsInf(f, 0) {
-		return []byte("null"), nil
-	}
-	return strconv.AppendFloat(nil, f, 'g', -1, 64), nil
-}
-
-// UnmarshalJSON implements json.Unmarshaler (null becomes NaN).
-func (n *Num) UnmarshalJSON(b []byte) error {
-	if string(b) == "null" {
-		*n = Num(math.NaN())
-		return nil
-	}
-	var f float64
-	if err := json.Unmarshal(b, &f); err != nil {
-		return err
-	}
-	*n = Num(f)
-	return nil
-}
+// The report's distribution pictures are computed in match/balance; the
+// summary carries them under these names.
+type (
+	Diagnostics  = balance.Diagnostics
+	ScoreDensity = balance.ScoreDensity
+	ECDFCurve    = balance.ECDFCurve
+	ECDFPanel    = balance.ECDFPanel
+	ECDFDistance = balance.ECDFDistance
+	NamedWeights = balance.NamedWeights
+)

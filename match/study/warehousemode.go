@@ -125,7 +125,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	if len(mi.Treated) != n {
 		return sum, fmt.Errorf("match input: %d rows, the fit saw %d: the data changed during the run", len(mi.Treated), n)
 	}
-	sum.Model.CStatistic = Num(auc(mi.Logit, mi.Treated))
+	sum.Model.CStatistic = Num(score.CStatistic(mi.Logit, mi.Treated))
 	var keptT, keptC int
 	for i, in := range mi.InSupport {
 		if in {

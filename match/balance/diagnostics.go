@@ -1,4 +1,4 @@
-package study
+package balance
 
 import (
 	"cmp"
@@ -9,7 +9,7 @@ import (
 	"sort"
 	"sync"
 
-	"counterpart/match/balance"
+	"counterpart/match/num"
 )
 
 // ScoreBins is the number of equal-width bins on [0, 1] of the score
@@ -55,9 +55,9 @@ type Diagnostics struct {
 // directly. Bins are [b/B, (b+1)/B), the last one closed. An arm without
 // positive weight has null densities.
 type ScoreDensity struct {
-	Adjustment string `json:"adjustment"`
-	Treated    []Num  `json:"treated_density"`
-	Control    []Num  `json:"control_density"`
+	Adjustment string    `json:"adjustment"`
+	Treated    []num.Num `json:"treated_density"`
+	Control    []num.Num `json:"control_density"`
 }
 
 // ECDFCurve is one covariate's weighted empirical CDF in each arm, under
@@ -70,17 +70,17 @@ type ScoreDensity struct {
 // are never shown.
 type ECDFCurve struct {
 	Covariate     string      `json:"covariate"`
-	UnadjustedSMD Num         `json:"unadjusted_smd"`
-	Grid          []Num       `json:"grid"`
+	UnadjustedSMD num.Num     `json:"unadjusted_smd"`
+	Grid          []num.Num   `json:"grid"`
 	Adjustments   []ECDFPanel `json:"adjustments"`
 }
 
 // ECDFPanel is the pair of eCDFs F(g) = Σ_{x_i ≤ g} w_i / Σ w_i of the
 // arms at the grid points of its curve.
 type ECDFPanel struct {
-	Adjustment string `json:"adjustment"`
-	Treated    []Num  `json:"treated"`
-	Control    []Num  `json:"control"`
+	Adjustment string    `json:"adjustment"`
+	Treated    []num.Num `json:"treated"`
+	Control    []num.Num `json:"control"`
 }
 
 // ECDFDistance compares the arms' weighted eCDFs of one variable under one
@@ -94,11 +94,11 @@ type ECDFPanel struct {
 // Both are 0 for identical distributions and at most 1. For a 0/1
 // variable max = |p_T − p_C| and mean = max/2.
 type ECDFDistance struct {
-	Covariate  string `json:"covariate"`
-	Level      string `json:"level,omitempty"`
-	Adjustment string `json:"adjustment"`
-	Max        Num    `json:"max_ecdf_diff"`
-	Mean       Num    `json:"mean_ecdf_diff"`
+	Covariate  string  `json:"covariate"`
+	Level      string  `json:"level,omitempty"`
+	Adjustment string  `json:"adjustment"`
+	Max        num.Num `json:"max_ecdf_diff"`
+	Mean       num.Num `json:"mean_ecdf_diff"`
 }
 
 // NamedWeights is one adjustment's per-unit weights for Diagnose; a nil W
@@ -122,27 +122,27 @@ type NamedWeights struct {
 // variable one sort of its values plus one pass per adjustment; variables
 // run in parallel. A length mismatch or a negative or non-finite weight is
 // a programmer error and panics (weights are validated upstream).
-func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable, adjustments []NamedWeights, worst int) Diagnostics {
+func Diagnose(ps []float64, z []bool, inSupport []bool, vars []Variable, adjustments []NamedWeights, worst int) Diagnostics {
 	n := len(z)
 	if len(ps) != n || (inSupport != nil && len(inSupport) != n) {
-		panic(fmt.Sprintf("study: Diagnose: len(ps) = %d, len(inSupport) = %d, len(z) = %d", len(ps), len(inSupport), n))
+		panic(fmt.Sprintf("balance: Diagnose: len(ps) = %d, len(inSupport) = %d, len(z) = %d", len(ps), len(inSupport), n))
 	}
 	for _, a := range adjustments {
 		if a.W == nil {
 			continue
 		}
 		if len(a.W) != n {
-			panic(fmt.Sprintf("study: Diagnose: %s has %d weights, z has %d", a.Name, len(a.W), n))
+			panic(fmt.Sprintf("balance: Diagnose: %s has %d weights, z has %d", a.Name, len(a.W), n))
 		}
 		for i, w := range a.W {
 			if !(w >= 0) || math.IsInf(w, 1) {
-				panic(fmt.Sprintf("study: Diagnose: %s weight %d is %v", a.Name, i, w))
+				panic(fmt.Sprintf("balance: Diagnose: %s weight %d is %v", a.Name, i, w))
 			}
 		}
 	}
 	for _, v := range vars {
 		if len(v.Values) != n {
-			panic(fmt.Sprintf("study: Diagnose: %s has %d values, z has %d", v.Label(), len(v.Values), n))
+			panic(fmt.Sprintf("balance: Diagnose: %s has %d values, z has %d", v.Label(), len(v.Values), n))
 		}
 	}
 	if worst <= 0 {
@@ -189,7 +189,7 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 
 	// The curves go to the continuous covariates that start worst.
 	var cont []int
-	var contVars []balance.Variable
+	var contVars []Variable
 	for k, v := range vars {
 		if !v.Binary {
 			cont = append(cont, k)
@@ -197,7 +197,7 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 		}
 	}
 	smd := map[int]float64{}
-	for j, st := range balance.Prepare(contVars, z, false).Compute(nil) {
+	for j, st := range Prepare(contVars, z, false).Compute(nil) {
 		smd[cont[j]] = st.SMD
 	}
 	slices.SortStableFunc(cont, func(a, b int) int {
@@ -217,11 +217,11 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 		j, curve := curveOf[k]
 		var gridRank []int
 		if curve {
-			c := ECDFCurve{Covariate: v.Label(), UnadjustedSMD: Num(smd[k])}
+			c := ECDFCurve{Covariate: v.Label(), UnadjustedSMD: num.Num(smd[k])}
 			sorted := slices.Clone(v.Values)
 			slices.Sort(sorted)
 			for _, g := range quantileGrid(sorted) {
-				c.Grid = append(c.Grid, Num(g))
+				c.Grid = append(c.Grid, num.Num(g))
 				gridRank = append(gridRank, sort.SearchFloat64s(distinct, g))
 			}
 			d.Curves[j] = c
@@ -246,7 +246,7 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 				st += acc[2*r]
 				sc += acc[2*r+1]
 			}
-			dist := ECDFDistance{Covariate: v.Name, Level: v.Level, Adjustment: adj.Name, Max: Num(math.NaN()), Mean: Num(math.NaN())}
+			dist := ECDFDistance{Covariate: v.Name, Level: v.Level, Adjustment: adj.Name, Max: num.Num(math.NaN()), Mean: num.Num(math.NaN())}
 			ok := st > 0 && sc > 0
 			if ok {
 				var ct, cc, mx, sum float64
@@ -258,7 +258,7 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 					mx = math.Max(mx, diff)
 					sum += diff
 				}
-				dist.Max, dist.Mean = Num(mx), Num(sum/float64(m))
+				dist.Max, dist.Mean = num.Num(mx), num.Num(sum/float64(m))
 			}
 			d.Distances[k*len(adjustments)+a] = dist
 			if curve {
@@ -268,8 +268,8 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 					if ok {
 						ft, fc = acc[2*r], acc[2*r+1]
 					}
-					p.Treated = append(p.Treated, Num(ft))
-					p.Control = append(p.Control, Num(fc))
+					p.Treated = append(p.Treated, num.Num(ft))
+					p.Control = append(p.Control, num.Num(fc))
 				}
 				d.Curves[j].Adjustments = append(d.Curves[j].Adjustments, p)
 			}
@@ -281,7 +281,7 @@ func Diagnose(ps []float64, z []bool, inSupport []bool, vars []balance.Variable,
 // rankKeys returns the variable's distinct values, ascending, and for each
 // unit 2·r + a with r the rank of its value among them and a = 1 for the
 // comparison arm: one index that bins both arms without a branch.
-func rankKeys(v balance.Variable, z []bool) (distinct []float64, key []int32) {
+func rankKeys(v Variable, z []bool) (distinct []float64, key []int32) {
 	key = make([]int32, len(z))
 	arm := func(i int) int32 {
 		if z[i] {
@@ -345,10 +345,10 @@ func scoreDensity(name string, ps []float64, z []bool, w []float64) ScoreDensity
 		bins[a][b] += wi
 		tot[a] += wi
 	}
-	dens := func(a int) []Num {
-		out := make([]Num, ScoreBins)
+	dens := func(a int) []num.Num {
+		out := make([]num.Num, ScoreBins)
 		for b := range out {
-			out[b] = Num(bins[a][b] / tot[a] * ScoreBins) // NaN when tot is 0
+			out[b] = num.Num(bins[a][b] / tot[a] * ScoreBins) // NaN when tot is 0
 		}
 		return out
 	}

@@ -1,4 +1,4 @@
-package study
+package balance
 
 import (
 	"encoding/csv"
@@ -11,7 +11,7 @@ import (
 	"strconv"
 	"testing"
 
-	"counterpart/match/balance"
+	"counterpart/match/num"
 )
 
 // diagRef is what testdata/report/diagnostics_ref.py wrote (numpy 1.24 and
@@ -29,7 +29,7 @@ type diagInput struct {
 	ps        []float64
 	z         []bool
 	inSupport []bool
-	vars      []balance.Variable
+	vars      []Variable
 	adj       []NamedWeights
 }
 
@@ -70,13 +70,13 @@ func readDiagInput(t *testing.T) diagInput {
 		wovl = append(wovl, num(r, "w_overlap"))
 	}
 	for k, c := range covs {
-		in.vars = append(in.vars, balance.Variable{Name: c, Values: vals[k], Binary: c == "smoker"})
+		in.vars = append(in.vars, Variable{Name: c, Values: vals[k], Binary: c == "smoker"})
 	}
 	in.adj = []NamedWeights{{Name: "unadjusted"}, {Name: "att", W: watt}, {Name: "overlap", W: wovl}}
 	return in
 }
 
-func near(t *testing.T, what string, got Num, want float64) {
+func nearNum(t *testing.T, what string, got num.Num, want float64) {
 	t.Helper()
 	if math.Abs(float64(got)-want) > 1e-12*math.Max(1, math.Abs(want)) {
 		t.Errorf("%s = %.15g, want %.15g", what, float64(got), want)
@@ -109,8 +109,8 @@ func TestDiagnoseReference(t *testing.T) {
 			}
 			r := ref.Scores[s.Adjustment]
 			for b := range ScoreBins {
-				near(t, fmt.Sprintf("%s treated bin %d", s.Adjustment, b), s.Treated[b], r.Treated[b])
-				near(t, fmt.Sprintf("%s control bin %d", s.Adjustment, b), s.Control[b], r.Control[b])
+				nearNum(t, fmt.Sprintf("%s treated bin %d", s.Adjustment, b), s.Treated[b], r.Treated[b])
+				nearNum(t, fmt.Sprintf("%s control bin %d", s.Adjustment, b), s.Control[b], r.Control[b])
 			}
 		}
 	})
@@ -121,10 +121,10 @@ func TestDiagnoseReference(t *testing.T) {
 		}
 		for _, r := range d.Distances {
 			w := ref.Distances[r.Covariate][r.Adjustment]
-			near(t, r.Covariate+" "+r.Adjustment+" max", r.Max, w.Max)
-			near(t, r.Covariate+" "+r.Adjustment+" mean", r.Mean, w.Mean)
+			nearNum(t, r.Covariate+" "+r.Adjustment+" max", r.Max, w.Max)
+			nearNum(t, r.Covariate+" "+r.Adjustment+" mean", r.Mean, w.Mean)
 			if r.Adjustment == "unadjusted" {
-				near(t, r.Covariate+" KS vs scipy", r.Max, ref.KSScipy[r.Covariate])
+				nearNum(t, r.Covariate+" KS vs scipy", r.Max, ref.KSScipy[r.Covariate])
 			}
 		}
 	})
@@ -142,13 +142,13 @@ func TestDiagnoseReference(t *testing.T) {
 				t.Fatalf("%s grid has %d points, want %d", c.Covariate, len(c.Grid), len(g))
 			}
 			for j := range g {
-				near(t, fmt.Sprintf("%s grid %d", c.Covariate, j), c.Grid[j], g[j])
+				nearNum(t, fmt.Sprintf("%s grid %d", c.Covariate, j), c.Grid[j], g[j])
 			}
 			for _, p := range c.Adjustments {
 				r := ref.Curves[c.Covariate][p.Adjustment]
 				for j := range g {
-					near(t, fmt.Sprintf("%s %s treated F(g%d)", c.Covariate, p.Adjustment, j), p.Treated[j], r.Treated[j])
-					near(t, fmt.Sprintf("%s %s control F(g%d)", c.Covariate, p.Adjustment, j), p.Control[j], r.Control[j])
+					nearNum(t, fmt.Sprintf("%s %s treated F(g%d)", c.Covariate, p.Adjustment, j), p.Treated[j], r.Treated[j])
+					nearNum(t, fmt.Sprintf("%s %s control F(g%d)", c.Covariate, p.Adjustment, j), p.Control[j], r.Control[j])
 				}
 			}
 		}
@@ -156,15 +156,15 @@ func TestDiagnoseReference(t *testing.T) {
 }
 
 // TestDiagnoseKSAgreesWithBalance: the max eCDF difference is the KS
-// distance balance.Prepared reports (same definition, separate code).
+// distance Prepared reports (same definition, separate code).
 func TestDiagnoseKSAgreesWithBalance(t *testing.T) {
 	in := readDiagInput(t)
 	d := Diagnose(in.ps, in.z, nil, in.vars, in.adj, 0)
-	prep := balance.Prepare(in.vars, in.z, true)
+	prep := Prepare(in.vars, in.z, true)
 	for a, adj := range in.adj {
 		st := prep.Compute(adj.W)
 		for k := range in.vars {
-			near(t, st[k].Label()+" "+adj.Name, d.Distances[k*len(in.adj)+a].Max, st[k].KS)
+			nearNum(t, st[k].Label()+" "+adj.Name, d.Distances[k*len(in.adj)+a].Max, st[k].KS)
 		}
 	}
 	if len(d.Curves) != DefaultWorst {
@@ -223,9 +223,9 @@ func BenchmarkDiagnose1M(b *testing.B) {
 	ps := make([]float64, n)
 	z := make([]bool, n)
 	in := make([]bool, n)
-	var vars []balance.Variable
+	var vars []Variable
 	for k := range 7 {
-		v := balance.Variable{Name: fmt.Sprint("x", k), Values: make([]float64, n), Binary: k >= 3}
+		v := Variable{Name: fmt.Sprint("x", k), Values: make([]float64, n), Binary: k >= 3}
 		vars = append(vars, v)
 	}
 	adj := []NamedWeights{{Name: "unadjusted"}}

@@ -1,4 +1,4 @@
-package study
+package score
 
 import (
 	"math"
@@ -6,10 +6,10 @@ import (
 	"testing"
 )
 
-// TestAUCBruteForce: the c-statistic is the Mann–Whitney probability
+// TestCStatisticBruteForce: the c-statistic is the Mann–Whitney probability
 // P(score_T > score_C) + ½ P(tie) (Hanley & McNeil 1982); check the
 // sort-and-merge form against counting every pair, ties included.
-func TestAUCBruteForce(t *testing.T) {
+func TestCStatisticBruteForce(t *testing.T) {
 	r := rand.New(rand.NewPCG(1, 2))
 	for rep := 0; rep < 200; rep++ {
 		n := 2 + r.IntN(60)
@@ -34,8 +34,8 @@ func TestAUCBruteForce(t *testing.T) {
 				}
 			}
 		}
-		if got, want := auc(ps, z), wins/pairs; math.Abs(got-want) > 1e-12 {
-			t.Fatalf("rep %d: auc %v, brute force %v", rep, got, want)
+		if got, want := CStatistic(ps, z), wins/pairs; math.Abs(got-want) > 1e-12 {
+			t.Fatalf("rep %d: CStatistic %v, brute force %v", rep, got, want)
 		}
 	}
 }

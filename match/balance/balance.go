@@ -259,9 +259,6 @@ func Prepare(vars []Variable, z []bool, withKS bool) *Prepared {
 	return p
 }
 
-// Denominators returns the unadjusted pooled SD of each variable.
-func (p *Prepared) Denominators() []float64 { return p.denom }
-
 // Compute is the package-level Compute with the shared denominators and
 // ranks, in parallel across variables; the results agree with Compute to
 // rounding.

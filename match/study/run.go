@@ -5,7 +5,6 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"math"
 	"time"
 
 	"github.com/google/uuid"
@@ -47,36 +46,25 @@ type Options struct {
 // Run executes one study end to end against an already open warehouse.
 // The returned Summary is filled as far as the run got, also on error.
 func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Summary, error) {
-	now := opt.Now
-	if now == nil {
-		now = time.Now
-	}
-	stage := func(name string) {
-		if opt.Stage != nil {
-			opt.Stage(name)
-		}
-	}
-	started := now()
 	id, err := uuid.NewV7()
 	if err != nil {
 		return nil, fmt.Errorf("run id: %w", err)
 	}
+	now := opt.Now
+	if now == nil {
+		now = time.Now
+	}
+	started := now()
 	sum := &Summary{
 		Study: s.Study, RunID: id.String(), Engine: wh.Engine(), DryRun: opt.DryRun,
 		Primary: s.Primary(), Estimand: s.Estimate.Estimand, Timings: map[string]float64{},
 		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256,
 		StartedAt: started.UTC(),
 	}
-	lap := started
-	timed := func(name string) {
-		t := now()
-		sum.Timings[name] = t.Sub(lap).Seconds()
-		lap = t
-	}
-
-	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns}
+	r := &run{s: s, wh: wh, opt: opt, sum: sum, clock: &clock{now: now, onStage: opt.Stage, lap: started, sum: sum}}
+	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns}
 	if !opt.DryRun {
-		unlock, err := wh.Lock(ctx, out)
+		unlock, err := wh.Lock(ctx, r.out)
 		if err != nil {
 			return sum, fmt.Errorf("lock: %w", err)
 		}
@@ -86,53 +74,12 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		iw, _ := wh.(warehouse.InWarehouse)
 		return runInWarehouse(ctx, s, wh, iw, opt, sum)
 	}
-
-	stage("read")
-	c, err := wh.ReadCohort(ctx, warehouse.CohortQuery{
-		SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
-		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
-	})
-	if err != nil {
-		return sum, fmt.Errorf("read cohort: %w", err)
-	}
-	timed("read")
-	out.Unit, out.IDKind, out.Treatment = c.Unit, c.IDKind, c.Treatment
-	for _, cov := range c.Covariates {
-		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: cov.Name, Kind: cov.Kind})
-	}
-	for _, o := range c.Outcomes {
-		out.Outcomes = append(out.Outcomes, o.Name)
-	}
-	out.Schemes = s.Schemes()
-
-	if opt.SkipUnchanged {
-		last, ok, err := wh.LatestSucceeded(ctx, out)
-		if err != nil {
-			return sum, fmt.Errorf("skip unchanged: %w", err)
-		}
-		if ok && last.SpecSHA256 == s.SHA256 {
-			// Kept in the summary, so the analysis does not hash again.
-			sum.Fingerprint = fingerprint(c)
-			if sum.Fingerprint == last.CohortFingerprint {
-				sum.Status = warehouse.StatusSkipped
-				sum.Message = "cohort and study unchanged since run " + last.RunID
-				return sum, fmt.Errorf("%w (run %s)", ErrUnchanged, last.RunID)
-			}
+	for _, step := range []func(context.Context) error{r.read, r.skipUnchanged, r.readPrior} {
+		if err := step(ctx); err != nil {
+			return sum, err
 		}
 	}
-	var prior *priorRun
-	if s.Matching.KeepPrior && s.Matching.Algorithm != "off" && !opt.DryRun {
-		if last, ok, err := wh.LatestSucceeded(ctx, out); err != nil {
-			return sum, fmt.Errorf("keep prior: %w", err)
-		} else if ok {
-			ps, err := wh.PriorSets(ctx, out, last.RunID)
-			if err != nil {
-				return sum, fmt.Errorf("keep prior: %w", err)
-			}
-			prior = &priorRun{runID: last.RunID, sets: ps}
-		}
-	}
-	res, err := analyse(s, c, sum, stage, timed, opt.Diagnostics, prior)
+	res, err := analyse(s, r.cohort, sum, r.clock, opt.Diagnostics, r.prior)
 	if err != nil {
 		return sum, err
 	}
@@ -140,56 +87,114 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		sum.Status = "dry-run"
 		return sum, nil
 	}
+	return sum, r.publish(ctx, res)
+}
 
-	stage("publish")
-	rec := warehouse.RunRecord{
-		RunID: sum.RunID, Study: s.Study, Status: warehouse.StatusRunning, StartedAt: started.UTC(),
-		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256, SpecJSON: s.Redacted(), CohortSQL: s.Cohort.SQL,
-		CohortFingerprint: sum.Fingerprint, Engine: wh.Engine(), DBUser: wh.User(ctx),
+// run is the in-memory pipeline's state between its stages.
+type run struct {
+	s   *Spec
+	wh  warehouse.Warehouse
+	opt Options
+	sum *Summary
+	*clock
+	out    warehouse.Output
+	cohort *warehouse.Cohort
+	prior  *priorRun
+}
+
+// read reads the cohort and completes the output contract from it.
+func (r *run) read(ctx context.Context) error {
+	s := r.s
+	r.stage("read")
+	c, err := r.wh.ReadCohort(ctx, warehouse.CohortQuery{
+		SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
+		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
+	})
+	if err != nil {
+		return fmt.Errorf("read cohort: %w", err)
 	}
-	if err := wh.StartRun(ctx, out, rec); err != nil {
-		return sum, fmt.Errorf("start run: %w", err)
+	r.timed("read")
+	r.cohort = c
+	r.out.Unit, r.out.IDKind, r.out.Treatment = c.Unit, c.IDKind, c.Treatment
+	for _, cov := range c.Covariates {
+		r.out.Covariates = append(r.out.Covariates, warehouse.CovariateMeta{Name: cov.Name, Kind: cov.Kind})
 	}
-	rec.Status = warehouse.StatusSucceeded
-	if !sum.Gate.Pass {
-		if s.Balance.OnFail == "reject" {
-			rec.Status = warehouse.StatusRejected
-			rec.Message = sum.Gate.Message
-		} else {
-			rec.Message = "balance warning: " + sum.Gate.Message
-		}
+	for _, o := range c.Outcomes {
+		r.out.Outcomes = append(r.out.Outcomes, o.Name)
 	}
-	sum.Status = rec.Status
-	sum.Message = rec.Message
-	rec.CountsJSON = mustJSON(sum.Counts)
-	rec.ModelJSON = mustJSON(sum.Model)
-	rec.BalanceJSON = mustJSON(struct {
-		Gate        Gate                `json:"gate"`
-		Adjustments []AdjustmentBalance `json:"adjustments"`
-	}{sum.Gate, sum.Balance})
-	rec.EffectsJSON = mustJSON(sum.Effects)
-	rec.FinishedAt = now().UTC()
-	sum.Status, sum.FinishedAt = rec.Status, rec.FinishedAt
-	rec.SummaryJSON = mustJSON(sum)
+	r.out.Schemes = s.Schemes()
+	return nil
+}
+
+// skipUnchanged ends the run (ErrUnchanged) when the cohort and the study
+// equal those of the last succeeded run.
+func (r *run) skipUnchanged(ctx context.Context) error {
+	if !r.opt.SkipUnchanged {
+		return nil
+	}
+	last, ok, err := r.wh.LatestSucceeded(ctx, r.out)
+	if err != nil {
+		return fmt.Errorf("skip unchanged: %w", err)
+	}
+	if !ok || last.SpecSHA256 != r.s.SHA256 {
+		return nil
+	}
+	// Kept in the summary, so the analysis does not hash again.
+	r.sum.Fingerprint = fingerprint(r.cohort)
+	if r.sum.Fingerprint != last.CohortFingerprint {
+		return nil
+	}
+	r.sum.Status = warehouse.StatusSkipped
+	r.sum.Message = "cohort and study unchanged since run " + last.RunID
+	return fmt.Errorf("%w (run %s)", ErrUnchanged, last.RunID)
+}
+
+// readPrior loads the last succeeded run's matched sets when the study
+// keeps prior matches.
+func (r *run) readPrior(ctx context.Context) error {
+	s := r.s
+	if !s.Matching.KeepPrior || s.Matching.Algorithm == "off" || r.opt.DryRun {
+		return nil
+	}
+	last, ok, err := r.wh.LatestSucceeded(ctx, r.out)
+	if err != nil || !ok {
+		return wrapStep("keep prior", err)
+	}
+	ps, err := r.wh.PriorSets(ctx, r.out, last.RunID)
+	if err != nil {
+		return fmt.Errorf("keep prior: %w", err)
+	}
+	r.prior = &priorRun{runID: last.RunID, sets: ps}
+	return nil
+}
+
+// publish writes the run: runs row first (status running), then every
+// table in one transaction that settles the status.
+func (r *run) publish(ctx context.Context, res *results) error {
+	s, sum := r.s, r.sum
+	r.stage("publish")
+	rec := newRunRecord(ctx, s, r.wh, r.opt, sum)
+	if err := r.wh.StartRun(ctx, r.out, rec); err != nil {
+		return fmt.Errorf("start run: %w", err)
+	}
+	settleRecord(&rec, s, sum, r.now())
 	pub := &warehouse.Publication{
-		Run: rec, Cohort: c, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
+		Run: rec, Cohort: r.cohort, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
 		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects),
 	}
-	if err := wh.Publish(ctx, out, pub); err != nil {
-		msg := err.Error()
-		// Use a fresh context: the run's may be the one that was cancelled.
-		fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
-		defer cancel()
-		_ = wh.FailRun(fctx, out, sum.RunID, msg)
-		sum.Status = warehouse.StatusFailed
-		return sum, fmt.Errorf("publish: %w", err)
+	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
+		return failPublish(r.wh, r.out, sum, err)
 	}
-	timed("publish")
-	sum.FinishedAt = rec.FinishedAt
-	if rec.Status == warehouse.StatusRejected {
-		return sum, fmt.Errorf("%w: %s", ErrRejected, sum.Gate.Message)
+	r.timed("publish")
+	return finishRun(sum)
+}
+
+// wrapStep names a step in a non-nil error.
+func wrapStep(step string, err error) error {
+	if err == nil {
+		return nil
 	}
-	return sum, nil
+	return fmt.Errorf("%s: %w", step, err)
 }
 
 // results are the per-unit values publish writes.
@@ -206,24 +211,29 @@ func badInput(step string, err error) error {
 	return fmt.Errorf("%s: %w: %w", step, warehouse.ErrBadInput, err)
 }
 
+// analysis is the statistical stages' shared state: the cohort, its
+// design and score, and the summary they fill.
+type analysis struct {
+	s      *Spec
+	c      *warehouse.Cohort
+	sum    *Summary
+	clk    *clock
+	prior  *priorRun
+	d      *design
+	fit    *score.Fit
+	res    *results
+	keptT  int
+	prep   *balance.Prepared
+	scoreP *balance.Prepared
+	diag   []NamedWeights
+	adjs   []adjustment
+	mr     *matchedRows
+}
+
 // analyse runs every statistical stage on the cohort and fills the summary.
-func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), timed func(string), diagnostics bool, prior *priorRun) (*results, error) {
-	n := c.N()
-	z := c.Treated
-	nt := 0
-	for _, t := range z {
-		if t {
-			nt++
-		}
-	}
-	sum.Counts = Counts{Units: n, Treated: nt, Control: n - nt}
-	if nt == 0 {
-		return nil, fmt.Errorf("read cohort: %w: column %s is false for every unit; the cohort needs treated units", warehouse.ErrBadInput, c.Treatment)
-	}
-	if nt == n {
-		return nil, fmt.Errorf("read cohort: %w: column %s is true for every unit; the cohort needs comparison (untreated) units", warehouse.ErrBadInput, c.Treatment)
-	}
-	if err := checkTextNumbers(s, c); err != nil {
+func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, clk *clock, diagnostics bool, prior *priorRun) (*results, error) {
+	a := &analysis{s: s, c: c, sum: sum, clk: clk, prior: prior}
+	if err := a.checkArms(); err != nil {
 		return nil, err
 	}
 	// The fingerprint only needs the cohort: hash it while the model fits
@@ -233,235 +243,242 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, stage func(string), tim
 		go func() { fp <- fingerprint(c) }()
 		defer func() { sum.Fingerprint = <-fp }()
 	}
-	d, err := buildDesign(c)
-	if err != nil {
-		return nil, fmt.Errorf("design: %w", err)
+	steps := []func() error{a.fitScore, a.support, a.match, a.weight}
+	if diagnostics {
+		steps = append(steps, a.diagnose)
 	}
+	steps = append(steps, a.estimate)
+	for _, step := range steps {
+		if err := step(); err != nil {
+			return nil, err
+		}
+	}
+	return a.res, nil
+}
 
-	stage("fit")
-	model := score.Logistic
-	if s.Score.Model == "ridge" {
-		model = score.Ridge
+// checkArms counts the arms and refuses a cohort without both.
+func (a *analysis) checkArms() error {
+	n, z := a.c.N(), a.c.Treated
+	nt := 0
+	for _, t := range z {
+		if t {
+			nt++
+		}
+	}
+	a.sum.Counts = Counts{Units: n, Treated: nt, Control: n - nt}
+	if nt == 0 {
+		return fmt.Errorf("read cohort: %w: column %s is false for every unit; the cohort needs treated units", warehouse.ErrBadInput, a.c.Treatment)
+	}
+	if nt == n {
+		return fmt.Errorf("read cohort: %w: column %s is true for every unit; the cohort needs comparison (untreated) units", warehouse.ErrBadInput, a.c.Treatment)
+	}
+	return checkTextNumbers(a.s, a.c)
+}
+
+// fitScore builds the design and fits the propensity score.
+func (a *analysis) fitScore() error {
+	s, z := a.s, a.c.Treated
+	d, err := buildDesign(a.c)
+	if err != nil {
+		return fmt.Errorf("design: %w", err)
+	}
+	a.d = d
+	a.clk.stage("fit")
+	model, err := score.ParseModel(s.Score.Model)
+	if err != nil {
+		return badInput("fit score", err)
 	}
 	fit, err := score.FitModel(d.x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
 	if err != nil {
-		return nil, badInput("fit score", err)
+		return badInput("fit score", err)
 	}
-	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
-		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik), CStatistic: Num(score.CStatistic(fit.PS, z))}
-	for j, name := range fit.Names {
-		sum.Model.Terms = append(sum.Model.Terms, Term{Name: name, Coef: Num(fit.Coef[j]), SE: Num(fit.SE[j])})
-	}
-	timed("fit")
+	a.fit = fit
+	a.sum.Model = modelSummary(s.Score.Model, fit)
+	a.sum.Model.CStatistic = Num(score.CStatistic(fit.PS, z))
+	a.clk.timed("fit")
+	return nil
+}
 
-	res := &results{ps: fit.PS, logit: fit.Logit, inSupport: make([]bool, n)}
+// support applies the common-support rule and records the unadjusted
+// balance.
+func (a *analysis) support() error {
+	s, z, fit := a.s, a.c.Treated, a.fit
+	a.res = &results{ps: fit.PS, logit: fit.Logit}
 	low, high := score.SupportBounds(s.Support, fit.PS, z)
-	var keptT, keptC int
-	for i, p := range fit.PS {
-		in := p >= low && p <= high
-		res.inSupport[i] = in
-		if in {
-			if z[i] {
-				keptT++
-			} else {
-				keptC++
-			}
-		}
+	a.res.inSupport = score.SupportMask(s.Support, fit.PS, z)
+	keptT, err := recordSupport(a.sum, s.Support, low, high, z, a.res.inSupport)
+	if err != nil {
+		return err
 	}
-	sum.Support = Support{Rule: s.Support, Low: Num(low), High: Num(high), Dropped: n - keptT - keptC}
-	sum.Counts.SupportTreated, sum.Counts.SupportControl = keptT, keptC
-	if keptT == 0 || keptC == 0 {
-		return nil, fmt.Errorf("support: %w: the %s rule leaves %d treated and %d comparison units; relax support", warehouse.ErrBadInput, s.Support, keptT, keptC)
-	}
-
+	a.keptT = keptT
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
-	prep := balance.Prepare(d.vars, z, false)
+	a.prep = balance.Prepare(a.d.vars, z, false)
 	// The score itself is reported beside the covariates (its SMD and
 	// variance ratio show residual imbalance along the propensity) but
 	// not gated: the gate judges the covariates the analyst chose.
-	scorePrep := balance.Prepare([]balance.Variable{{Name: "logit_ps", Values: fit.Logit}}, z, false)
-	var diagAdj []NamedWeights
-	adjust := func(name string, w []float64) {
-		diagAdj = append(diagAdj, NamedWeights{Name: name, W: w})
-		st := prep.Compute(w)
-		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
-		ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
-		ab.Score = &toStats(scorePrep.Compute(w))[0]
-		if w != nil {
-			ab.ESSTreated = Num(weights.ESS(w, z, true))
-			ab.ESSControl = Num(weights.ESS(w, z, false))
-		} else {
-			ab.ESSTreated, ab.ESSControl = Num(nt), Num(n-nt)
-		}
-		sum.Balance = append(sum.Balance, ab)
-	}
-	adjust("unadjusted", nil)
+	a.scoreP = balance.Prepare([]balance.Variable{{Name: "logit_ps", Values: fit.Logit}}, z, false)
+	a.adjust("unadjusted", nil)
+	a.adjs = []adjustment{{name: "unadjusted", estimand: "none"}}
+	return nil
+}
 
-	adjs := []adjustment{{name: "unadjusted", estimand: "none"}}
-	var mr *matchedRows
-	if s.Matching.Algorithm != "off" {
-		stage("match")
-		sd := pooledSD(fit.Logit, z)
-		width := s.Matching.Caliper * sd
-		st, nstrata := strata(c, s.Matching.ExactOn)
-		ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
-			CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
-		var groups []group
-		var setTreated []int
-		var setControls [][]int
-		estimand := "att"
-		switch s.Matching.Algorithm {
-		case "greedy", "optimal":
-			var solver Solver
-			sets, churn, err := matchUnits(matchInput{spec: s, cohort: c, logit: fit.Logit, eligible: res.inSupport, strata: st, width: width, prior: prior, solver: &solver})
-			if err != nil {
-				return nil, badInput("match", err)
-			}
-			ms.Churn = churn
-			if s.Matching.Algorithm == "optimal" {
-				ms.Solver = &solver
-			}
-			groups = setsToGroups(sets)
-			for _, set := range sets {
-				setTreated = append(setTreated, set.Treated)
-				setControls = append(setControls, set.Controls)
-			}
-		case "full":
-			gs, cert, err := assign.Full(fit.Logit, z, st, res.inSupport, assign.FullOptions{Caliper: width, MaxControls: s.Matching.MaxControls, MaxTreated: s.Matching.MaxTreated})
-			if err != nil {
-				return nil, badInput("match", err)
-			}
-			ms.Solver = &Solver{Objective: Num(cert.Objective), Certified: cert.Certified, Rounds: cert.Rounds, Edges: cert.Edges, Seconds: Num(cert.Seconds)}
-			groups = fullToGroups(gs)
-		case "strata":
-			sub, err := assign.Subclasses(fit.PS, z, res.inSupport, s.Matching.Subclasses)
-			if err != nil && !errors.Is(err, assign.ErrSubclass) {
-				return nil, badInput("match", err)
-			}
-			est := assign.ATT
-			if s.Estimate.Estimand != "att" {
-				est, estimand = assign.ATE, "ate"
-			}
-			sw, err := assign.SubclassWeights(sub, z, est)
-			if err != nil {
-				return nil, badInput("match", err)
-			}
-			groups = subclassGroups(sub, z, sw)
-		}
-		ms.Sets = len(groups)
-		used := map[int]bool{}
-		total := 0.0
-		mw := make([]float64, n)
-		matchedT := 0
-		for _, g := range groups {
-			for j, u := range append(append([]int(nil), g.treated...), g.controls...) {
-				isT := j < len(g.treated)
-				wt := g.wC
-				if isT {
-					wt = g.wT
-				}
-				if g.w != nil {
-					wt = g.w[j]
-				}
-				dist := math.NaN()
-				if g.dist != nil {
-					dist = g.dist[j]
-					total += dist
-				}
-				res.matches.SetID = append(res.matches.SetID, int64(g.id))
-				res.matches.Unit = append(res.matches.Unit, u)
-				res.matches.Treated = append(res.matches.Treated, isT)
-				res.matches.SetWeight = append(res.matches.SetWeight, wt)
-				res.matches.Distance = append(res.matches.Distance, dist)
-				mw[u] += wt
-				if isT {
-					matchedT++
-				} else {
-					used[u] = true
-				}
-			}
-		}
-		ms.TotalDistance = Num(total)
-		ms.MatchedTreated = matchedT
-		ms.UnmatchedTreated = keptT - matchedT
-		ms.MatchedControls = len(used)
-		sum.Matching = &ms
-		sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
-		timed("match")
-		if matchedT == 0 {
-			return nil, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
-		}
-		adjust("matched", mw)
-		mr = &matchedRows{unit: res.matches.Unit, z: res.matches.Treated, w: res.matches.SetWeight,
-			reuse: s.Matching.Reuse && s.Matching.Algorithm == "greedy", setTreated: setTreated, setControls: setControls}
-		mr.cluster = make([]int, len(res.matches.SetID))
-		for r, id := range res.matches.SetID {
-			mr.cluster[r] = int(id)
-		}
-		if s.Matching.Controls == 1 && !s.Matching.Reuse && setTreated != nil {
-			for k := range setTreated {
-				if len(setControls[k]) == 1 {
-					mr.pairs = append(mr.pairs, [2]int{setTreated[k], setControls[k][0]})
-				}
-			}
-		}
-		adjs = append(adjs, adjustment{name: "matched", estimand: estimand, matched: true})
+// adjust records one adjustment's balance (nil w: every unit weight 1).
+func (a *analysis) adjust(name string, w []float64) {
+	z := a.c.Treated
+	a.diag = append(a.diag, NamedWeights{Name: name, W: w})
+	st := a.prep.Compute(w)
+	v := balance.Judge(st, limits(a.s))
+	ab := AdjustmentBalance{Adjustment: name, Pass: v.Pass, WorstSMD: Num(v.WorstSMD), WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st)}
+	ab.Score = &toStats(a.scoreP.Compute(w))[0]
+	if w != nil {
+		ab.ESSTreated = Num(weights.ESS(w, z, true))
+		ab.ESSControl = Num(weights.ESS(w, z, false))
+	} else {
+		ab.ESSTreated, ab.ESSControl = Num(a.sum.Counts.Treated), Num(a.sum.Counts.Control)
 	}
+	a.sum.Balance = append(a.sum.Balance, ab)
+}
 
-	stage("weight")
+// match builds the matched sets of the study's algorithm.
+func (a *analysis) match() error {
+	s, c, z, fit := a.s, a.c, a.c.Treated, a.fit
+	if s.Matching.Algorithm == "off" {
+		return nil
+	}
+	a.clk.stage("match")
+	sd := pooledSD(fit.Logit, z)
+	width := s.Matching.Caliper * sd
+	st, nstrata := strata(c, s.Matching.ExactOn)
+	ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
+		CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
+	var groups []group
+	var setTreated []int
+	var setControls [][]int
+	estimand := "att"
+	switch s.Matching.Algorithm {
+	case "greedy", "optimal":
+		var solver Solver
+		sets, churn, err := matchUnits(matchInput{spec: s, cohort: c, logit: fit.Logit, eligible: a.res.inSupport, strata: st, width: width, prior: a.prior, solver: &solver})
+		if err != nil {
+			return badInput("match", err)
+		}
+		ms.Churn = churn
+		if s.Matching.Algorithm == "optimal" {
+			ms.Solver = &solver
+		}
+		groups = setsToGroups(sets)
+		for _, set := range sets {
+			setTreated = append(setTreated, set.Treated)
+			setControls = append(setControls, set.Controls)
+		}
+	case "full":
+		gs, cert, err := assign.Full(fit.Logit, z, st, a.res.inSupport, assign.FullOptions{Caliper: width, MaxControls: s.Matching.MaxControls, MaxTreated: s.Matching.MaxTreated})
+		if err != nil {
+			return badInput("match", err)
+		}
+		ms.Solver = &Solver{Objective: Num(cert.Objective), Certified: cert.Certified, Rounds: cert.Rounds, Edges: cert.Edges, Seconds: Num(cert.Seconds)}
+		groups = fullToGroups(gs)
+	case "strata":
+		sub, err := assign.Subclasses(fit.PS, z, a.res.inSupport, s.Matching.Subclasses)
+		if err != nil && !errors.Is(err, assign.ErrSubclass) {
+			return badInput("match", err)
+		}
+		est := assign.ATT
+		if s.Estimate.Estimand != "att" {
+			est, estimand = assign.ATE, "ate"
+		}
+		sw, err := assign.SubclassWeights(sub, z, est)
+		if err != nil {
+			return badInput("match", err)
+		}
+		groups = subclassGroups(sub, z, sw)
+	}
+	f, err := flattenGroups(groups, c.N(), false)
+	if err != nil {
+		return badInput("match", err)
+	}
+	a.res.matches = f.rows
+	err = recordMatching(a.sum, &ms, f, len(groups), a.keptT)
+	a.clk.timed("match")
+	if err != nil {
+		return err
+	}
+	mw := f.unitWeight
+	if setTreated != nil {
+		// One treated unit per set: the set weights are weights.FromSets.
+		mw = weights.FromSets(c.N(), setTreated, setControls)
+	}
+	a.adjust("matched", mw)
+	mr := &matchedRows{unit: f.rows.Unit, z: f.rows.Treated, w: f.rows.SetWeight,
+		reuse: s.Matching.Reuse && s.Matching.Algorithm == "greedy", setTreated: setTreated, setControls: setControls}
+	mr.cluster = make([]int, len(f.rows.SetID))
+	for r, id := range f.rows.SetID {
+		mr.cluster[r] = int(id)
+	}
+	if s.Matching.Controls == 1 && !s.Matching.Reuse && setTreated != nil {
+		for k := range setTreated {
+			if len(setControls[k]) == 1 {
+				mr.pairs = append(mr.pairs, [2]int{setTreated[k], setControls[k][0]})
+			}
+		}
+	}
+	a.mr = mr
+	a.adjs = append(a.adjs, adjustment{name: "matched", estimand: estimand, matched: true})
+	return nil
+}
+
+// weight computes every weighting scheme's weights and their balance.
+func (a *analysis) weight() error {
+	s, z := a.s, a.c.Treated
+	a.clk.stage("weight")
 	for _, scheme := range s.Schemes() {
 		fn, err := weights.ByName(scheme)
 		if err != nil {
-			return nil, badInput("weights", err)
+			return badInput("weights", err)
 		}
-		w, err := applyRules(s.Rules, weights.Restrict(fn(fit.PS, z), res.inSupport), z)
+		w, err := applyRules(s.Rules, weights.Restrict(fn(a.fit.PS, z), a.res.inSupport), z)
 		if err != nil {
-			return nil, badInput("weights "+scheme, err)
+			return badInput("weights "+scheme, err)
 		}
-		res.weights = append(res.weights, w)
-		adjust(scheme, w)
-		adjs = append(adjs, adjustment{name: scheme, estimand: estimandOf[scheme], w: w})
+		a.res.weights = append(a.res.weights, w)
+		a.adjust(scheme, w)
+		a.adjs = append(a.adjs, adjustment{name: scheme, estimand: estimandOf[scheme], w: w})
 	}
-	timed("weight")
-	if diagnostics {
-		dg := balance.Diagnose(fit.PS, z, res.inSupport, d.vars, diagAdj, balance.DefaultWorst)
-		sum.Diagnostics = &dg
-		timed("diagnostics")
-	}
+	a.clk.timed("weight")
+	return nil
+}
 
-	// The gate judges the adjustment behind the headline estimate.
-	sum.Gate = Gate{Adjustment: s.Primary(), OnFail: s.Balance.OnFail, Pass: true,
-		SMDLimit: Num(s.Balance.SMDLimit), VRLimit: Num(s.Balance.VarianceRatioLimit)}
-	for _, ab := range sum.Balance {
-		if ab.Adjustment == sum.Gate.Adjustment {
-			sum.Gate.Pass = ab.Pass
-			sum.Gate.WorstSMD, sum.Gate.WorstVariable = ab.WorstSMD, ab.WorstVariable
-			if !ab.Pass {
-				sum.Gate.Message = fmt.Sprintf("%s balance fails the limits (|SMD| < %g, variance ratio within 1/%g..%g): %s",
-					ab.Adjustment, s.Balance.SMDLimit, s.Balance.VarianceRatioLimit, s.Balance.VarianceRatioLimit, joinFirst(ab.Failures, 5))
-			}
-		}
-	}
+// diagnose computes the report's distribution pictures.
+func (a *analysis) diagnose() error {
+	dg := balance.Diagnose(a.fit.PS, a.c.Treated, a.res.inSupport, a.d.vars, a.diag, balance.DefaultWorst)
+	a.sum.Diagnostics = &dg
+	a.clk.timed("diagnostics")
+	return nil
+}
 
-	stage("estimate")
-	if err := estimateAll(c, adjs, mr, fit.Logit, sum); err != nil {
-		return nil, err
+// estimate judges the gate and estimates every outcome's effects.
+func (a *analysis) estimate() error {
+	s, sum := a.s, a.sum
+	judgeGate(s, sum)
+	a.clk.stage("estimate")
+	if err := estimateAll(a.c, a.adjs, a.mr, a.fit.Logit, sum); err != nil {
+		return err
 	}
 	if s.Estimate.Augment {
-		if err := augmentAll(c, adjs, mr, d.x, sum); err != nil {
-			return nil, err
+		if err := augmentAll(a.c, a.adjs, a.mr, a.d.x, sum); err != nil {
+			return err
 		}
 	}
 	if s.Estimate.Bootstrap > 0 {
-		stage("bootstrap")
-		if err := bootstrapAll(s, c, d, sum); err != nil {
-			return nil, err
+		a.clk.stage("bootstrap")
+		if err := bootstrapAll(s, a.c, a.d, sum); err != nil {
+			return err
 		}
-		timed("bootstrap")
+		a.clk.timed("bootstrap")
 	}
-	timed("estimate")
-	return res, nil
+	a.clk.timed("estimate")
+	return nil
 }
 
 func joinFirst(xs []string, k int) string {
@@ -486,17 +503,6 @@ func mustJSON(v any) string {
 		panic(fmt.Sprintf("encode summary: %v", err))
 	}
 	return string(b)
-}
-
-// Headline returns the effect rows of the primary adjustment.
-func (s *Summary) Headline() []EffectRow {
-	var out []EffectRow
-	for _, e := range s.Effects {
-		if e.Adjustment == s.Primary {
-			out = append(out, e)
-		}
-	}
-	return out
 }
 
 // effectRecords turns the summary's effect rows into the effects table's.

@@ -18,6 +18,7 @@ import (
 
 	"go.yaml.in/yaml/v3"
 
+	"counterpart/match/balance"
 	"counterpart/warehouse"
 )
 
@@ -585,11 +586,12 @@ func (s *Spec) validate(doc *yaml.Node) error {
 		seenScheme[w] = true
 	}
 	b := &s.Balance
+	def := balance.DefaultLimits()
 	if !present(doc, "balance.smd_limit") {
-		b.SMDLimit = 0.1
+		b.SMDLimit = def.SMD
 	}
 	if !present(doc, "balance.variance_ratio_limit") {
-		b.VarianceRatioLimit = 2
+		b.VarianceRatioLimit = def.VarRatio
 	}
 	if !(b.SMDLimit > 0) {
 		return bad("balance.smd_limit", "must be > 0 (0.1 is usual)")

@@ -669,10 +669,6 @@ func (g *Network) Balanced() bool {
 	return true
 }
 
-// HubFlow returns node v's flows on its two up (v -> hub) and two down
-// (hub -> v) segments; v indexes treated nodes first, then controls (nt+c).
-func (g *Network) HubFlow(v int) (up, down [2]int32) { return g.upF[v], g.downF[v] }
-
 // CheckArcs reports whether every residual arc of the network — candidate
 // arcs in both directions and hub arcs — has reduced cost >= -tol under the
 // current potentials (lexicographically: a Tier below zero always fails),

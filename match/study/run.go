@@ -443,7 +443,7 @@ func (a *analysis) weight() error {
 		}
 		a.res.weights = append(a.res.weights, w)
 		a.adjust(scheme, w)
-		a.adjs = append(a.adjs, adjustment{name: scheme, estimand: estimandOf[scheme], w: w})
+		a.adjs = append(a.adjs, adjustment{name: scheme, estimand: weights.Estimand(scheme), w: w})
 	}
 	a.clk.timed("weight")
 	return nil

@@ -19,6 +19,8 @@ import (
 	"go.yaml.in/yaml/v3"
 
 	"counterpart/match/balance"
+	"counterpart/match/score"
+	"counterpart/match/weights"
 	"counterpart/warehouse"
 )
 
@@ -177,11 +179,11 @@ var (
 	engines    = []string{"duckdb", "postgres"}
 	models     = []string{"logistic", "ridge"}
 	fitIns     = []string{"memory", "warehouse"}
-	supports   = []string{"none", "minmax", "crump"}
+	supports   = score.SupportRules
 	algorithms = []string{"greedy", "optimal", "full", "strata", "off"}
 	orders     = []string{"high-score-first", "low-score-first", "random", "input"}
 	distances  = []string{"logit", "mahalanobis", "rank_mahalanobis"}
-	schemes    = []string{"att", "ate", "atc", "overlap", "matching"}
+	schemes    = weights.Names()
 	onFails    = []string{"reject", "warn"}
 	estimands  = []string{"att", "ate", "atc", "ato", "atm"}
 	studyName  = regexp.MustCompile(`^[a-z][a-z0-9_]*$`)
@@ -690,10 +692,14 @@ func (m *MatchingSpec) validateDistance(c *CohortSpec, used map[string]string, b
 	return nil
 }
 
-var schemeFor = map[string]string{"att": "att", "ate": "ate", "atc": "atc", "ato": "overlap", "atm": "matching"}
-
-// estimandOf maps a weighting scheme to the estimand it targets.
-var estimandOf = map[string]string{"att": "att", "ate": "ate", "atc": "atc", "overlap": "ato", "matching": "atm"}
+// schemeFor maps an estimand to the weighting scheme that targets it.
+var schemeFor = func() map[string]string {
+	m := map[string]string{}
+	for _, d := range weights.Schemes {
+		m[d.Estimand] = d.Name
+	}
+	return m
+}()
 
 // PrimaryScheme is the weighting scheme behind the headline estimate, or
 // "" when the headline comes from matching. Greedy matching of controls to

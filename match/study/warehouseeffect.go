@@ -6,6 +6,7 @@ import (
 	"math"
 
 	"counterpart/match/effect"
+	"counterpart/match/weights"
 	"counterpart/warehouse"
 )
 
@@ -171,7 +172,7 @@ func effectsInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, c *war
 					}
 				}
 			default:
-				estimand = estimandOf[adj]
+				estimand = weights.Estimand(adj)
 				t, cc = rs.effect(o, a, 1), rs.effect(o, a, 0)
 			}
 			ests, err := inWarehouseEffect(t, cc, sets, binary)

@@ -261,33 +261,70 @@ func Check(w []float64) error {
 // Scheme computes one weight per unit from scores and treatment.
 type Scheme func(ps []float64, z []bool) []float64
 
-var schemes = []struct {
-	name string
-	f    Scheme
-}{
-	{"att", ATT},
-	{"ate", ATE},
-	{"atc", ATC},
-	{"overlap", Overlap},
-	{"matching", MatchingWeights},
+// Def is one weighting scheme as every layer needs it: the study file's
+// name, the estimand it targets, the in-memory formula and the same
+// formula as SQL for warehouse-scale mode. Adding a scheme is adding one
+// Def to Schemes (and its test against a published formula).
+type Def struct {
+	// Name is the scheme's name in the study file and the tables.
+	Name string
+	// Estimand is what the weighted difference estimates: att, ate, atc,
+	// ato (overlap population) or atm (matching population).
+	Estimand string
+	// Weights is the formula over scores and treatment.
+	Weights Scheme
+	// SQLTreated and SQLControl are the same formula as SQL expressions
+	// of the score column e, for treated and comparison rows.
+	SQLTreated, SQLControl string
+}
+
+// Schemes lists every weighting scheme, in the order the study file
+// documents them. The formulas are those of the functions above.
+var Schemes = []Def{
+	{Name: "att", Estimand: "att", Weights: ATT, SQLTreated: "1.0", SQLControl: "e / (1 - e)"},
+	{Name: "ate", Estimand: "ate", Weights: ATE, SQLTreated: "1 / e", SQLControl: "1 / (1 - e)"},
+	{Name: "atc", Estimand: "atc", Weights: ATC, SQLTreated: "(1 - e) / e", SQLControl: "1.0"},
+	{Name: "overlap", Estimand: "ato", Weights: Overlap, SQLTreated: "1 - e", SQLControl: "e"},
+	{Name: "matching", Estimand: "atm", Weights: MatchingWeights, SQLTreated: "least(e, 1 - e) / e", SQLControl: "least(e, 1 - e) / (1 - e)"},
 }
 
 // Names returns the scheme names ByName accepts, in a fixed order.
 func Names() []string {
-	out := make([]string, len(schemes))
-	for i, s := range schemes {
-		out[i] = s.name
+	out := make([]string, len(Schemes))
+	for i, s := range Schemes {
+		out[i] = s.Name
 	}
 	return out
 }
 
-// ByName returns the scheme with the given name: "att", "ate", "atc",
-// "overlap" or "matching". Names are case-sensitive, as in the study file.
-func ByName(name string) (func(ps []float64, z []bool) []float64, error) {
-	for _, s := range schemes {
-		if s.name == name {
-			return s.f, nil
+// Lookup returns the scheme with the given name. Names are case-sensitive,
+// as in the study file.
+func Lookup(name string) (Def, error) {
+	for _, s := range Schemes {
+		if s.Name == name {
+			return s, nil
 		}
 	}
-	return nil, fmt.Errorf("weights: unknown scheme %q: want one of %s", name, strings.Join(Names(), ", "))
+	return Def{}, fmt.Errorf("weights: unknown scheme %q: want one of %s", name, strings.Join(Names(), ", "))
+}
+
+// ByName returns the formula of the scheme with the given name.
+func ByName(name string) (func(ps []float64, z []bool) []float64, error) {
+	d, err := Lookup(name)
+	if err != nil {
+		return nil, err
+	}
+	return d.Weights, nil
+}
+
+// Estimand returns the estimand a scheme targets ("" for an unknown name).
+func Estimand(name string) string {
+	d, _ := Lookup(name)
+	return d.Estimand
+}
+
+// SQL returns the scheme's weight as one SQL expression over the score
+// column e and the 0/1 treatment column z.
+func (d Def) SQL() string {
+	return "CASE WHEN z = 1 THEN " + d.SQLTreated + " ELSE " + d.SQLControl + " END"
 }

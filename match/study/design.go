@@ -12,6 +12,7 @@ import (
 	"strings"
 
 	"counterpart/match/balance"
+	"counterpart/match/score"
 	"counterpart/warehouse"
 )
 
@@ -27,40 +28,47 @@ type design struct {
 	vars []balance.Variable
 }
 
-// buildDesign expands covariates. It shares the cohort's numeric columns
-// rather than copying them: at ten million units a copy is real memory.
+// buildDesign expands covariates by score.Design's rule. It shares the
+// cohort's numeric columns rather than copying them: at ten million units
+// a copy is real memory.
 func buildDesign(c *warehouse.Cohort) (*design, error) {
 	d := &design{}
 	n := c.N()
-	for _, cov := range c.Covariates {
+	covs := make([]score.DesignCovariate, len(c.Covariates))
+	for k, cov := range c.Covariates {
+		covs[k] = score.DesignCovariate{Name: cov.Name, Categorical: cov.Kind == warehouse.Categorical, Levels: cov.Levels}
+	}
+	terms, err := score.Design(covs)
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", warehouse.ErrBadInput, err)
+	}
+	// Balance reads every level of a categorical covariate, the reference
+	// included, because readers look for it.
+	ind := make([][][]float64, len(c.Covariates))
+	for k, cov := range c.Covariates {
 		switch cov.Kind {
 		case warehouse.Numeric:
-			d.x = append(d.x, cov.Values)
-			d.names = append(d.names, cov.Name)
 			d.vars = append(d.vars, balance.Variable{Name: cov.Name, Values: cov.Values})
 		case warehouse.Categorical:
-			if len(cov.Levels) < 2 {
-				lvl := ""
-				if len(cov.Levels) == 1 {
-					lvl = cov.Levels[0]
-				}
-				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every unit is %q); remove it from cohort.covariates", warehouse.ErrBadInput, cov.Name, lvl)
-			}
-			ind := make([][]float64, len(cov.Levels))
-			for l := range ind {
-				ind[l] = make([]float64, n)
+			ind[k] = make([][]float64, len(cov.Levels))
+			for l := range ind[k] {
+				ind[k][l] = make([]float64, n)
 			}
 			for i, code := range cov.Codes {
-				ind[code][i] = 1
+				ind[k][code][i] = 1
 			}
 			for l, lvl := range cov.Levels {
-				d.vars = append(d.vars, balance.Variable{Name: cov.Name, Level: lvl, Binary: true, Values: ind[l]})
-				if l > 0 {
-					d.x = append(d.x, ind[l])
-					d.names = append(d.names, cov.Name+"="+lvl)
-				}
+				d.vars = append(d.vars, balance.Variable{Name: cov.Name, Level: lvl, Binary: true, Values: ind[k][l]})
 			}
 		}
+	}
+	for _, t := range terms {
+		col := c.Covariates[t.Covariate].Values
+		if t.Level >= 0 {
+			col = ind[t.Covariate][t.Level]
+		}
+		d.x = append(d.x, col)
+		d.names = append(d.names, t.Name)
 	}
 	return d, nil
 }

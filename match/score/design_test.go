@@ -7,8 +7,8 @@ import (
 )
 
 // TestDesign: dummy coding with the first level as reference (common
-// practice, e.g. Hastie & Tibshirani's treatment contrasts), numeric
-// covariates as they are, constant categoricals refused by name.
+// practice), numeric covariates as they are, constant categoricals
+// refused by name.
 func TestDesign(t *testing.T) {
 	tests := []struct {
 		name    string

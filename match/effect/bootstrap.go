@@ -7,6 +7,8 @@ import (
 	"runtime"
 	"sort"
 	"sync"
+
+	"counterpart/match/weights"
 )
 
 // BootResult summarises a nonparametric bootstrap of one statistic.
@@ -55,28 +57,73 @@ func Bootstrap(n, reps int, seed uint64, workers int, stat func(idx []int) (floa
 	if err != nil {
 		return BootResult{}, fmt.Errorf("effect: bootstrap: statistic on the original sample: %w", err)
 	}
+	rs, err := BootstrapMany(n, reps, seed, workers, 1, func() func([]int, []float64) error {
+		return func(ix []int, out []float64) error {
+			v, err := stat(ix)
+			out[0] = v
+			return err
+		}
+	})
+	if len(rs) == 0 {
+		return BootResult{}, err
+	}
+	res := rs[0]
+	res.Estimate = est
+	if err != nil {
+		return res, err
+	}
+	res.NormalLow = est - ZCrit*res.SE
+	res.NormalHigh = est + ZCrit*res.SE
+	return res, nil
+}
+
+// BootstrapMany is Bootstrap for k statistics computed together from each
+// resample (say, one refitted score and the effect of every outcome under
+// every scheme). newStat is called once per worker and returns that
+// worker's statistic, so it may keep buffers between replicates; the
+// statistic fills out (length k) from the resampled indices. A replicate
+// whose statistic fails, or yields a non-finite value in any component,
+// is dropped from every component and counted in Failed. The results
+// carry SE, percentile bounds, Reps and Failed; Estimate and the normal
+// bounds are NaN (the caller holds the estimate on the original sample).
+//
+// Replicate r draws its indices from the PCG stream (seed, r), and the
+// summaries are sums over the sorted replicates, so the results depend on
+// seed and reps only, never on workers or scheduling. Fewer than two
+// successful replicates is an error. n < 1, reps < 2 or k < 1 panics.
+func BootstrapMany(n, reps int, seed uint64, workers, k int, newStat func() func(idx []int, out []float64) error) ([]BootResult, error) {
+	if n < 1 || reps < 2 || k < 1 {
+		panic(fmt.Sprintf("effect: bootstrap: n = %d, reps = %d, k = %d; need n ≥ 1, reps ≥ 2 and k ≥ 1", n, reps, k))
+	}
 	if workers <= 0 {
 		workers = runtime.GOMAXPROCS(0)
 	}
 	workers = min(workers, reps)
-	vals := make([]float64, reps)
+	vals := make([][]float64, reps) // vals[r] is nil for a failed replicate
 	next := make(chan int)
 	var wg sync.WaitGroup
 	for range workers {
 		wg.Add(1)
 		go func() {
 			defer wg.Done()
+			stat := newStat()
 			ix := make([]int, n)
 			for r := range next {
 				rng := rand.New(rand.NewPCG(seed, uint64(r)))
 				for i := range ix {
 					ix[i] = rng.IntN(n)
 				}
-				v, err := stat(ix)
-				if err != nil || math.IsNaN(v) || math.IsInf(v, 0) {
-					v = math.NaN()
+				out := make([]float64, k)
+				if err := stat(ix, out); err != nil {
+					continue
 				}
-				vals[r] = v
+				finite := true
+				for _, v := range out {
+					finite = finite && !math.IsNaN(v) && !math.IsInf(v, 0)
+				}
+				if finite {
+					vals[r] = out
+				}
 			}
 		}()
 	}
@@ -86,45 +133,39 @@ func Bootstrap(n, reps int, seed uint64, workers int, stat func(idx []int) (floa
 	close(next)
 	wg.Wait()
 
-	res := BootResult{Estimate: est}
-	ok := vals[:0:0]
+	failed := 0
 	for _, v := range vals {
-		if math.IsNaN(v) {
-			res.Failed++
-		} else {
-			ok = append(ok, v)
+		if v == nil {
+			failed++
 		}
 	}
-	res.Reps = len(ok)
-	if res.Reps < 2 {
-		return res, fmt.Errorf("effect: bootstrap: %d of %d replicates failed; fewer than 2 left", res.Failed, reps)
+	res := make([]BootResult, k)
+	for c := range res {
+		res[c] = BootResult{Estimate: math.NaN(), NormalLow: math.NaN(), NormalHigh: math.NaN(), Reps: reps - failed, Failed: failed}
 	}
-	// Mean and SD in replicate order: the same sums whatever the schedule.
-	var m float64
-	for _, v := range ok {
-		m += v
+	if reps-failed < 2 {
+		return res, fmt.Errorf("effect: bootstrap: %d of %d replicates failed; fewer than 2 left", failed, reps)
 	}
-	m /= float64(res.Reps)
-	var ss float64
-	for _, v := range ok {
-		ss += (v - m) * (v - m)
+	for c := range res {
+		v := make([]float64, 0, reps-failed)
+		for _, out := range vals {
+			if out != nil {
+				v = append(v, out[c])
+			}
+		}
+		sort.Float64s(v)
+		var m float64
+		for _, x := range v {
+			m += x
+		}
+		m /= float64(len(v))
+		var ss float64
+		for _, x := range v {
+			ss += (x - m) * (x - m)
+		}
+		res[c].SE = math.Sqrt(ss / float64(len(v)-1))
+		res[c].PercentileLow = weights.Percentile(v, 2.5)
+		res[c].PercentileHigh = weights.Percentile(v, 97.5)
 	}
-	res.SE = math.Sqrt(ss / float64(res.Reps-1))
-	sort.Float64s(ok)
-	res.PercentileLow = quantile7(ok, 0.025)
-	res.PercentileHigh = quantile7(ok, 0.975)
-	res.NormalLow = est - ZCrit*res.SE
-	res.NormalHigh = est + ZCrit*res.SE
 	return res, nil
-}
-
-// quantile7 is the p-quantile of sorted xs by Hyndman & Fan (1996, Am Stat
-// 50:361) type 7.
-func quantile7(xs []float64, p float64) float64 {
-	h := float64(len(xs)-1) * p
-	k := int(math.Floor(h))
-	if k >= len(xs)-1 {
-		return xs[len(xs)-1]
-	}
-	return xs[k] + (h-float64(k))*(xs[k+1]-xs[k])
 }

@@ -2,12 +2,6 @@ package study
 
 import (
 	"fmt"
-	"math"
-	"runtime"
-	"slices"
-	"sync"
-
-	"math/rand/v2"
 
 	"counterpart/match/effect"
 	"counterpart/match/score"
@@ -88,7 +82,7 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 			keys = append(keys, key{o.Name, sc})
 		}
 	}
-	// Resolve the schemes once, not in every replicate.
+	// Resolve the schemes and the model once, not in every replicate.
 	fns := make([]func(ps []float64, z []bool) []float64, len(schemes))
 	for i, sc := range schemes {
 		fn, err := weights.ByName(sc)
@@ -97,109 +91,70 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 		}
 		fns[i] = fn
 	}
+	model, err := score.ParseModel(s.Score.Model)
+	if err != nil {
+		return badInput("bootstrap", err)
+	}
 	reps := s.Estimate.Bootstrap
 	n := c.N()
-	values := make([][]float64, reps) // values[r][k]
-	failed := make([]bool, reps)
-	model := score.Logistic
-	if s.Score.Model == "ridge" {
-		model = score.Ridge
+	if len(keys) == 0 {
+		return nil
 	}
-	var wg sync.WaitGroup
-	next := make(chan int)
-	for g := 0; g < runtime.GOMAXPROCS(0); g++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			idx := make([]int, n)
-			x := make([][]float64, len(d.x))
+	// Each worker keeps its resampled design, treatment and outcome.
+	replicate := func() func(idx []int, out []float64) error {
+		x := make([][]float64, len(d.x))
+		for j := range x {
+			x[j] = make([]float64, n)
+		}
+		z := make([]bool, n)
+		y := make([]float64, n)
+		return func(idx []int, out []float64) error {
 			for j := range x {
-				x[j] = make([]float64, n)
-			}
-			z := make([]bool, n)
-			y := make([]float64, n)
-			for r := range next {
-				rng := rand.New(rand.NewPCG(s.Estimate.Seed, uint64(r)))
-				for i := range idx {
-					idx[i] = rng.IntN(n)
-				}
-				for j := range x {
-					for i, k := range idx {
-						x[j][i] = d.x[j][k]
-					}
-				}
 				for i, k := range idx {
-					z[i] = c.Treated[k]
+					x[j][i] = d.x[j][k]
 				}
-				fit, err := score.FitModel(x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
-				if err != nil {
-					failed[r] = true
-					continue
-				}
-				keep := score.SupportMask(s.Support, fit.PS, z)
-				out := make([]float64, 0, len(keys))
-				for _, o := range c.Outcomes {
-					for i, k := range idx {
-						y[i] = o.Values[k]
-					}
-					for si := range schemes {
-						w, err := applyRules(s.Rules, weights.Restrict(fns[si](fit.PS, z), keep), z)
-						var e effect.Estimate
-						if err == nil {
-							e, err = effect.Difference(y, z, w)
-						}
-						if err != nil {
-							failed[r] = true
-							break
-						}
-						out = append(out, e.Estimate)
-					}
-					if failed[r] {
-						break
-					}
-				}
-				values[r] = out
 			}
-		}()
-	}
-	for r := 0; r < reps; r++ {
-		next <- r
-	}
-	close(next)
-	wg.Wait()
-	ok := 0
-	for r := range values {
-		if !failed[r] {
-			ok++
+			for i, k := range idx {
+				z[i] = c.Treated[k]
+			}
+			fit, err := score.FitModel(x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+			if err != nil {
+				return err
+			}
+			keep := score.SupportMask(s.Support, fit.PS, z)
+			k := 0
+			for _, o := range c.Outcomes {
+				for i, u := range idx {
+					y[i] = o.Values[u]
+				}
+				for si := range schemes {
+					w, err := applyRules(s.Rules, weights.Restrict(fns[si](fit.PS, z), keep), z)
+					var e effect.Estimate
+					if err == nil {
+						e, err = effect.Difference(y, z, w)
+					}
+					if err != nil {
+						return err
+					}
+					out[k] = e.Estimate
+					k++
+				}
+			}
+			return nil
 		}
 	}
-	if ok < 2 {
-		return fmt.Errorf("bootstrap: %w: only %d of %d replicates could be fitted; the sample may be too small or separated", warehouse.ErrBadInput, ok, reps)
+	res, err := effect.BootstrapMany(n, reps, s.Estimate.Seed, 0, len(keys), replicate)
+	if err != nil {
+		return fmt.Errorf("bootstrap: %w: only %d of %d replicates could be fitted; the sample may be too small or separated", warehouse.ErrBadInput, res[0].Reps, reps)
 	}
 	for k, kk := range keys {
-		var v []float64
-		for r := range values {
-			if !failed[r] {
-				v = append(v, values[r][k])
-			}
-		}
-		slices.Sort(v)
-		var mean, ss float64
-		for _, x := range v {
-			mean += x
-		}
-		mean /= float64(len(v))
-		for _, x := range v {
-			ss += (x - mean) * (x - mean)
-		}
-		se := math.Sqrt(ss / float64(len(v)-1))
 		for i := range sum.Effects {
 			e := &sum.Effects[i]
 			if e.Outcome == kk.outcome && e.Adjustment == kk.scheme && e.Contrast == "difference" {
-				e.BootSE = Num(se)
-				e.BootLow = Num(weights.Percentile(v, 2.5))
-				e.BootHigh = Num(weights.Percentile(v, 97.5))
-				e.BootReps = len(v)
+				e.BootSE = Num(res[k].SE)
+				e.BootLow = Num(res[k].PercentileLow)
+				e.BootHigh = Num(res[k].PercentileHigh)
+				e.BootReps = res[k].Reps
 			}
 		}
 	}

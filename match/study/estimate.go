@@ -45,30 +45,72 @@ type matchedRows struct {
 	setControls [][]int
 }
 
+// outcomeKind is what one kind of outcome brings to the estimate stage:
+// its contrasts under an adjustment and how sensitivity analysis reads it.
+// A kind is chosen per outcome by outcomeKindOf; the time-to-event and
+// rate kinds plug in beside the two below.
+type outcomeKind struct {
+	// contrasts estimates the kind's effect rows from per-row outcomes,
+	// arms and weights (nil: every row weight 1); cluster groups dependent
+	// rows (nil: rows independent).
+	contrasts func(y []float64, z []bool, w []float64, cluster []int) ([]effect.Estimate, error)
+	// events: sensitivity reads the outcome as 0/1 events (McNemar's Γ,
+	// E-values from the ratio rows rather than the difference).
+	events bool
+}
+
+// difference is the continuous kind's contrast: the weighted mean
+// difference, with a cluster-robust SE when rows are clustered.
+func difference(y []float64, z []bool, w []float64, cluster []int) ([]effect.Estimate, error) {
+	var e effect.Estimate
+	var err error
+	if cluster != nil {
+		e, err = effect.ClusteredDifference(y, z, w, cluster)
+	} else {
+		e, err = effect.Difference(y, z, w)
+	}
+	return []effect.Estimate{e}, err
+}
+
+// eventContrasts are the binary kind's contrasts: risk difference, risk
+// ratio and odds ratio; the difference alone when an arm's risk is 0 or 1
+// leaves the ratios undefined.
+func eventContrasts(y []float64, z []bool, w []float64, cluster []int) ([]effect.Estimate, error) {
+	rows, err := effect.Contrasts(y, z, w, cluster)
+	if errors.Is(err, effect.ErrDegenerateRisk) {
+		return difference(y, z, w, cluster)
+	}
+	return rows, err
+}
+
+var (
+	continuousOutcome = outcomeKind{contrasts: difference}
+	binaryOutcome     = outcomeKind{contrasts: eventContrasts, events: true}
+)
+
+// outcomeKindOf is the kind of an outcome as the reader classed it.
+func outcomeKindOf(o warehouse.Outcome) outcomeKind {
+	if o.Binary {
+		return binaryOutcome
+	}
+	return continuousOutcome
+}
+
 // estimateOutcome returns the effect rows of one outcome under one
-// adjustment: the difference (and, for a binary outcome, risk and odds
-// ratios), each with its sensitivity figures.
+// adjustment: its kind's contrasts, each with its sensitivity figures.
 func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRows, logit []float64, scale outcomeScale) ([]EffectRow, error) {
+	kind := outcomeKindOf(o)
 	y := o.Values
-	// Matched estimates work on the expanded rows (one per set appearance).
-	var yy []float64
+	var rows []effect.Estimate
+	var err error
 	if a.matched {
-		yy = make([]float64, len(mr.unit))
+		// Matched estimates work on the expanded rows (one per set
+		// appearance), clustered by set.
+		yy := make([]float64, len(mr.unit))
 		for r, u := range mr.unit {
 			yy[r] = y[u]
 		}
-	}
-	var rows []effect.Estimate
-	var err error
-	switch {
-	case a.matched:
-		if o.Binary {
-			rows, err = effect.Contrasts(yy, mr.z, mr.w, mr.cluster)
-		} else {
-			var e effect.Estimate
-			e, err = effect.ClusteredDifference(yy, mr.z, mr.w, mr.cluster)
-			rows = []effect.Estimate{e}
-		}
+		rows, err = kind.contrasts(yy, mr.z, mr.w, mr.cluster)
 		if err == nil && mr.reuse {
 			// Clustering by set understates the dependence a reused
 			// control creates; use Abadie & Imbens (2006) for the
@@ -80,23 +122,8 @@ func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRow
 				rows[0] = ai
 			}
 		}
-	case o.Binary:
-		rows, err = effect.Contrasts(y, z, a.w, nil)
-	default:
-		var e effect.Estimate
-		e, err = effect.Difference(y, z, a.w)
-		rows = []effect.Estimate{e}
-	}
-	if errors.Is(err, effect.ErrDegenerateRisk) {
-		// A risk of 0 or 1 in an arm leaves the ratios undefined; the
-		// difference is still estimable.
-		var e effect.Estimate
-		if a.matched {
-			e, err = effect.ClusteredDifference(yy, mr.z, mr.w, mr.cluster)
-		} else {
-			e, err = effect.Difference(y, z, a.w)
-		}
-		rows = []effect.Estimate{e}
+	} else {
+		rows, err = kind.contrasts(y, z, a.w, nil)
 	}
 	if err != nil {
 		return nil, err
@@ -104,9 +131,9 @@ func estimateOutcome(o warehouse.Outcome, z []bool, a adjustment, mr *matchedRow
 	out := make([]EffectRow, 0, len(rows))
 	for _, e := range rows {
 		r := effectRow(o.Name, a.name, a.estimand, e)
-		addEValue(&r, e, o.Binary, scale)
+		addEValue(&r, e, kind.events, scale)
 		if a.matched && mr.pairs != nil && r.Contrast == effect.ContrastDifference {
-			if g, ok := rosenbaumGamma(y, mr.pairs, o.Binary, e.Estimate); ok {
+			if g, ok := rosenbaumGamma(y, mr.pairs, kind.events, e.Estimate); ok {
 				r.RosenbaumGamma = Num(g)
 			}
 		}

@@ -6,6 +6,7 @@ import (
 	"math"
 	"time"
 
+	"counterpart/match/assign"
 	"counterpart/match/balance"
 	"counterpart/match/score"
 	"counterpart/warehouse"
@@ -92,25 +93,25 @@ type flatSets struct {
 // flattenGroups turns matched groups into one row per set appearance:
 // treated first, then controls, in group order. once refuses a control
 // in two sets (warehouse-scale sums read one weight per unit).
-func flattenGroups(groups []group, n int, once bool) (flatSets, error) {
+func flattenGroups(groups []assign.Matched, n int, once bool) (flatSets, error) {
 	f := flatSets{unitWeight: make([]float64, n)}
 	used := map[int]bool{}
 	for _, g := range groups {
-		for j, u := range append(append([]int(nil), g.treated...), g.controls...) {
-			isT := j < len(g.treated)
-			wt := g.wC
+		for j, u := range append(append([]int(nil), g.Treated...), g.Controls...) {
+			isT := j < len(g.Treated)
+			wt := g.ControlWeight
 			if isT {
-				wt = g.wT
+				wt = g.TreatedWeight
 			}
-			if g.w != nil {
-				wt = g.w[j]
+			if g.Weights != nil {
+				wt = g.Weights[j]
 			}
 			dist := math.NaN()
-			if g.dist != nil {
-				dist = g.dist[j]
+			if g.Distances != nil {
+				dist = g.Distances[j]
 				f.total += dist
 			}
-			f.rows.SetID = append(f.rows.SetID, int64(g.id))
+			f.rows.SetID = append(f.rows.SetID, int64(g.ID))
 			f.rows.Unit = append(f.rows.Unit, u)
 			f.rows.Treated = append(f.rows.Treated, isT)
 			f.rows.SetWeight = append(f.rows.SetWeight, wt)

@@ -352,7 +352,7 @@ func (a *analysis) match() error {
 	st, nstrata := strata(c, s.Matching.ExactOn)
 	ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
 		CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
-	var groups []group
+	var groups []assign.Matched
 	var setTreated []int
 	var setControls [][]int
 	estimand := "att"
@@ -367,7 +367,7 @@ func (a *analysis) match() error {
 		if s.Matching.Algorithm == "optimal" {
 			ms.Solver = &solver
 		}
-		groups = setsToGroups(sets)
+		groups = assign.FromSets(sets)
 		for _, set := range sets {
 			setTreated = append(setTreated, set.Treated)
 			setControls = append(setControls, set.Controls)
@@ -378,7 +378,7 @@ func (a *analysis) match() error {
 			return badInput("match", err)
 		}
 		ms.Solver = &Solver{Objective: Num(cert.Objective), Certified: cert.Certified, Rounds: cert.Rounds, Edges: cert.Edges, Seconds: Num(cert.Seconds)}
-		groups = fullToGroups(gs)
+		groups = assign.FromGroups(gs)
 	case "strata":
 		sub, err := assign.Subclasses(fit.PS, z, a.res.inSupport, s.Matching.Subclasses)
 		if err != nil && !errors.Is(err, assign.ErrSubclass) {
@@ -392,7 +392,7 @@ func (a *analysis) match() error {
 		if err != nil {
 			return badInput("match", err)
 		}
-		groups = subclassGroups(sub, z, sw)
+		groups = assign.FromSubclasses(sub, z, sw)
 	}
 	f, err := flattenGroups(groups, c.N(), false)
 	if err != nil {

@@ -8,6 +8,7 @@ import (
 	"sort"
 	"time"
 
+	"counterpart/match/assign"
 	"counterpart/match/balance"
 	"counterpart/match/score"
 	"counterpart/warehouse"
@@ -235,7 +236,6 @@ func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }
 // matchInWarehouse matches on MatchInput's slices with the in-memory
 // greedy or optimal code and returns the matches rows.
 func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary) (warehouse.MatchRows, error) {
-	var rows warehouse.MatchRows
 	z := mi.Treated
 	sd := pooledSD(mi.Logit, z)
 	width := s.Matching.Caliper * sd
@@ -249,51 +249,21 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 	var solver Solver
 	sets, _, err := matchUnits(matchInput{spec: s, cohort: thin, logit: mi.Logit, eligible: mi.InSupport, strata: st, width: width, solver: &solver})
 	if err != nil {
-		return rows, badInput("match", err)
+		return warehouse.MatchRows{}, badInput("match", err)
 	}
 	if s.Matching.Algorithm == "optimal" {
 		ms.Solver = &solver
 	}
-	groups := setsToGroups(sets)
-	used := map[int]bool{}
-	total := 0.0
-	matchedT := 0
-	for _, g := range groups {
-		for j, u := range append(append([]int(nil), g.treated...), g.controls...) {
-			isT := j < len(g.treated)
-			wt := g.wC
-			if isT {
-				wt = g.wT
-			}
-			dist := g.dist[j]
-			total += dist
-			rows.SetID = append(rows.SetID, int64(g.id))
-			rows.Unit = append(rows.Unit, u)
-			rows.Treated = append(rows.Treated, isT)
-			rows.SetWeight = append(rows.SetWeight, wt)
-			rows.Distance = append(rows.Distance, dist)
-			if isT {
-				matchedT++
-			} else {
-				if used[u] {
-					// RunSumsSQL reads one weight per unit.
-					return rows, fmt.Errorf("match: comparison unit %d is in two sets; warehouse-scale mode matches without reuse", u)
-				}
-				used[u] = true
-			}
-		}
+	groups := assign.FromSets(sets)
+	// RunSumsSQL reads one weight per unit: refuse a reused control.
+	f, err := flattenGroups(groups, len(z), true)
+	if err != nil {
+		return f.rows, err
 	}
-	ms.Sets = len(groups)
-	ms.TotalDistance = Num(total)
-	ms.MatchedTreated = matchedT
-	ms.UnmatchedTreated = keptT - matchedT
-	ms.MatchedControls = len(used)
-	sum.Matching = &ms
-	sum.Counts.MatchedTreated, sum.Counts.MatchedControl = ms.MatchedTreated, ms.MatchedControls
-	if matchedT == 0 {
-		return rows, fmt.Errorf("match: %w: no treated unit found a comparison unit within the caliper (%.3g on logit scale); widen matching.caliper or check support", warehouse.ErrBadInput, width)
+	if err := recordMatching(sum, &ms, f, len(groups), keptT); err != nil {
+		return f.rows, err
 	}
-	return rows, nil
+	return f.rows, nil
 }
 
 // adjustmentNames lists the run's adjustments in the in-memory order.

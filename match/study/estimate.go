@@ -15,10 +15,6 @@ import (
 // (Rosenbaum 2002, ch. 4; common practice).
 const sensitivityAlpha = 0.05
 
-// rareOutcome is the prevalence under which an odds ratio is read as a risk
-// ratio for E-values (VanderWeele & Ding 2017: "rare", under about 15 %).
-const rareOutcome = 0.15
-
 // adjustment is one way of comparing the arms, as the estimate stage sees it.
 type adjustment struct {
 	name, estimand string
@@ -149,85 +145,20 @@ type outcomeScale struct {
 }
 
 func scaleOf(o warehouse.Outcome, z []bool) outcomeScale {
-	var s outcomeScale
-	ys := make([]float64, 0, len(o.Values))
-	var events, n float64
-	for _, v := range o.Values {
-		if !math.IsNaN(v) {
-			ys = append(ys, v)
-			events += v
-			n++
-		}
-	}
-	s.prevalence = events / n
-	var zz []bool
-	for i, v := range o.Values {
-		if !math.IsNaN(v) {
-			zz = append(zz, z[i])
-		}
-	}
-	s.sd = pooledSD(ys, zz)
-	return s
+	sd, prevalence := sensitivity.OutcomeScale(o.Values, z)
+	return outcomeScale{sd: sd, prevalence: prevalence}
 }
 
-// addEValue fills the E-values (VanderWeele & Ding 2017, Ann Intern Med
-// 167:268): on risk ratios directly; on odds ratios through the rare or
-// common-outcome conversion; on a continuous difference through the
-// standardised effect d = estimate / SD with RR ≈ exp(0.91·d). A binary
-// outcome's risk difference gets none: its risk ratio row carries them.
-func addEValue(r *EffectRow, e effect.Estimate, binary bool, sc outcomeScale) {
-	var logRR, se float64
-	switch e.Contrast {
-	case effect.ContrastRiskRatio:
-		logRR, se = math.Log(e.Estimate), e.SE
-	case effect.ContrastOddsRatio:
-		rr, s := sensitivity.RRFromOR(e.Estimate, e.SE, sc.prevalence < rareOutcome)
-		logRR, se = math.Log(rr), s
-	default:
-		if binary || !(sc.sd > 0) {
-			return
-		}
-		rr, s := sensitivity.RRFromSMD(e.Estimate/sc.sd, e.SE/sc.sd)
-		logRR, se = math.Log(rr), s
+// addEValue fills a row's E-values (sensitivity.EValueFor).
+func addEValue(r *EffectRow, e effect.Estimate, events bool, sc outcomeScale) {
+	if ev, ok := sensitivity.EValueFor(e.Contrast, e.Estimate, e.SE, events, sc.sd, sc.prevalence); ok {
+		r.EValue, r.EValueCI = Num(ev.Point), Num(ev.CI)
 	}
-	ev, err := sensitivity.EValueLog(logRR, se)
-	if err != nil {
-		return
-	}
-	r.EValue, r.EValueCI = Num(ev.Point), Num(ev.CI)
 }
 
-// rosenbaumGamma is the sensitivity value of matched pairs: the Γ at which
-// the upper bound of the one-sided p-value, in the direction of the
-// estimate, first exceeds α (signed-rank for continuous outcomes,
-// McNemar's test for binary ones; Rosenbaum 2002, ch. 4).
-func rosenbaumGamma(y []float64, pairs [][2]int, binary bool, estimate float64) (float64, bool) {
-	sign := 1.0
-	if estimate < 0 {
-		sign = -1
-	}
-	var diffs []float64
-	for _, p := range pairs {
-		d := y[p[0]] - y[p[1]]
-		if !math.IsNaN(d) {
-			diffs = append(diffs, sign*d)
-		}
-	}
-	if binary {
-		var t, d int
-		for _, x := range diffs {
-			if x != 0 {
-				d++
-				if x > 0 {
-					t++
-				}
-			}
-		}
-		g, err := sensitivity.McNemarGamma(t, d, sensitivityAlpha)
-		return g, err == nil
-	}
-	g, err := sensitivity.SignedRankGamma(diffs, sensitivityAlpha)
-	return g, err == nil
+// rosenbaumGamma is sensitivity.PairGamma at the reported level.
+func rosenbaumGamma(y []float64, pairs [][2]int, events bool, estimate float64) (float64, bool) {
+	return sensitivity.PairGamma(y, pairs, events, estimate, sensitivityAlpha)
 }
 
 func effectRow(outcome, adjustment, estimand string, e effect.Estimate) EffectRow {

@@ -3,9 +3,9 @@ package study
 import (
 	"fmt"
 	"math"
-	"sort"
 
 	"counterpart/match/assign"
+	"counterpart/match/score"
 	"counterpart/warehouse"
 )
 
@@ -182,10 +182,17 @@ func distanceMetric(s *Spec, c *warehouse.Cohort) (assign.Metric, error) {
 				m.X = append(m.X, cov.Values)
 				continue
 			}
-			for l := 1; l < len(cov.Levels); l++ {
+			if len(cov.Levels) < 2 {
+				continue // a constant covariate adds no distance
+			}
+			terms, err := score.Design([]score.DesignCovariate{{Name: cov.Name, Categorical: true, Levels: cov.Levels}})
+			if err != nil {
+				return assign.Metric{}, fmt.Errorf("match: %w: %w", warehouse.ErrBadInput, err)
+			}
+			for _, t := range terms {
 				ind := make([]float64, c.N())
 				for i, code := range cov.Codes {
-					if int(code) == l {
+					if int(code) == t.Level {
 						ind[i] = 1
 					}
 				}
@@ -202,9 +209,8 @@ func distanceMetric(s *Spec, c *warehouse.Cohort) (assign.Metric, error) {
 	return m, nil
 }
 
-// keepPrior returns the prior sets that still hold: every member is in the
-// cohort, eligible (in support), in the same arm and exact stratum as its
-// set's treated unit, and within the caliper of it on this run's scores.
+// keepPrior returns the prior sets that still hold (assign.KeepPrior),
+// after mapping the prior run's unit ids onto this cohort's rows.
 func keepPrior(in matchInput) ([]assign.Set, *Churn, int, error) {
 	c := in.cohort
 	p := in.prior.sets
@@ -218,13 +224,8 @@ func keepPrior(in matchInput) ([]assign.Set, *Churn, int, error) {
 			index[id] = i
 		}
 	}
-	type member struct {
-		unit    int
-		treated bool
-		ok      bool
-	}
-	groups := map[int64][]member{}
-	var ids []int64
+	bySet := map[int64]int{}
+	var sets []assign.PriorSet
 	for r := 0; r < p.Len(); r++ {
 		var key any
 		if c.IDKind == warehouse.IDInt {
@@ -233,66 +234,19 @@ func keepPrior(in matchInput) ([]assign.Set, *Churn, int, error) {
 			key = p.TextIDs[r]
 		}
 		i, ok := index[key]
-		if _, seen := groups[p.SetID[r]]; !seen {
-			ids = append(ids, p.SetID[r])
+		k, seen := bySet[p.SetID[r]]
+		if !seen {
+			k = len(sets)
+			bySet[p.SetID[r]] = k
+			sets = append(sets, assign.PriorSet{ID: p.SetID[r]})
 		}
-		groups[p.SetID[r]] = append(groups[p.SetID[r]], member{unit: i, treated: p.Treated[r], ok: ok})
+		sets[k].Members = append(sets[k].Members, assign.PriorMember{Unit: i, Treated: p.Treated[r], Present: ok})
 	}
-	sort.Slice(ids, func(a, b int) bool { return ids[a] < ids[b] })
-	churn := &Churn{PriorRun: in.prior.runID, PriorSets: len(ids)}
-	maxID := 0
-	if len(ids) > 0 {
-		maxID = int(ids[len(ids)-1])
-	}
-	usedControl := map[int]bool{}
-	var kept []assign.Set
-	for _, id := range ids {
-		g := groups[id]
-		var t = -1
-		var controls []int
-		good := true
-		for _, m := range g {
-			if !m.ok || !in.eligible[m.unit] || c.Treated[m.unit] != m.treated {
-				good = false
-				break
-			}
-			if m.treated {
-				if t >= 0 {
-					good = false // a set with several treated units: not a 1:k set
-					break
-				}
-				t = m.unit
-			} else {
-				controls = append(controls, m.unit)
-			}
-		}
-		if good && (t < 0 || len(controls) == 0 || len(controls) > in.spec.Matching.Controls) {
-			good = false
-		}
-		var dist []float64
-		for _, cu := range controls {
-			if !good {
-				break
-			}
-			d := math.Abs(in.logit[t] - in.logit[cu])
-			if (in.width > 0 && d > in.width) || (in.strata != nil && in.strata[t] != in.strata[cu]) ||
-				(!in.spec.Matching.Reuse && usedControl[cu]) {
-				good = false
-			}
-			dist = append(dist, d)
-		}
-		if !good {
-			churn.Released++
-			continue
-		}
-		for _, cu := range controls {
-			usedControl[cu] = true
-		}
-		kept = append(kept, assign.Set{ID: int(id), Treated: t, Controls: controls, Distances: dist})
-	}
-	churn.Kept = len(kept)
+	kept, released, maxID := assign.KeepPrior(sets, in.logit, c.Treated, in.eligible, in.strata, assign.Options{
+		Controls: in.spec.Matching.Controls, Reuse: in.spec.Matching.Reuse, Caliper: in.width})
+	churn := &Churn{PriorRun: in.prior.runID, PriorSets: len(sets), Kept: len(kept), Released: released}
 	if maxID > math.MaxInt32 {
 		return nil, nil, 0, fmt.Errorf("keep prior: set ids of run %s are too large", in.prior.runID)
 	}
-	return kept, churn, maxID, nil
+	return kept, churn, int(maxID), nil
 }

@@ -4,12 +4,12 @@ import (
 	"bytes"
 	"context"
 	"database/sql"
-	"encoding/json"
 	"encoding/xml"
 	"errors"
 	"fmt"
 	"html"
 	"io"
+	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
@@ -343,41 +343,21 @@ func TestHTMLWithoutDiagnostics(t *testing.T) {
 	}
 }
 
-// TestHTMLSensitivityFields: sensitivity measures are found on effect rows
-// at the top level or one object down, and rendered; rows without them
-// are left out.
+// TestHTMLSensitivityFields: the sensitivity measures recorded on effect
+// rows are rendered; rows without any of them are left out, and a run that
+// recorded none (NaN, stored as null, or 0 = not computed) says so.
 func TestHTMLSensitivityFields(t *testing.T) {
 	sum, _ := demoSummary(t)
-	b, err := json.Marshal(sum)
-	if err != nil {
-		t.Fatal(err)
+	s := *sum
+	s.Effects = slices.Clone(sum.Effects)
+	nan := study.Num(math.NaN())
+	for k := range s.Effects {
+		s.Effects[k].EValue, s.Effects[k].EValueCI, s.Effects[k].RosenbaumGamma = nan, nan, nan
 	}
-	var generic map[string]any
-	if err := json.Unmarshal(b, &generic); err != nil {
-		t.Fatal(err)
-	}
-	effects := generic["effects"].([]any)
-	for _, e := range effects {
-		for _, k := range sensitivityKeys {
-			delete(e.(map[string]any), k.key)
-		}
-	}
-	effects[0].(map[string]any)["e_value"] = 2.375
-	effects[0].(map[string]any)["e_value_ci"] = 1.8
-	effects[2].(map[string]any)["e_value"] = nil
-	effects[1].(map[string]any)["sensitivity"] = map[string]any{"rosenbaum_gamma": 1.42}
-	b, err = json.Marshal(generic)
-	if err != nil {
-		t.Fatal(err)
-	}
-	x, err := extrasFromJSON(b)
-	if err != nil {
-		t.Fatal(err)
-	}
-	p := &page{s: sum, x: x}
-	p.adjustments()
-	p.document()
-	out := p.b.String()
+	s.Effects[0].EValue = 2.375
+	s.Effects[0].EValueCI = 1.8
+	s.Effects[1].RosenbaumGamma = 1.42
+	out := renderHTML(t, &s)
 	for _, want := range []string{"<td class=\"n\">2.375</td>", "<td class=\"n\">1.8</td>", "<td class=\"n\">1.42</td>", "E-value (interval limit)", "Rosenbaum Γ"} {
 		if !strings.Contains(out, want) {
 			t.Errorf("sensitivity section lacks %q", want)
@@ -388,14 +368,7 @@ func TestHTMLSensitivityFields(t *testing.T) {
 	if rows := strings.Count(sec, "<tr>") - 1; rows != 2 {
 		t.Errorf("sensitivity table has %d rows, want 2", rows)
 	}
-	b, err = json.Marshal(map[string]any{"effects": []any{map[string]any{"e_value": nil, "rosenbaum_gamma": 0}}})
-	if err != nil {
-		t.Fatal(err)
-	}
-	if x, err = extrasFromJSON(b); err != nil {
-		t.Fatal(err)
-	}
-	p = &page{s: sum, x: x}
+	p := &page{s: &study.Summary{Effects: []study.EffectRow{{EValue: nan, EValueCI: nan, RosenbaumGamma: 0}}}}
 	p.sensitivity()
 	if !strings.Contains(p.b.String(), "This run recorded no sensitivity measures.") {
 		t.Error("a run without sensitivity measures (null, or 0 = not computed) should say so")

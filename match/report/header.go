@@ -5,6 +5,11 @@ import (
 	"time"
 )
 
+// The first screen: who ran what, when, with which verdict, and the
+// cautions to read before any number.
+
+// statusClass colours the status badge; the word itself carries the
+// meaning, so colour only repeats it.
 func statusClass(status string) string {
 	switch status {
 	case "succeeded", "dry-run":
@@ -15,6 +20,8 @@ func statusClass(status string) string {
 	return "neutral"
 }
 
+// header is the run record: the lineage a reader needs to trust or
+// reproduce the page (run id, study file hash, cohort fingerprint).
 func (p *page) header() {
 	s := p.s
 	status := s.Status
@@ -57,6 +64,8 @@ func stamp(t time.Time) string {
 	return t.UTC().Format("2006-01-02 15:04:05 UTC")
 }
 
+// cautions come before the charts so the limits of the design are read
+// before its numbers.
 func (p *page) cautions() {
 	s := p.s
 	p.f("<section aria-labelledby=\"h-cautions\">\n<h2 id=\"h-cautions\">Before reading the numbers</h2>\n<div class=\"cautions\"><ul>\n")

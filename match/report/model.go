@@ -4,6 +4,8 @@ import (
 	"slices"
 )
 
+// model shows the propensity fit last on purpose: it is judged by the
+// balance above, not by its coefficients.
 func (p *page) model() {
 	m := p.s.Model
 	p.f("<section aria-labelledby=\"h-model\">\n<h2 id=\"h-model\">Propensity model</h2>\n")
@@ -25,6 +27,8 @@ func (p *page) model() {
 	p.f("</table>\n</section>\n")
 }
 
+// timings lists the stages in pipeline order, then any stage a newer run
+// records, so an operator sees where a night's minutes went.
 func (p *page) timings() {
 	t := p.s.Timings
 	if len(t) == 0 {

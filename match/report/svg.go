@@ -7,6 +7,11 @@ import (
 	"strings"
 )
 
+// SVG primitives shared by the report's charts: the palette, the
+// accessible <svg> opening, text, lines, markers, legends and axis ticks.
+// Sections compose these and write no chart markup of their own beyond
+// rectangles and paths specific to them.
+
 // Okabe–Ito colours.
 const (
 	colTreated    = "#D55E00" // vermillion

@@ -58,6 +58,9 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 			Usage: "list a study's runs (newest first)",
 			Flags: []cli.Flag{studyFlag, &cli.IntFlag{Name: "limit", Value: 20, Usage: "how many runs to list (0: all)"}},
 			Action: func(c *cli.Context) error {
+				if c.NArg() > 0 {
+					return usageError(fmt.Sprintf("runs takes no argument (got %q): counterpart runs --study S, or runs show / runs diff", c.Args().First()))
+				}
 				return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
 					recs, err := wh.Runs(ctx, spec.OutputTarget(), c.Int("limit"))
 					if err != nil {
@@ -74,6 +77,9 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 					ArgsUsage: "[RUN|latest]",
 					Flags:     []cli.Flag{studyFlag},
 					Action: func(c *cli.Context) error {
+						if c.NArg() > 1 {
+							return usageError("runs show takes at most one run: counterpart runs show --study S [RUN|latest]")
+						}
 						return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
 							rec, err := resolve(ctx, wh, spec.OutputTarget(), c.Args().First())
 							if err != nil {
@@ -125,6 +131,9 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 			ArgsUsage: "[RUN|latest]",
 			Flags:     []cli.Flag{studyFlag, &cli.StringFlag{Name: "out", Value: "report.html", Usage: "HTML `FILE` to write"}},
 			Action: func(c *cli.Context) error {
+				if c.NArg() > 1 {
+					return usageError("report takes at most one run: counterpart report --study S [RUN|latest] [--out FILE]")
+				}
 				return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
 					rec, err := resolve(ctx, wh, spec.OutputTarget(), c.Args().First())
 					if err != nil {

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"strings"
 
 	"github.com/urfave/cli/v2"
 
@@ -20,7 +21,7 @@ var studyFlag = &cli.StringFlag{Name: "study", Usage: "the study file (`STUDY.ya
 func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*cli.Command {
 	withStudy := func(c *cli.Context, f func(*study.Spec, warehouse.Warehouse) error) error {
 		if c.String("study") == "" {
-			*code = fail(stderr, c.String("log-format"), fmt.Errorf("%w: %s needs --study STUDY.yaml", warehouse.ErrBadInput, c.Command.FullName()))
+			*code = fail(stderr, c.String("log-format"), fmt.Errorf("%w: %s needs --study STUDY.yaml", warehouse.ErrBadInput, strings.TrimPrefix(c.Command.HelpName, c.App.Name+" ")))
 			return nil
 		}
 		spec, err := study.Load(c.String("study"))
@@ -62,9 +63,10 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 					return usageError(fmt.Sprintf("runs takes no argument (got %q): counterpart runs --study S, or runs show / runs diff", c.Args().First()))
 				}
 				return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
+					// The engine names the step (list runs); wrapping again would say it twice.
 					recs, err := wh.Runs(ctx, spec.OutputTarget(), c.Int("limit"))
 					if err != nil {
-						return fmt.Errorf("list runs: %w", err)
+						return err
 					}
 					report.RunList(stdout, recs)
 					return nil
@@ -111,9 +113,10 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 							if err != nil {
 								return fmt.Errorf("runs diff: %w", err)
 							}
+							// The engine names the step (diff runs A and B).
 							d, err := wh.DiffRuns(ctx, out, a.RunID, b.RunID)
 							if err != nil {
-								return fmt.Errorf("runs diff: %w", err)
+								return err
 							}
 							// Drift needs both summaries; without them the set churn is all there is.
 							sa, _ := study.DecodeSummary(a)

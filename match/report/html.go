@@ -43,15 +43,15 @@ var css string
 // <title> and <desc>.
 //
 // The page is built in memory and written once, so a failed writer never
-// leaves half a section behind a complete-looking header.
+// leaves half a section behind a complete-looking header. Writing is the
+// only thing that can fail, and the writer's error is returned as it is:
+// the caller, which knows the file, names the step.
 func HTML(w io.Writer, s *study.Summary) error {
 	p := &page{s: s}
 	p.adjustments()
 	p.document()
-	if _, err := io.WriteString(w, p.b.String()); err != nil {
-		return fmt.Errorf("html report: write: %w", err)
-	}
-	return nil
+	_, err := io.WriteString(w, p.b.String())
+	return err
 }
 
 // page is one report being built: the Summary it shows, the markup so

@@ -55,6 +55,17 @@ func main() {
 // run is main without the process: tests call it with their own writers.
 func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 	code := exitOK
+	app := newApp(ctx, &code, stdout, stderr)
+	if err := app.RunContext(ctx, hoistFlags(args, app)); err != nil {
+		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
+		return exitBadInput
+	}
+	return code
+}
+
+// newApp declares the commands; their actions set *code, the exit code
+// run returns.
+func newApp(ctx context.Context, code *int, stdout, stderr io.Writer) *cli.App {
 	app := &cli.App{
 		Name:  "counterpart",
 		Usage: "matched and weighted comparison cohorts, built inside your warehouse",
@@ -89,7 +100,7 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 					if f.logFormat != "" && f.logFormat != "text" && f.logFormat != "json" {
 						return usageError(fmt.Sprintf("--log-format %q: use text or json", f.logFormat))
 					}
-					code = runStudy(ctx, c.Args().First(), f, stdout, stderr)
+					*code = runStudy(ctx, c.Args().First(), f, stdout, stderr)
 					return nil
 				},
 			},
@@ -102,18 +113,17 @@ func run(ctx context.Context, args []string, stdout, stderr io.Writer) int {
 					&cli.Uint64Flag{Name: "seed", Value: 1, Usage: "seed of the synthetic data"},
 				},
 				Action: func(c *cli.Context) error {
-					code = runDemo(ctx, c.String("dir"), c.Int("units"), c.Uint64("seed"), stdout, stderr)
+					if c.NArg() > 0 {
+						return usageError(fmt.Sprintf("demo takes no argument (got %q): counterpart demo [--dir DIR]", c.Args().First()))
+					}
+					*code = runDemo(ctx, c.String("dir"), c.Int("units"), c.Uint64("seed"), stdout, stderr)
 					return nil
 				},
 			},
 		},
 	}
-	app.Commands = append(app.Commands, runsCommands(ctx, &code, stdout, stderr)...)
-	if err := app.RunContext(ctx, args); err != nil {
-		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
-		return exitBadInput
-	}
-	return code
+	app.Commands = append(app.Commands, runsCommands(ctx, code, stdout, stderr)...)
+	return app
 }
 
 type usageError string

@@ -2,12 +2,9 @@ package main
 
 import (
 	"context"
-	"encoding/json"
 	"fmt"
 	"io"
-	"math"
-	"text/tabwriter"
-	"time"
+	"strings"
 
 	"github.com/urfave/cli/v2"
 
@@ -24,7 +21,7 @@ var studyFlag = &cli.StringFlag{Name: "study", Usage: "the study file (`STUDY.ya
 func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*cli.Command {
 	withStudy := func(c *cli.Context, f func(*study.Spec, warehouse.Warehouse) error) error {
 		if c.String("study") == "" {
-			*code = fail(stderr, c.String("log-format"), fmt.Errorf("%w: %s needs --study STUDY.yaml", warehouse.ErrBadInput, c.Command.FullName()))
+			*code = fail(stderr, c.String("log-format"), fmt.Errorf("%w: %s needs --study STUDY.yaml", warehouse.ErrBadInput, strings.TrimPrefix(c.Command.HelpName, c.App.Name+" ")))
 			return nil
 		}
 		spec, err := study.Load(c.String("study"))
@@ -62,12 +59,16 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 			Usage: "list a study's runs (newest first)",
 			Flags: []cli.Flag{studyFlag, &cli.IntFlag{Name: "limit", Value: 20, Usage: "how many runs to list (0: all)"}},
 			Action: func(c *cli.Context) error {
+				if c.NArg() > 0 {
+					return usageError(fmt.Sprintf("runs takes no argument (got %q): counterpart runs --study S, or runs show / runs diff", c.Args().First()))
+				}
 				return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
+					// The engine names the step (list runs); wrapping again would say it twice.
 					recs, err := wh.Runs(ctx, spec.OutputTarget(), c.Int("limit"))
 					if err != nil {
-						return fmt.Errorf("list runs: %w", err)
+						return err
 					}
-					printRuns(stdout, recs)
+					report.RunList(stdout, recs)
 					return nil
 				})
 			},
@@ -78,12 +79,16 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 					ArgsUsage: "[RUN|latest]",
 					Flags:     []cli.Flag{studyFlag},
 					Action: func(c *cli.Context) error {
+						if c.NArg() > 1 {
+							return usageError("runs show takes at most one run: counterpart runs show --study S [RUN|latest]")
+						}
 						return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
 							rec, err := resolve(ctx, wh, spec.OutputTarget(), c.Args().First())
 							if err != nil {
 								return fmt.Errorf("show run: %w", err)
 							}
-							showRun(stdout, rec)
+							sum, _ := study.DecodeSummary(rec) // a run without one still shows its lineage
+							report.RunDetail(stdout, rec, sum, report.TerminalOptions{Color: isTTY(stdout)})
 							return nil
 						})
 					},
@@ -108,11 +113,15 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 							if err != nil {
 								return fmt.Errorf("runs diff: %w", err)
 							}
+							// The engine names the step (diff runs A and B).
 							d, err := wh.DiffRuns(ctx, out, a.RunID, b.RunID)
 							if err != nil {
-								return fmt.Errorf("runs diff: %w", err)
+								return err
 							}
-							printDiff(stdout, a, b, d)
+							// Drift needs both summaries; without them the set churn is all there is.
+							sa, _ := study.DecodeSummary(a)
+							sb, _ := study.DecodeSummary(b)
+							report.RunDiff(stdout, a, b, d, sa, sb)
 							return nil
 						})
 					},
@@ -125,14 +134,17 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 			ArgsUsage: "[RUN|latest]",
 			Flags:     []cli.Flag{studyFlag, &cli.StringFlag{Name: "out", Value: "report.html", Usage: "HTML `FILE` to write"}},
 			Action: func(c *cli.Context) error {
+				if c.NArg() > 1 {
+					return usageError("report takes at most one run: counterpart report --study S [RUN|latest] [--out FILE]")
+				}
 				return withStudy(c, func(spec *study.Spec, wh warehouse.Warehouse) error {
 					rec, err := resolve(ctx, wh, spec.OutputTarget(), c.Args().First())
 					if err != nil {
 						return fmt.Errorf("report: %w", err)
 					}
-					sum, err := decodeSummary(rec)
+					sum, err := study.DecodeSummary(rec)
 					if err != nil {
-						return err
+						return fmt.Errorf("report: %w", err)
 					}
 					if err := writeReport(c.String("out"), sum); err != nil {
 						return err
@@ -143,149 +155,4 @@ func runsCommands(ctx context.Context, code *int, stdout, stderr io.Writer) []*c
 			},
 		},
 	}
-}
-
-// decodeSummary reads the summary a run stored; runs published before the
-// summary column existed have none.
-func decodeSummary(rec warehouse.RunRecord) (*study.Summary, error) {
-	if rec.SummaryJSON == "" {
-		return nil, fmt.Errorf("report: %w: run %s has no stored summary (status %s); rerun the study", warehouse.ErrBadInput, rec.RunID, rec.Status)
-	}
-	var sum study.Summary
-	if err := json.Unmarshal([]byte(rec.SummaryJSON), &sum); err != nil {
-		return nil, fmt.Errorf("report: decode summary of run %s: %w", rec.RunID, err)
-	}
-	return &sum, nil
-}
-
-// runDigest is what the runs list needs from a run's JSON columns.
-type runDigest struct {
-	units, treated, matched int
-	worst                   float64
-	headline                string
-}
-
-func digest(rec warehouse.RunRecord) runDigest {
-	d := runDigest{worst: math.NaN()}
-	var counts study.Counts
-	if json.Unmarshal([]byte(rec.CountsJSON), &counts) == nil {
-		d.units, d.treated, d.matched = counts.Units, counts.Treated, counts.MatchedTreated
-	}
-	var bal struct {
-		Gate study.Gate `json:"gate"`
-	}
-	if json.Unmarshal([]byte(rec.BalanceJSON), &bal) == nil {
-		d.worst = math.Abs(float64(bal.Gate.WorstSMD))
-	}
-	var effects []study.EffectRow
-	if json.Unmarshal([]byte(rec.EffectsJSON), &effects) == nil {
-		var sum struct {
-			Primary string `json:"headline_adjustment"`
-		}
-		_ = json.Unmarshal([]byte(rec.SummaryJSON), &sum)
-		for _, e := range effects {
-			if e.Contrast == "difference" && (e.Adjustment == sum.Primary || (sum.Primary == "" && e.Adjustment != "unadjusted")) {
-				d.headline = fmt.Sprintf("%s %+.4g [%+.4g, %+.4g]", e.Outcome, float64(e.Estimate), float64(e.CILow), float64(e.CIHigh))
-				break
-			}
-		}
-	}
-	return d
-}
-
-func printRuns(w io.Writer, recs []warehouse.RunRecord) {
-	if len(recs) == 0 {
-		fmt.Fprintln(w, "no runs yet")
-		return
-	}
-	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "run\tstatus\tstarted (UTC)\tseconds\tunits\ttreated\tmatched\tworst |SMD|\theadline effect")
-	for _, r := range recs {
-		d := digest(r)
-		secs := ""
-		if !r.FinishedAt.IsZero() {
-			secs = fmt.Sprintf("%.1f", r.FinishedAt.Sub(r.StartedAt).Seconds())
-		}
-		worst := ""
-		if !math.IsNaN(d.worst) {
-			worst = fmt.Sprintf("%.3f", d.worst)
-		}
-		fmt.Fprintf(tw, "%s\t%s\t%s\t%s\t%d\t%d\t%d\t%s\t%s\n", r.RunID, r.Status, r.StartedAt.UTC().Format(time.DateTime), secs,
-			d.units, d.treated, d.matched, worst, d.headline)
-	}
-	tw.Flush()
-}
-
-func showRun(w io.Writer, r warehouse.RunRecord) {
-	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
-	for _, kv := range [][2]string{
-		{"run", r.RunID}, {"study", r.Study}, {"status", r.Status},
-		{"started", r.StartedAt.UTC().Format(time.RFC3339)}, {"finished", finished(r.FinishedAt)},
-		{"tool version", r.ToolVersion}, {"engine", r.Engine}, {"database user", r.DBUser},
-		{"study file sha256", r.SpecSHA256}, {"cohort fingerprint", r.CohortFingerprint}, {"message", r.Message},
-	} {
-		if kv[1] != "" {
-			fmt.Fprintf(tw, "%s\t%s\n", kv[0], kv[1])
-		}
-	}
-	tw.Flush()
-	if sum, err := decodeSummary(r); err == nil {
-		fmt.Fprintln(w)
-		report.Terminal(w, sum, report.TerminalOptions{Color: isTTY(w)})
-	}
-}
-
-func finished(t time.Time) string {
-	if t.IsZero() {
-		return ""
-	}
-	return t.UTC().Format(time.RFC3339)
-}
-
-// printDiff shows the set churn between two runs and how balance and the
-// effects moved.
-func printDiff(w io.Writer, a, b warehouse.RunRecord, d warehouse.RunDiff) {
-	fmt.Fprintf(w, "from %s (%s)\n  to %s (%s)\n\n", a.RunID, a.Status, b.RunID, b.Status)
-	fmt.Fprintf(w, "matched sets  kept %d · changed %d · new %d · dropped %d\n", d.Kept, d.Changed, d.New, d.Dropped)
-	sa, errA := decodeSummary(a)
-	sb, errB := decodeSummary(b)
-	if errA != nil || errB != nil {
-		return
-	}
-	fmt.Fprintln(w, "\nbalance drift (largest |SMD| per adjustment)")
-	tw := tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "  adjustment\tbefore\tafter\tchange")
-	worst := func(s *study.Summary) map[string]float64 {
-		m := map[string]float64{}
-		for _, ab := range s.Balance {
-			m[ab.Adjustment] = math.Abs(float64(ab.WorstSMD))
-		}
-		return m
-	}
-	wa, wb := worst(sa), worst(sb)
-	for _, ab := range sb.Balance {
-		x, ok := wa[ab.Adjustment]
-		if !ok {
-			continue
-		}
-		fmt.Fprintf(tw, "  %s\t%.3f\t%.3f\t%+.3f\n", ab.Adjustment, x, wb[ab.Adjustment], wb[ab.Adjustment]-x)
-	}
-	tw.Flush()
-	fmt.Fprintln(w, "\neffect drift (differences)")
-	tw = tabwriter.NewWriter(w, 0, 4, 2, ' ', 0)
-	fmt.Fprintln(tw, "  outcome\tadjustment\tbefore\tafter\tchange")
-	prev := map[string]float64{}
-	for _, e := range sa.Effects {
-		if e.Contrast == "difference" {
-			prev[e.Outcome+"\x00"+e.Adjustment] = float64(e.Estimate)
-		}
-	}
-	for _, e := range sb.Effects {
-		x, ok := prev[e.Outcome+"\x00"+e.Adjustment]
-		if e.Contrast != "difference" || !ok {
-			continue
-		}
-		fmt.Fprintf(tw, "  %s\t%s\t%+.4g\t%+.4g\t%+.4g\n", e.Outcome, e.Adjustment, x, float64(e.Estimate), float64(e.Estimate)-x)
-	}
-	tw.Flush()
 }

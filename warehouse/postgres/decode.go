@@ -8,7 +8,6 @@ import (
 	"strconv"
 	"unsafe"
 
-
 	"counterpart/warehouse/sqlcore"
 )
 

@@ -164,4 +164,3 @@ func (w *adapter) pgTypes(ctx context.Context, fields []pgconn.FieldDescription)
 	}
 	return types, nil
 }
-

@@ -46,4 +46,3 @@ func TestRender(t *testing.T) {
 		t.Error("rendered with missing fields")
 	}
 }
-

@@ -6,7 +6,6 @@ import (
 	"embed"
 	"errors"
 	"fmt"
-	"io/fs"
 	"math"
 	"os"
 	"path/filepath"
@@ -14,7 +13,6 @@ import (
 
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
-	sqltext "counterpart/sql"
 	"counterpart/warehouse"
 	"counterpart/warehouse/sqlcore"
 )
@@ -23,9 +21,7 @@ import (
 var sqlFiles embed.FS
 
 func init() {
-	sub, _ := fs.Sub(sqlFiles, "sql")
-	sqltext.RegisterDialect("duckdb", sub)
-	warehouse.Register(warehouse.Engine{
+	sqlcore.Register(warehouse.Engine{
 		Name: "duckdb", Default: true, DefaultSchema: "main", DSNHint: "a DuckDB file path",
 		// A file named relative to the study file is found beside it, so
 		// a study runs the same from cron as from its own directory.
@@ -41,7 +37,7 @@ func init() {
 			}
 			return Open(ctx, dsn)
 		},
-	})
+	}, sqlFiles)
 }
 
 // Warehouse is an open DuckDB database file. It is not safe for concurrent

@@ -5,7 +5,6 @@ import (
 	"embed"
 	"errors"
 	"fmt"
-	"io/fs"
 	"net/url"
 	"regexp"
 	"strings"
@@ -15,7 +14,6 @@ import (
 	"github.com/jackc/pgx/v5/pgconn"
 	"github.com/jackc/pgx/v5/pgconn/ctxwatch"
 
-	sqltext "counterpart/sql"
 	"counterpart/warehouse"
 	"counterpart/warehouse/sqlcore"
 )
@@ -24,14 +22,12 @@ import (
 var sqlFiles embed.FS
 
 func init() {
-	sub, _ := fs.Sub(sqlFiles, "sql")
-	sqltext.RegisterDialect("postgres", sub)
-	warehouse.Register(warehouse.Engine{
+	sqlcore.Register(warehouse.Engine{
 		Name: "postgres", DefaultSchema: "public", DSNHint: "a postgres:// URL",
 		Open: func(ctx context.Context, dsn string, o warehouse.OpenOptions) (warehouse.Warehouse, error) {
 			return open(ctx, dsn, o.ReadOnly, []Option{WithStudy(o.Study)})
 		},
-	})
+	}, sqlFiles)
 }
 
 // Warehouse is one connection to a Postgres database. It is not safe for

@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io/fs"
 	"time"
 
 	sqltext "counterpart/sql"
@@ -222,4 +223,16 @@ func (c *Core) tx(ctx context.Context, fn func() error) error {
 		c.Rollback(ctx)
 	}
 	return err
+}
+
+// Register adds an engine to the warehouse registry and its dialect SQL
+// (the *.sql files under sql/ of files, embedded from the engine's folder)
+// to the SQL templates. Engines call it from init.
+func Register(e warehouse.Engine, files fs.FS) {
+	sub, err := fs.Sub(files, "sql")
+	if err != nil {
+		panic(err)
+	}
+	sqltext.RegisterDialect(e.Name, sub)
+	warehouse.Register(e)
 }

@@ -1,8 +1,8 @@
 // Package sqltext holds the SQL text counterpart runs against a warehouse:
 // DDL of the output contract, the current and balance views, retention and
 // the runs-table statements. The files live under sql/common (dialect-neutral)
-// and sql/<dialect> (one folder per engine, e.g. sql/duckdb); a dialect file
-// overrides a common file of the same name.
+// and each engine's own folder (warehouse/<engine>/sql, registered with
+// RegisterDialect); a dialect file overrides a common file of the same name.
 //
 // Files are text/template templates. They receive identifiers already
 // validated and quoted by the engine (warehouse.ValidIdent, warehouse.Quote)
@@ -23,16 +23,27 @@ import (
 	"text/template"
 )
 
-//go:embed common/*.sql duckdb/*.sql postgres/*.sql
+//go:embed common/*.sql
 var files embed.FS
 
-// FS returns the embedded SQL files: common/*.sql and <dialect>/*.sql.
+var dialects sync.Map // dialect name → fs.FS of its *.sql files
+
+// RegisterDialect adds an engine's own SQL files (an fs.FS whose root
+// holds them), embedded from the engine's folder; it is called from the
+// engine's init.
+func RegisterDialect(dialect string, files fs.FS) { dialects.Store(dialect, files) }
+
+// FS returns the embedded common SQL files, common/*.sql.
 func FS() fs.FS { return files }
 
 // Text returns the file name (for example "current_view.sql") for dialect:
-// <dialect>/name when it exists, otherwise common/name.
+// the dialect's own file when it has one, otherwise common/name.
 func Text(dialect, name string) (string, error) {
-	b, err := fs.ReadFile(files, dialect+"/"+name)
+	var b []byte
+	err := fs.ErrNotExist
+	if d, ok := dialects.Load(dialect); ok {
+		b, err = fs.ReadFile(d.(fs.FS), name)
+	}
 	if err != nil {
 		b, err = fs.ReadFile(files, "common/"+name)
 	}

@@ -19,9 +19,6 @@ func CheckPublication(out Output, p *Publication) error {
 		return fmt.Errorf("run %s: final status %q is not one of succeeded, rejected, failed, skipped", p.Run.RunID, p.Run.Status)
 	}
 	c := p.Cohort
-	if p.InTx != nil {
-		return checkInTx(out, p)
-	}
 	if c == nil {
 		if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+p.Matches.Len()+len(p.Weights) > 0 {
 			return errors.New("rows given without their cohort")
@@ -95,12 +92,12 @@ func CheckPublication(out Output, p *Publication) error {
 	return nil
 }
 
-// checkInTx checks a warehouse-scale publication: the engine writes only
-// its matches (and effects) from memory, so only the unit ids the match
-// rows point at are needed.
-func checkInTx(out Output, p *Publication) error {
+// CheckScalePublication checks a warehouse-scale publication: the engine
+// writes only its matches (and effects) from memory, so only the unit ids
+// the match rows point at are needed.
+func CheckScalePublication(out Output, p *Publication) error {
 	if len(p.PS)+len(p.LogitPS)+len(p.InSupport)+len(p.Weights) > 0 {
-		return errors.New("a publication with InTx writes scores and weights inside the engine; PS, LogitPS, InSupport and Weights must be empty")
+		return errors.New("a warehouse-scale publication writes scores and weights inside the engine; PS, LogitPS, InSupport and Weights must be empty")
 	}
 	m := p.Matches
 	if m.Len() == 0 {

@@ -352,15 +352,6 @@ func (b *ScaleSQL) rawExpr(c DesignColumn) string {
 	return "CASE WHEN " + src + " = " + b.Str(c.Level) + " THEN 1.0 ELSE 0.0 END"
 }
 
-// StdColumns returns the select list z, x1..xp of the standardised design.
-func (b *ScaleSQL) StdColumns(d *DesignSQL) string {
-	parts := []string{d.TreatmentExpr() + " AS z"}
-	for j, c := range d.Columns {
-		parts = append(parts, fmt.Sprintf("(%s - %s) * %s AS x%d", b.rawExpr(c), b.Num(c.Center), b.Num(c.Scale), j+1))
-	}
-	return strings.Join(parts, ",\n  ")
-}
-
 // Eta returns the linear predictor over columns named x1..xp (standardised
 // design) with coefficients beta bound as parameters.
 func (b *ScaleSQL) Eta(beta []float64) string {
@@ -640,6 +631,8 @@ type ColumnTypes struct {
 	TreatmentBool bool
 	// Categorical and Text, per covariate in q.Covariates order.
 	Categorical, Text []bool
+	// OutcomeBool, per outcome: a boolean column (SnapshotSQL).
+	OutcomeBool []bool
 }
 
 // DescribeSQL returns the one aggregate query of Describe: a single

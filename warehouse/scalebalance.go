@@ -295,3 +295,91 @@ func BalanceLevelsSQL(c *Contract, covs []CovariateMeta) (string, error) {
 	}
 	return strings.Join(parts, "\nUNION ALL\n"), nil
 }
+
+// ArmSums are one arm's effect sums over its usable rows (w > 0, outcome
+// present): rows used and missing, Σw, Σw·y, Σw²·y², Σw²·y, Σw², and the
+// count of outcomes other than 0 and 1.
+type ArmSums struct {
+	N, Missing, W, WY, W2Y2, W2Y, W2, NonBinary float64
+}
+
+// SetSums are one outcome's sums over matched sets g, with A_g = Σ_g w·y
+// and B_g = Σ_g w per arm over the set's usable rows: G sets with a
+// usable row, each arm's N, Missing, W = ΣB and WY = ΣA, and M the
+// symmetric 4×4 matrix of Σ_g products of (A_T, B_T, A_C, B_C).
+type SetSums struct {
+	G    float64
+	T, C ArmSums
+	M    [4][4]float64
+}
+
+// BalanceSums are one adjustment's balance sums in one arm: Σw, Σw², then
+// per covariate (RunSums order) Σw·δ and Σw·δ² when numeric, Σw·[x = l]
+// per level when categorical.
+type BalanceSums struct {
+	W, W2 float64
+	Terms []float64
+}
+
+// Sums are a run's sums from RunSumsSQL and MatchedSumsSQL, typed. Arm 0
+// is the comparison arm, 1 the treated arm.
+type Sums struct {
+	// Spec is the pass's description with its categorical levels.
+	Spec RunSums
+	// Balance[a][g]: adjustment a (unadjusted, matched when set, each
+	// scheme).
+	Balance [][2]BalanceSums
+	// Effects[o][a][g]: outcome o under adjustment a of all but matched.
+	Effects [][][2]ArmSums
+	// Matched[o]: the matched sets' sums of outcome o, when matched.
+	Matched []SetSums
+}
+
+// NewSums unpacks RunSumsSQL's row per arm (the columns after t; zeros
+// where an arm had no row) and MatchedSumsSQL's one row (nil without
+// matching).
+func NewSums(spec RunSums, arms [2][]float64, matched []float64) *Sums {
+	s := &Sums{Spec: spec}
+	bw, width := spec.BalanceWidth(), spec.Adjustments()*spec.BalanceWidth()+len(spec.Outcomes)*spec.EffectAdjustments()*EffectWidth
+	for g := range arms {
+		if arms[g] == nil {
+			arms[g] = make([]float64, width)
+		}
+	}
+	for a := range spec.Adjustments() {
+		var b [2]BalanceSums
+		for g := range 2 {
+			v := arms[g][a*bw : (a+1)*bw]
+			b[g] = BalanceSums{W: v[0], W2: v[1], Terms: v[2:]}
+		}
+		s.Balance = append(s.Balance, b)
+	}
+	for o := range spec.Outcomes {
+		var per [][2]ArmSums
+		for a := range spec.EffectAdjustments() {
+			var e [2]ArmSums
+			for g := range 2 {
+				v := arms[g][spec.Adjustments()*bw+(o*spec.EffectAdjustments()+a)*EffectWidth:]
+				e[g] = ArmSums{N: v[0], Missing: v[1], W: v[2], WY: v[3], W2Y2: v[4], W2Y: v[5], W2: v[6], NonBinary: v[7]}
+			}
+			per = append(per, e)
+		}
+		s.Effects = append(s.Effects, per)
+	}
+	for o := 0; o+MatchedWidth <= len(matched); o += MatchedWidth {
+		v := matched[o : o+MatchedWidth]
+		set := SetSums{G: v[0], T: ArmSums{N: v[1], Missing: v[3], W: v[5], WY: v[6]}, C: ArmSums{N: v[2], Missing: v[4], W: v[7], WY: v[8]}}
+		// v[9..18]: AtAt AtBt BtBt AcAc AcBc BcBc AtAc AtBc BtAc BtBc
+		m := &set.M
+		m[0][0], m[0][1], m[1][1] = v[9], v[10], v[11]
+		m[2][2], m[2][3], m[3][3] = v[12], v[13], v[14]
+		m[0][2], m[0][3], m[1][2], m[1][3] = v[15], v[16], v[17], v[18]
+		for i := range 4 {
+			for j := range i {
+				m[i][j] = m[j][i]
+			}
+		}
+		s.Matched = append(s.Matched, set)
+	}
+	return s
+}

@@ -6,24 +6,35 @@ import (
 	"strings"
 )
 
-// ScalePublisher is what warehouse-scale mode needs inside the publish
-// transaction besides InWarehouse.ScoreInto: the cohort snapshot written
-// with INSERT … SELECT, and read-back queries (the balance view, effect
-// sums) over the rows the transaction has written so far. Both run on the
-// engine's one connection without beginning or ending a transaction.
+// ScalePublisher is the optional engine interface of warehouse-scale
+// publishing (score.fit_in: warehouse): BeginScale opens the publish
+// transaction as a ScaleTx, which the caller drives in order.
 type ScalePublisher interface {
-	// SnapshotInto writes the run's cohort snapshot with SnapshotSQL.
-	SnapshotInto(ctx context.Context, out Output, runID string, q CohortQuery, d *DesignSQL) error
-	// QueryRows runs a query built by this package (RunSumsSQL,
-	// MatchedSumsSQL, BalanceLevelsSQL) and returns its rows: numbers as
-	// float64, text as string, booleans as bool, NULL as nil.
-	QueryRows(ctx context.Context, query string, args ...any) ([][]any, error)
-	// LateralLevels reports whether the engine's planner merges derived
-	// tables into their parent and copies each column's defining
-	// expression into every reference (Postgres), so that queries built
-	// here compute per-row values in LATERAL function scans instead
-	// (RunSumsSQL's lateral argument; chainLevels).
-	LateralLevels() bool
+	BeginScale(ctx context.Context, out Output, runID string) (ScaleTx, error)
+}
+
+// ScaleTx is one warehouse-scale publish transaction, on the engine's
+// one session: WriteMatches, WriteSnapshot, WriteScores, RunSums, Finish,
+// then Commit. Rollback undoes it whatever was done (and is a no-op after
+// Commit); every row and the run's final status become visible together
+// or not at all. The runs row must exist (StartRun).
+type ScaleTx interface {
+	// WriteMatches writes the match rows; ids holds only the unit ids
+	// and the treatment the rows point at.
+	WriteMatches(ctx context.Context, ids *Cohort, rows MatchRows) error
+	// WriteSnapshot writes the cohort snapshot from the cohort query by
+	// INSERT … SELECT (SnapshotSQL).
+	WriteSnapshot(ctx context.Context, q CohortQuery, d *DesignSQL) error
+	// WriteScores writes the scores and weights rows (InWarehouse.ScoreInto).
+	WriteScores(ctx context.Context, q CohortQuery, d *DesignSQL, coef []float64, sup Support, schemes []string) error
+	// RunSums reads the balance and effect sums of the rows written so
+	// far (RunSumsSQL, and MatchedSumsSQL when spec.Matched).
+	RunSums(ctx context.Context, spec RunSums) (*Sums, error)
+	// Finish writes p.Run as the final runs row, p.Effects, retention and
+	// the views.
+	Finish(ctx context.Context, p *Publication) error
+	Commit(ctx context.Context) error
+	Rollback(ctx context.Context)
 }
 
 // SnapshotSQL returns the INSERT … SELECT that writes the run's cohort

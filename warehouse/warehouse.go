@@ -227,15 +227,6 @@ type Publication struct {
 	// Effects, one row per outcome × adjustment × contrast; written to
 	// {prefix}effects.
 	Effects []EffectRecord
-	// InTx, when set, is warehouse-scale mode's share of the publish
-	// transaction (score.fit_in: warehouse). The engine calls it inside
-	// that transaction, on the same connection, after writing the matches
-	// and before the final runs row: it writes the cohort snapshot,
-	// scores and weights itself with INSERT … SELECT and may then read
-	// them back (balance, effect sums) to set Run's status and JSON and
-	// Effects. Cohort then holds only unit ids and the treatment, for the
-	// matches rows; PS, LogitPS, InSupport and Weights are empty.
-	InTx func(ctx context.Context) error
 }
 
 // EffectRecord is one row of {prefix}effects: one effect estimate of one

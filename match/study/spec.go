@@ -176,7 +176,6 @@ const (
 
 // Known values of the enumerated keys.
 var (
-	engines    = []string{"duckdb", "postgres"}
 	models     = []string{"logistic", "ridge"}
 	fitIns     = []string{"memory", "warehouse"}
 	supports   = score.SupportRules
@@ -200,10 +199,10 @@ func Load(path string) (*Spec, error) {
 	if err != nil {
 		return nil, err
 	}
-	// A DuckDB file named relative to the study file is found beside it,
-	// so a study runs the same from cron as from its own directory.
-	if s.Warehouse.Engine == "duckdb" && !filepath.IsAbs(s.Warehouse.DSN) && s.Warehouse.DSN != ":memory:" {
-		s.Warehouse.DSN = filepath.Join(filepath.Dir(path), s.Warehouse.DSN)
+	// The engine says how a DSN given in a study file is read (a DuckDB
+	// file named relative to it is found beside it).
+	if e, ok := warehouse.Lookup(s.Warehouse.Engine); ok && e.ResolveDSN != nil {
+		s.Warehouse.DSN = e.ResolveDSN(s.Warehouse.DSN, filepath.Dir(path))
 	}
 	if s.Output.Report != "" && !filepath.IsAbs(s.Output.Report) {
 		s.Output.Report = filepath.Join(filepath.Dir(path), s.Output.Report)
@@ -469,11 +468,16 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if !studyName.MatchString(s.Study) || len(s.Study) > 40 {
 		return bad("study", "%q is not a valid name; use lower-case letters, digits and _ (start with a letter, at most 40)", s.Study)
 	}
-	if err := enum("warehouse.engine", &s.Warehouse.Engine, "duckdb", engines); err != nil {
+	engines, defaultEngine := warehouse.EngineNames()
+	if err := enum("warehouse.engine", &s.Warehouse.Engine, defaultEngine, engines); err != nil {
 		return err
 	}
 	if s.Warehouse.DSN == "" {
-		return bad("warehouse.dsn", "missing; give a DuckDB file path or a postgres:// URL")
+		var hints []string
+		for _, e := range warehouse.Engines() {
+			hints = append(hints, e.DSNHint)
+		}
+		return bad("warehouse.dsn", "missing; give %s", strings.Join(hints, " or "))
 	}
 	c := &s.Cohort
 	if strings.TrimSpace(c.SQL) == "" {
@@ -627,12 +631,8 @@ func (s *Spec) validate(doc *yaml.Node) error {
 		return err
 	}
 	o := &s.Output
-	if o.Schema == "" {
-		if s.Warehouse.Engine == "postgres" {
-			o.Schema = "public"
-		} else {
-			o.Schema = "main"
-		}
+	if e, ok := warehouse.Lookup(s.Warehouse.Engine); ok && o.Schema == "" {
+		o.Schema = e.DefaultSchema
 	}
 	if err := warehouse.ValidIdent(o.Schema); err != nil {
 		return bad("output.schema", "%v", err)

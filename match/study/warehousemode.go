@@ -163,8 +163,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	for i, k := range d.CovKinds(q) {
 		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: q.Covariates[i], Kind: k})
 	}
-	c, err := warehouse.NewContract(out)
-	if err != nil {
+	if _, err := warehouse.NewContract(out); err != nil {
 		return sum, fmt.Errorf("publish: %w", err)
 	}
 	rec := warehouse.RunRecord{
@@ -176,47 +175,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		return sum, fmt.Errorf("start run: %w", err)
 	}
 	rec.Status = warehouse.StatusSucceeded
-	pub := &warehouse.Publication{Run: rec, Cohort: thin, Matches: rows}
-	pub.InTx = func(ctx context.Context) error {
-		if err := sp.SnapshotInto(ctx, out, sum.RunID, q, d); err != nil {
-			return err
-		}
-		if err := iw.ScoreInto(ctx, out, sum.RunID, q, d, fit.Coef, sup, s.Schemes()); err != nil {
-			return err
-		}
-		rs, err := runSumsInWarehouse(ctx, sp, c, sum.RunID, warehouse.RunSums{
-			Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
-			Schemes: s.Schemes(), Design: d, Coef: fit.Coef, Support: sup, Outcomes: q.Outcomes})
-		if err != nil {
-			return fmt.Errorf("balance: %w", err)
-		}
-		balanceInWarehouse(rs, s, sum)
-		if err := effectsInWarehouse(ctx, sp, c, s, sum, rs); err != nil {
-			return err
-		}
-		r := &pub.Run
-		if !sum.Gate.Pass {
-			if s.Balance.OnFail == "reject" {
-				r.Status, r.Message = warehouse.StatusRejected, sum.Gate.Message
-			} else {
-				r.Message = "balance warning: " + sum.Gate.Message
-			}
-		}
-		sum.Status, sum.Message = r.Status, r.Message
-		r.CountsJSON = mustJSON(sum.Counts)
-		r.ModelJSON = mustJSON(sum.Model)
-		r.BalanceJSON = mustJSON(struct {
-			Gate        Gate                `json:"gate"`
-			Adjustments []AdjustmentBalance `json:"adjustments"`
-		}{sum.Gate, sum.Balance})
-		r.EffectsJSON = mustJSON(sum.Effects)
-		r.FinishedAt = now().UTC()
-		sum.FinishedAt = r.FinishedAt
-		r.SummaryJSON = mustJSON(sum)
-		pub.Effects = effectRecords(sum.Effects)
-		return nil
-	}
-	if err := wh.Publish(ctx, out, pub); err != nil {
+	pub := &warehouse.Publication{Run: rec}
+	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, now); err != nil {
 		msg := err.Error()
 		fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 		defer cancel()
@@ -229,6 +189,62 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		return sum, fmt.Errorf("%w: %s", ErrRejected, sum.Gate.Message)
 	}
 	return sum, nil
+}
+
+// publishInWarehouse drives the publish transaction in order: matches,
+// snapshot, scores and weights, the sums of the rows just written (which
+// settle the balance, the effects and the run's status), the final runs
+// row, commit. Any error rolls all of it back.
+func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out warehouse.Output, s *Spec, q warehouse.CohortQuery, d *warehouse.DesignSQL,
+	coef []float64, sup warehouse.Support, thin *warehouse.Cohort, rows warehouse.MatchRows, sum *Summary, pub *warehouse.Publication, now func() time.Time) error {
+	tx, err := sp.BeginScale(ctx, out, sum.RunID)
+	if err != nil {
+		return err
+	}
+	defer tx.Rollback(ctx)
+	if err := tx.WriteMatches(ctx, thin, rows); err != nil {
+		return err
+	}
+	if err := tx.WriteSnapshot(ctx, q, d); err != nil {
+		return err
+	}
+	if err := tx.WriteScores(ctx, q, d, coef, sup, s.Schemes()); err != nil {
+		return err
+	}
+	rs, err := tx.RunSums(ctx, warehouse.RunSums{
+		Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
+		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: q.Outcomes})
+	if err != nil {
+		return fmt.Errorf("balance: %w", err)
+	}
+	balanceInWarehouse(rs, s, sum)
+	if err := effectsInWarehouse(s, sum, rs); err != nil {
+		return err
+	}
+	r := &pub.Run
+	if !sum.Gate.Pass {
+		if s.Balance.OnFail == "reject" {
+			r.Status, r.Message = warehouse.StatusRejected, sum.Gate.Message
+		} else {
+			r.Message = "balance warning: " + sum.Gate.Message
+		}
+	}
+	sum.Status, sum.Message = r.Status, r.Message
+	r.CountsJSON = mustJSON(sum.Counts)
+	r.ModelJSON = mustJSON(sum.Model)
+	r.BalanceJSON = mustJSON(struct {
+		Gate        Gate                `json:"gate"`
+		Adjustments []AdjustmentBalance `json:"adjustments"`
+	}{sum.Gate, sum.Balance})
+	r.EffectsJSON = mustJSON(sum.Effects)
+	r.FinishedAt = now().UTC()
+	sum.FinishedAt = r.FinishedAt
+	r.SummaryJSON = mustJSON(sum)
+	pub.Effects = effectRecords(sum.Effects)
+	if err := tx.Finish(ctx, pub); err != nil {
+		return fmt.Errorf("run %s: %w", sum.RunID, err)
+	}
+	return tx.Commit(ctx)
 }
 
 func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }
@@ -275,27 +291,13 @@ func adjustmentNames(s *Spec) []string {
 	return append(names, s.Schemes()...)
 }
 
-func numOf(v any) float64 {
-	if f, ok := v.(float64); ok {
-		return f
-	}
-	return math.NaN()
-}
-
-func textOf(v any) string {
-	if t, ok := v.(string); ok {
-		return t
-	}
-	return ""
-}
-
 // balanceInWarehouse computes this run's balance statistics with the
-// balance_history view's definitions from RunSumsSQL's one aggregate pass
+// balance_history view's definitions from the one aggregate pass
 // over the rows just written (balanceFromSums), judges them with
 // balance.Judge as the in-memory path does, and sets the gate. ESS per
 // arm: (Σw)²/Σw² from the same sums (the arm sizes unadjusted; the summed
 // set weights for matched).
-func balanceInWarehouse(rs *runSums, s *Spec, sum *Summary) {
+func balanceInWarehouse(rs *warehouse.Sums, s *Spec, sum *Summary) {
 	adjs := adjustmentNames(s)
 	byAdj := balanceFromSums(rs, adjs)
 	pos := map[string]int{}
@@ -306,8 +308,8 @@ func balanceInWarehouse(rs *runSums, s *Spec, sum *Summary) {
 	for a, name := range adjs {
 		var e [2]float64 // treated, comparison
 		for g := range 2 {
-			if b := rs.balance(a, g); b[1] > 0 {
-				e[1-g] = b[0] * b[0] / b[1]
+			if b := rs.Balance[a][g]; b.W2 > 0 {
+				e[1-g] = b.W * b.W / b.W2
 			}
 		}
 		ess[name] = e

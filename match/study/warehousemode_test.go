@@ -58,15 +58,20 @@ func compareModes(t *testing.T, edit, schemes []string) {
 	runs := map[string]*Summary{}
 	for _, mode := range []string{"memory", "warehouse"} {
 		text := fmt.Sprintf(BenchStudy, dsn)
-		text = strings.Replace(text, "select * from synth.cohort", "select * from synth.cohort order by unit_id", 1)
-		text = strings.Replace(text, "bench_run_", "m_"+mode+"_", 1)
+		text = mustReplace(t, text, "select * from synth.cohort", "select * from synth.cohort order by unit_id")
+		text = mustReplace(t, text, "bench_run_", "m_"+mode+"_")
 		for i := 0; i+1 < len(edit); i += 2 {
-			text = strings.Replace(text, edit[i], edit[i+1], 1)
+			text = mustReplace(t, text, edit[i], edit[i+1])
 		}
-		text = strings.Replace(text, "\nmatching:", "\nscore:\n  fit_in: "+mode+"\nmatching:", 1)
+		text = mustReplace(t, text, "\nmatching:", "\nscore:\n  fit_in: "+mode+"\nmatching:")
 		s, err := Parse("bench.yaml", []byte(text), nil)
 		if err != nil {
 			t.Fatal(err)
+		}
+		// The comparison means nothing unless the second run really is
+		// warehouse-scale (which records no cohort fingerprint).
+		if s.Score.FitIn != mode {
+			t.Fatalf("study parsed with fit_in %q, want %q", s.Score.FitIn, mode)
 		}
 		wh, err := duckdb.Open(ctx, dsn)
 		if err != nil {
@@ -76,6 +81,9 @@ func compareModes(t *testing.T, edit, schemes []string) {
 		wh.Close()
 		if err != nil {
 			t.Fatalf("%s: %v", mode, err)
+		}
+		if (sum.Fingerprint == "") != (mode == "warehouse") {
+			t.Fatalf("%s run: cohort fingerprint %q; the run did not take the %s path", mode, sum.Fingerprint, mode)
 		}
 		runs[mode] = sum
 	}
@@ -194,4 +202,14 @@ func relDiff(a, b float64) float64 {
 		return 0
 	}
 	return math.Abs(a-b) / math.Max(math.Abs(a), 1e-300)
+}
+
+// mustReplace replaces the first old in text, failing the test when the
+// benchmark study no longer holds it (the template drifted).
+func mustReplace(t *testing.T, text, old, new string) string {
+	t.Helper()
+	if !strings.Contains(text, old) {
+		t.Fatalf("the benchmark study no longer contains %q; update the test's edits", old)
+	}
+	return strings.Replace(text, old, new, 1)
 }

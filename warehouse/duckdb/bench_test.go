@@ -40,7 +40,7 @@ func benchCohort(b *testing.B) (*Warehouse, warehouse.CohortQuery) {
 	}
 	ddl := fmt.Sprintf(`CREATE TABLE big AS SELECT i AS id, random() < 0.3 AS treated, %s,
 		random() AS y1, CAST(random() < 0.2 AS DOUBLE) AS y2 FROM range(%d) t(i)`, strings.Join(cols, ", "), benchRows)
-	if _, err := w.exec(ctx, ddl); err != nil {
+	if _, err := w.conn.ExecContext(ctx, ddl); err != nil {
 		b.Fatal(err)
 	}
 	return w, q
@@ -142,7 +142,7 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 	for j := range ncol {
 		defs = append(defs, fmt.Sprintf("v%d DOUBLE", j))
 	}
-	if _, err := w.exec(ctx, "CREATE TABLE app ("+strings.Join(defs, ", ")+")"); err != nil {
+	if _, err := w.conn.ExecContext(ctx, "CREATE TABLE app ("+strings.Join(defs, ", ")+")"); err != nil {
 		b.Fatal(err)
 	}
 	data := make([][]float64, ncol)
@@ -154,7 +154,7 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 	}
 	b.ResetTimer()
 	for b.Loop() {
-		if _, err := w.exec(ctx, "BEGIN TRANSACTION"); err != nil {
+		if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
 			b.Fatal(err)
 		}
 		err := w.conn.Raw(func(dc any) error {
@@ -176,7 +176,7 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		if _, err := w.exec(ctx, "ROLLBACK"); err != nil {
+		if _, err := w.conn.ExecContext(ctx, "ROLLBACK"); err != nil {
 			b.Fatal(err)
 		}
 	}

@@ -15,6 +15,7 @@ import (
 
 	sqltext "counterpart/sql"
 	"counterpart/warehouse"
+	"counterpart/warehouse/sqlcore"
 )
 
 // Bulk writes go through a table function that hands DuckDB our columnar
@@ -25,33 +26,13 @@ import (
 // DuckDB. Being an ordinary INSERT, it takes part in the open transaction
 // like any other statement.
 
-// bulkCol is one source column. Exactly one of the slices is set; idx,
-// when set, makes row r read element idx[r] (matches rows point into the
-// cohort's unit ids).
-type bulkCol struct {
-	f64  []float64 // NaN is written as NULL
-	i64  []int64
-	i32  []int32
-	b    []bool
-	s    []string
-	idx  []int
-	kind duckdb.Type
-}
-
-func (c bulkCol) at(r int) int {
-	if c.idx != nil {
-		return c.idx[r]
-	}
-	return r
-}
-
 // bulkSource serves one INSERT's columns to DuckDB. DuckDB may call
 // FillChunk from several threads at once; each call claims the next block
 // of rows atomically, so the threads fill disjoint chunks. (Row order in
 // the table then follows the threads, which is fine: the contract's
 // tables are keyed by run, set and unit, not by position.)
 type bulkSource struct {
-	cols  []bulkCol
+	cols  []sqlcore.BulkCol
 	n     int
 	next  atomic.Int64
 	infos []duckdb.ColumnInfo
@@ -79,22 +60,22 @@ func (s *bulkSource) FillChunk(_ any, ch duckdb.DataChunk) error {
 	for j, c := range s.cols {
 		var err error
 		for r := 0; r < size && err == nil; r++ {
-			i := c.at(off + r)
+			i := c.At(off + r)
 			switch {
-			case c.f64 != nil:
-				if v := c.f64[i]; math.IsNaN(v) {
+			case c.F64 != nil:
+				if v := c.F64[i]; math.IsNaN(v) {
 					err = ch.SetValue(j, r, nil)
 				} else {
 					err = duckdb.SetChunkValue(ch, j, r, v)
 				}
-			case c.i64 != nil:
-				err = duckdb.SetChunkValue(ch, j, r, c.i64[i])
-			case c.i32 != nil:
-				err = duckdb.SetChunkValue(ch, j, r, c.i32[i])
-			case c.b != nil:
-				err = duckdb.SetChunkValue(ch, j, r, c.b[i])
-			case c.s != nil:
-				err = duckdb.SetChunkValue(ch, j, r, c.s[i])
+			case c.I64 != nil:
+				err = duckdb.SetChunkValue(ch, j, r, c.I64[i])
+			case c.Codes != nil:
+				err = duckdb.SetChunkValue(ch, j, r, c.Codes[i])
+			case c.B != nil:
+				err = duckdb.SetChunkValue(ch, j, r, c.B[i])
+			case c.S != nil:
+				err = duckdb.SetChunkValue(ch, j, r, c.S[i])
 			}
 		}
 		if err != nil {
@@ -115,7 +96,7 @@ type bulk struct {
 
 // registerBulk adds this connection's bulk table function under a name of
 // its own, so several open warehouses in one process never collide.
-func registerBulk(ctx context.Context, w *Warehouse) error {
+func registerBulk(w *Warehouse) error {
 	var b [6]byte
 	if _, err := rand.Read(b[:]); err != nil {
 		return err
@@ -145,39 +126,41 @@ func registerBulk(ctx context.Context, w *Warehouse) error {
 	return nil
 }
 
-// bulkTarget is one column of the target table and the SQL expression
-// that fills it from the source column named src (or a constant).
-type bulkTarget struct {
-	name string
-	expr string // uses the placeholder {} for the source column
-	col  *bulkCol
-}
-
-// insertBulk runs INSERT INTO schema.table (names) SELECT $1, exprs FROM
-// the bulk function, with $1 the run id.
-func (w *Warehouse) insertBulk(ctx context.Context, schema, table, runID string, targets []bulkTarget, n int) error {
-	if w.bulk == nil {
+// Bulk runs INSERT INTO table (run_id, names) SELECT $1, exprs FROM the
+// bulk function, with $1 the run id; categorical codes become their level
+// text inside DuckDB.
+func (a *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.BulkCol, n int) error {
+	if a.bulk == nil {
 		return fmt.Errorf("bulk writes need a read-write warehouse")
 	}
-	src := &bulkSource{n: n}
+	src := &bulkSource{n: n, cols: cols}
 	names := []string{warehouse.Quote("run_id")}
 	exprs := []string{"$1"}
-	for _, t := range targets {
-		names = append(names, warehouse.Quote(t.name))
-		colName := fmt.Sprintf("c%d", len(src.cols))
-		info, err := duckdb.NewTypeInfo(t.col.kind)
+	for i, c := range cols {
+		kind, expr := duckdb.TYPE_DOUBLE, fmt.Sprintf("c%d", i)
+		switch {
+		case c.I64 != nil:
+			kind = duckdb.TYPE_BIGINT
+		case c.Codes != nil:
+			quoted := make([]string, len(c.Levels))
+			for i, l := range c.Levels {
+				quoted[i] = sqltext.Literal(l)
+			}
+			kind, expr = duckdb.TYPE_INTEGER, "(["+strings.Join(quoted, ", ")+"]::VARCHAR[])["+expr+" + 1]"
+		case c.B != nil:
+			kind = duckdb.TYPE_BOOLEAN
+		case c.S != nil:
+			kind = duckdb.TYPE_VARCHAR
+		}
+		info, err := duckdb.NewTypeInfo(kind)
 		if err != nil {
 			return err
 		}
-		src.cols = append(src.cols, *t.col)
-		src.infos = append(src.infos, duckdb.ColumnInfo{Name: colName, T: info})
-		expr := colName
-		if t.expr != "" {
-			expr = strings.ReplaceAll(t.expr, "{}", colName)
-		}
+		src.infos = append(src.infos, duckdb.ColumnInfo{Name: fmt.Sprintf("c%d", i), T: info})
+		names = append(names, warehouse.Quote(c.Name))
 		exprs = append(exprs, expr)
 	}
-	b := w.bulk
+	b := a.bulk
 	b.mu.Lock()
 	b.next++
 	key := b.next
@@ -188,19 +171,7 @@ func (w *Warehouse) insertBulk(ctx context.Context, schema, table, runID string,
 		delete(b.pending, key)
 		b.mu.Unlock()
 	}()
-	q := fmt.Sprintf("INSERT INTO %s (%s) SELECT %s FROM %s(%d)",
-		warehouse.QuoteQualified(schema, table), strings.Join(names, ", "), strings.Join(exprs, ", "), b.name, key)
-	if _, err := w.exec(ctx, q, runID); err != nil {
-		return fmt.Errorf("insert into %s: %w", table, dbErr(err))
-	}
-	return nil
-}
-
-// levelsExpr maps a 0-based code column to its level text.
-func levelsExpr(levels []string) string {
-	quoted := make([]string, len(levels))
-	for i, l := range levels {
-		quoted[i] = sqltext.Literal(l)
-	}
-	return "([" + strings.Join(quoted, ", ") + "]::VARCHAR[])[{} + 1]"
+	q := fmt.Sprintf("INSERT INTO %s (%s) SELECT %s FROM %s(%d)", table, strings.Join(names, ", "), strings.Join(exprs, ", "), b.name, key)
+	_, err := a.conn.ExecContext(ctx, q, runID)
+	return err
 }

@@ -70,7 +70,7 @@ var engine = warehousetest.Engine{
 	// flock conflicts between two open files even in one process, so the
 	// same handle stands for another session.
 	Other:      func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
-	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
+	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).Fault = f },
 	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
 }
 

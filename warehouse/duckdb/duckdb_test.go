@@ -296,7 +296,7 @@ func TestOpen(t *testing.T) {
 	if err != nil || c.N() != 4 {
 		t.Fatalf("read-only read: %v", err)
 	}
-	if _, err := ro.exec(ctx, "CREATE TABLE x (i INTEGER)"); err == nil {
+	if _, err := ro.conn.ExecContext(ctx, "CREATE TABLE x (i INTEGER)"); err == nil {
 		t.Error("a read-only handle created a table")
 	}
 	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr"}

@@ -24,14 +24,8 @@ var errHeld = errors.New("lock held")
 // while this one has the database open read-write; the sidecar lock holds
 // per study rather than per file, and also against tools that open the
 // file one after another.
-func (w *Warehouse) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
-	if err := warehouse.ValidIdent(out.Schema); err != nil {
-		return nil, fmt.Errorf("lock: output.schema: %w", err)
-	}
-	if err := warehouse.ValidIdent(out.Study); err != nil {
-		return nil, fmt.Errorf("lock: study: %w", err)
-	}
-	path := w.path + "." + out.Schema + "." + out.Study + ".lock"
+func (a *adapter) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
+	path := a.path + "." + out.Schema + "." + out.Study + ".lock"
 	host, _ := os.Hostname()
 	info := fmt.Sprintf("pid %d on %s since %s\n", os.Getpid(), host, time.Now().UTC().Format(time.RFC3339))
 	release, err := lockFile(path, info)
@@ -45,14 +39,9 @@ func (w *Warehouse) Lock(ctx context.Context, out warehouse.Output) (func() erro
 			warehouse.ErrLocked, out.Study, out.Schema, h, path)
 	}
 	if err != nil {
-		return nil, fmt.Errorf("lock %s: %w", path, err)
+		return nil, fmt.Errorf("lock file %s: %w", path, err)
 	}
-	released := false
 	return func() error {
-		if released {
-			return nil
-		}
-		released = true
 		if err := release(); err != nil {
 			return fmt.Errorf("unlock %s: %w", path, err)
 		}

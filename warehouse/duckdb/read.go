@@ -2,49 +2,26 @@ package duckdb
 
 import (
 	"context"
+	"database/sql"
 	"database/sql/driver"
 	"encoding/json"
 	"fmt"
+	"math"
+	"math/big"
+	"strconv"
 	"strings"
+	"time"
 
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	sqltext "counterpart/sql"
 	"counterpart/warehouse"
+	"counterpart/warehouse/sqlcore"
 )
 
-// ReadCohort runs q.SQL on the dedicated connection inside BEGIN
-// TRANSACTION READ ONLY (always rolled back) and decodes the result into a
-// columnar Cohort following the rules on warehouse.CohortQuery. Before it
-// runs, DuckDB's parser must see exactly one SELECT and DuckDB must prepare
-// it as a SELECT (checkSelect); anything else is refused with an error
-// wrapping warehouse.ErrBadInput, and nothing of it runs. The read-only
-// transaction stops what a SELECT could still write (nextval, say).
-//
-// DuckDB-specific decoding: DATE covariates become numbers of days since
-// 1970-01-01 (or their ISO text when listed as categorical); DECIMAL and
-// HUGEINT values become float64 (the nearest double).
-func (w *Warehouse) ReadCohort(ctx context.Context, q warehouse.CohortQuery) (*warehouse.Cohort, error) {
-	if err := warehouse.CheckRoles(q); err != nil {
-		return nil, err
-	}
-	if _, err := w.exec(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
-		return nil, fmt.Errorf("begin read-only transaction: %w", dbErr(err))
-	}
-	defer w.rollback(ctx)
-	if err := w.checkSelect(ctx, q.SQL); err != nil {
-		return nil, err
-	}
-	rows, err := w.conn.QueryContext(ctx, q.SQL)
-	if err != nil {
-		return nil, fmt.Errorf("cohort.sql: %w", queryError(err))
-	}
-	defer rows.Close()
-	return decode(rows, q)
-}
-
-// checkSelect refuses anything but one SELECT, in two steps, before the
-// text runs:
+// CheckSelect refuses anything but one SELECT, in two steps, before the
+// text runs (the read-only transaction then stops what a SELECT could
+// still write, nextval say):
 //
 //  1. DuckDB's parser alone (json_serialize_sql, which serializes only
 //     SELECT statements) must see exactly one SELECT. Nothing is bound, so
@@ -53,36 +30,35 @@ func (w *Warehouse) ReadCohort(ctx context.Context, q warehouse.CohortQuery) (*w
 //  2. DuckDB prepares the text and its statement type must be SELECT. The
 //     driver's Prepare without a context is used on purpose: with a context
 //     duckdb-go runs every statement but the last while preparing.
-func (w *Warehouse) checkSelect(ctx context.Context, text string) error {
+func (a *adapter) CheckSelect(ctx context.Context, text string) error {
 	// json_serialize_sql needs its argument at bind time: a literal, not a
 	// parameter. Literal doubles quotes; DuckDB string literals have no
 	// other escapes.
 	var parsed string
 	q := "SELECT CAST(json_serialize_sql(" + sqltext.Literal(text) + ") AS VARCHAR)"
-	if err := w.conn.QueryRowContext(ctx, q).Scan(&parsed); err != nil {
-		return fmt.Errorf("cohort.sql: parse: %w", dbErr(err))
+	if err := a.conn.QueryRowContext(ctx, q).Scan(&parsed); err != nil {
+		return fmt.Errorf("cohort.sql: parse: %w", dialect.Err(err))
 	}
 	var p struct {
-		Error        bool              `json:"error"`
-		ErrorType    string            `json:"error_type"`
-		ErrorMessage string            `json:"error_message"`
-		Statements   []json.RawMessage `json:"statements"`
+		Error      bool              `json:"error"`
+		ErrorType  string            `json:"error_type"`
+		Statements []json.RawMessage `json:"statements"`
 	}
 	if err := json.Unmarshal([]byte(parsed), &p); err != nil {
 		return fmt.Errorf("cohort.sql: parse: %w", err)
 	}
-	switch {
+	writes := "%w: cohort.sql: the query writes (%s); the cohort query must only read — move writes to your ETL"
+	switch kw := sqlcore.FirstKeyword(text, false); {
 	case p.Error && p.ErrorType != "parser":
 		// Not a SELECT. Name it by its first keyword; never prepare it.
-		kw := firstKeyword(text)
-		switch {
-		case kw == "" || kw == "(" || kw == "WITH" || kw == "SELECT" || kw == "FROM" || kw == "VALUES":
+		switch kw {
+		case "", "(", "WITH", "SELECT", "FROM", "VALUES":
 			// A WITH before an INSERT, or a second statement after a SELECT.
 			return fmt.Errorf("%w: cohort.sql holds a statement other than a SELECT; the cohort query must be a single SELECT that only reads — move writes to your ETL", warehouse.ErrBadInput)
-		case readingKeywords[kw]:
+		case "EXPLAIN", "PRAGMA", "PIVOT", "UNPIVOT", "CALL", "DESCRIBE", "SHOW", "SUMMARIZE":
 			return fmt.Errorf("%w: cohort.sql is a %s statement; the cohort query must be a single SELECT", warehouse.ErrBadInput, kw)
 		}
-		return fmt.Errorf("%w: cohort.sql: the query writes (%s); the cohort query must only read — move writes to your ETL", warehouse.ErrBadInput, kw)
+		return fmt.Errorf(writes, warehouse.ErrBadInput, kw)
 	case !p.Error && len(p.Statements) == 0:
 		return fmt.Errorf("%w: cohort.sql is empty; write a SELECT that returns one row per unit", warehouse.ErrBadInput)
 	case !p.Error && len(p.Statements) > 1:
@@ -90,12 +66,8 @@ func (w *Warehouse) checkSelect(ctx context.Context, text string) error {
 	}
 	// A parser error falls through: preparing reports it in DuckDB's usual
 	// words, and a text that does not parse cannot be bound.
-	return w.conn.Raw(func(dc any) error {
-		conn, ok := dc.(driver.Conn)
-		if !ok {
-			return fmt.Errorf("cohort.sql: unexpected driver connection %T", dc)
-		}
-		st, err := conn.Prepare(text)
+	return a.conn.Raw(func(dc any) error {
+		st, err := dc.(driver.Conn).Prepare(text)
 		if err != nil {
 			if strings.Contains(err.Error(), "multi-statement") {
 				return fmt.Errorf("%w: cohort.sql holds more than one statement; write a single SELECT", warehouse.ErrBadInput)
@@ -103,11 +75,7 @@ func (w *Warehouse) checkSelect(ctx context.Context, text string) error {
 			return fmt.Errorf("cohort.sql: %w", queryError(err))
 		}
 		defer st.Close()
-		ds, ok := st.(*duckdb.Stmt)
-		if !ok {
-			return fmt.Errorf("cohort.sql: unexpected driver statement %T", st)
-		}
-		typ, err := ds.StatementType()
+		typ, err := st.(*duckdb.Stmt).StatementType()
 		if err != nil {
 			return fmt.Errorf("cohort.sql: statement type: %w", err)
 		}
@@ -118,77 +86,174 @@ func (w *Warehouse) checkSelect(ctx context.Context, text string) error {
 		if !known {
 			name = fmt.Sprintf("statement type %d", typ)
 		}
-		return fmt.Errorf("%w: cohort.sql: the query writes (%s); the cohort query must only read — move writes to your ETL", warehouse.ErrBadInput, name)
+		return fmt.Errorf(writes, warehouse.ErrBadInput, name)
 	})
-}
-
-// firstKeyword returns the first word of an SQL text in upper case,
-// skipping blanks and comments; "(" when the text starts with one.
-func firstKeyword(text string) string {
-	s := text
-	for {
-		s = strings.TrimLeft(s, " \t\r\n\f")
-		switch {
-		case strings.HasPrefix(s, "--"):
-			if i := strings.IndexByte(s, '\n'); i >= 0 {
-				s = s[i+1:]
-				continue
-			}
-			return ""
-		case strings.HasPrefix(s, "/*"):
-			if i := strings.Index(s, "*/"); i >= 0 {
-				s = s[i+2:]
-				continue
-			}
-			return ""
-		case strings.HasPrefix(s, "("):
-			return "("
-		}
-		break
-	}
-	end := strings.IndexFunc(s, func(r rune) bool {
-		return !(r >= 'a' && r <= 'z' || r >= 'A' && r <= 'Z' || r == '_')
-	})
-	if end < 0 {
-		end = len(s)
-	}
-	return strings.ToUpper(s[:end])
-}
-
-// readingKeywords start statements that are not SELECTs but do not write
-// either; every other non-SELECT is reported as a write.
-var readingKeywords = map[string]bool{
-	"EXPLAIN": true, "PRAGMA": true, "PIVOT": true, "UNPIVOT": true, "CALL": true,
-	"DESCRIBE": true, "SHOW": true, "SUMMARIZE": true,
 }
 
 // stmtTypes names DuckDB's statement types, for a text that parses as a
 // SELECT yet prepares as something else.
 var stmtTypes = map[duckdb.StmtType]string{
-	duckdb.STATEMENT_TYPE_INSERT:       "INSERT",
-	duckdb.STATEMENT_TYPE_UPDATE:       "UPDATE",
-	duckdb.STATEMENT_TYPE_DELETE:       "DELETE",
-	duckdb.STATEMENT_TYPE_CREATE:       "CREATE",
-	duckdb.STATEMENT_TYPE_CREATE_FUNC:  "CREATE FUNCTION",
-	duckdb.STATEMENT_TYPE_ALTER:        "ALTER",
-	duckdb.STATEMENT_TYPE_DROP:         "DROP",
-	duckdb.STATEMENT_TYPE_COPY:         "COPY",
-	duckdb.STATEMENT_TYPE_ATTACH:       "ATTACH",
-	duckdb.STATEMENT_TYPE_DETACH:       "DETACH",
-	duckdb.STATEMENT_TYPE_EXPORT:       "EXPORT",
-	duckdb.STATEMENT_TYPE_VACUUM:       "VACUUM",
-	duckdb.STATEMENT_TYPE_ANALYZE:      "ANALYZE",
-	duckdb.STATEMENT_TYPE_LOAD:         "LOAD",
-	duckdb.STATEMENT_TYPE_EXTENSION:    "INSTALL/LOAD extension",
-	duckdb.STATEMENT_TYPE_SET:          "SET",
-	duckdb.STATEMENT_TYPE_VARIABLE_SET: "SET VARIABLE",
-	duckdb.STATEMENT_TYPE_TRANSACTION:  "transaction control",
-	duckdb.STATEMENT_TYPE_PREPARE:      "PREPARE",
-	duckdb.STATEMENT_TYPE_EXECUTE:      "EXECUTE",
-	duckdb.STATEMENT_TYPE_EXPLAIN:      "EXPLAIN",
-	duckdb.STATEMENT_TYPE_PRAGMA:       "PRAGMA",
-	duckdb.STATEMENT_TYPE_CALL:         "CALL",
-	duckdb.STATEMENT_TYPE_RELATION:     "relation",
-	duckdb.STATEMENT_TYPE_LOGICAL_PLAN: "logical plan",
-	duckdb.STATEMENT_TYPE_MULTI:        "multi-statement",
+	duckdb.STATEMENT_TYPE_INSERT: "INSERT", duckdb.STATEMENT_TYPE_UPDATE: "UPDATE", duckdb.STATEMENT_TYPE_DELETE: "DELETE",
+	duckdb.STATEMENT_TYPE_CREATE: "CREATE", duckdb.STATEMENT_TYPE_CREATE_FUNC: "CREATE FUNCTION", duckdb.STATEMENT_TYPE_ALTER: "ALTER",
+	duckdb.STATEMENT_TYPE_DROP: "DROP", duckdb.STATEMENT_TYPE_COPY: "COPY", duckdb.STATEMENT_TYPE_ATTACH: "ATTACH",
+	duckdb.STATEMENT_TYPE_DETACH: "DETACH", duckdb.STATEMENT_TYPE_EXPORT: "EXPORT", duckdb.STATEMENT_TYPE_VACUUM: "VACUUM",
+	duckdb.STATEMENT_TYPE_ANALYZE: "ANALYZE", duckdb.STATEMENT_TYPE_LOAD: "LOAD", duckdb.STATEMENT_TYPE_EXTENSION: "INSTALL/LOAD extension",
+	duckdb.STATEMENT_TYPE_SET: "SET", duckdb.STATEMENT_TYPE_VARIABLE_SET: "SET VARIABLE", duckdb.STATEMENT_TYPE_TRANSACTION: "transaction control",
+	duckdb.STATEMENT_TYPE_PREPARE: "PREPARE", duckdb.STATEMENT_TYPE_EXECUTE: "EXECUTE", duckdb.STATEMENT_TYPE_EXPLAIN: "EXPLAIN",
+	duckdb.STATEMENT_TYPE_PRAGMA: "PRAGMA", duckdb.STATEMENT_TYPE_CALL: "CALL", duckdb.STATEMENT_TYPE_RELATION: "relation",
+	duckdb.STATEMENT_TYPE_LOGICAL_PLAN: "logical plan", duckdb.STATEMENT_TYPE_MULTI: "multi-statement",
+}
+
+// classOf reads a result column's DuckDB type name.
+func classOf(dbType string) sqlcore.Class {
+	switch dbType {
+	case "TINYINT", "SMALLINT", "INTEGER", "BIGINT", "HUGEINT", "UTINYINT", "USMALLINT", "UINTEGER", "UBIGINT", "UHUGEINT":
+		return sqlcore.ClassInt
+	case "FLOAT", "DOUBLE":
+		return sqlcore.ClassFloat
+	case "BOOLEAN":
+		return sqlcore.ClassBool
+	case "VARCHAR", "ENUM":
+		return sqlcore.ClassText
+	case "DATE":
+		return sqlcore.ClassDate
+	case "SQLNULL":
+		return sqlcore.ClassNull
+	}
+	if strings.HasPrefix(dbType, "DECIMAL") {
+		return sqlcore.ClassDecimal
+	}
+	return sqlcore.ClassOther
+}
+
+// Columns describes text's result from a LIMIT 0 query (nothing is read).
+func (a *adapter) Columns(ctx context.Context, text string) ([]sqlcore.Column, error) {
+	rows, err := a.conn.QueryContext(ctx, "SELECT * FROM "+warehouse.From(text)+" LIMIT 0")
+	if err != nil {
+		return nil, fmt.Errorf("cohort.sql: %w", queryError(err))
+	}
+	defer rows.Close()
+	return columns(rows.ColumnTypes())
+}
+
+func columns(cts []*sql.ColumnType, err error) ([]sqlcore.Column, error) {
+	if err != nil {
+		return nil, fmt.Errorf("cohort.sql: column types: %w", dialect.Err(err))
+	}
+	cols := make([]sqlcore.Column, len(cts))
+	for i, ct := range cts {
+		cols[i] = sqlcore.Column{Name: ct.Name(), Type: ct.DatabaseTypeName(), Class: classOf(ct.DatabaseTypeName())}
+	}
+	return cols, nil
+}
+
+// Stream runs text on the dedicated connection and hands each used
+// column's values to its sink through a sql.Scanner, so a row costs no
+// allocation beyond the driver's own. DuckDB-specific decoding: DATE
+// becomes days since 1970-01-01 (ISO text when categorical); DECIMAL and
+// HUGEINT become the nearest float64.
+func (a *adapter) Stream(ctx context.Context, text string, open func([]sqlcore.Column) ([]sqlcore.Sink, error)) error {
+	rows, err := a.conn.QueryContext(ctx, text)
+	if err != nil {
+		return fmt.Errorf("cohort.sql: %w", queryError(err))
+	}
+	defer rows.Close()
+	cols, err := columns(rows.ColumnTypes())
+	if err != nil {
+		return err
+	}
+	sinks, err := open(cols)
+	if err != nil {
+		return err
+	}
+	dest := make([]any, len(sinks))
+	for i, s := range sinks {
+		dest[i] = scanner{s}
+	}
+	for n := 1; rows.Next(); n++ {
+		if err := rows.Scan(dest...); err != nil {
+			return fmt.Errorf("cohort.sql: row %d: %w", n, err)
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return fmt.Errorf("cohort.sql: %w", queryError(err))
+	}
+	return nil
+}
+
+// scanner feeds a driver value to a sink (nil: column unused).
+type scanner struct{ s sqlcore.Sink }
+
+func (c scanner) Scan(v any) error {
+	s := c.s
+	if s == nil {
+		return nil
+	}
+	switch t := v.(type) {
+	case nil:
+		s.Null()
+	case bool:
+		s.Bool(t)
+	case int64:
+		s.Int(t)
+	case int32:
+		s.Int(int64(t))
+	case int16:
+		s.Int(int64(t))
+	case int8:
+		s.Int(int64(t))
+	case uint8:
+		s.Int(int64(t))
+	case uint16:
+		s.Int(int64(t))
+	case uint32:
+		s.Int(int64(t))
+	case uint64:
+		if t > math.MaxInt64 {
+			s.Exact(float64(t), strconv.FormatUint(t, 10), true)
+		} else {
+			s.Int(int64(t))
+		}
+	case *big.Int:
+		if t.IsInt64() {
+			s.Int(t.Int64())
+		} else {
+			f, _ := new(big.Float).SetInt(t).Float64()
+			s.Exact(f, t.String(), true)
+		}
+	case float64:
+		s.Float(t)
+	case float32:
+		s.Float(float64(t))
+	case string:
+		s.Text(t)
+	case duckdb.Decimal:
+		s.Exact(decimalFloat(t), t.String(), false)
+	case time.Time:
+		// DuckDB returns a DATE as midnight UTC.
+		days := t.Unix() / 86400
+		if t.Unix()%86400 < 0 {
+			days--
+		}
+		s.Date(float64(days))
+	default:
+		return fmt.Errorf("unexpected %T", v)
+	}
+	return nil
+}
+
+// pow10 holds the exactly representable powers of ten.
+var pow10 = [...]float64{1, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
+	1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}
+
+// decimalFloat is the double nearest a DECIMAL: when the unscaled value and
+// the power of ten are both exact doubles, one IEEE division rounds
+// correctly; otherwise the driver's big.Float path.
+func decimalFloat(d duckdb.Decimal) float64 {
+	if d.Value.IsInt64() && int(d.Scale) < len(pow10) {
+		if v := d.Value.Int64(); v > -(1<<53) && v < 1<<53 {
+			return float64(v) / pow10[d.Scale]
+		}
+	}
+	return d.Float64()
 }

@@ -29,11 +29,11 @@ func retain(t *testing.T, w *Warehouse, status string) ([]any, error) {
 	t.Helper()
 	ctx := context.Background()
 	execSQL(t, w, fmt.Sprintf("UPDATE runs SET status = '%s', finished_at = TIMESTAMPTZ '2026-11-04 02:31:00+00' WHERE run_id = '%s'", status, currentRun))
-	ids, err := w.expiredRuns(ctx, &warehouse.Objects{Runs: `"main"."runs"`}, currentRun, 2)
+	ids, err := w.ExpiredRuns(ctx, &warehouse.Objects{Runs: `"main"."runs"`}, currentRun, 2)
 	if err != nil || len(ids) == 0 {
 		return ids, err
 	}
-	q := render("retention.sql", map[string]string{"Table": `"main"."child"`, "Params": warehouse.Placeholders(len(ids))})
+	q := w.Render("retention.sql", map[string]string{"Table": `"main"."child"`, "Params": warehouse.Placeholders(len(ids))})
 	_, err = w.conn.ExecContext(ctx, q, ids...)
 	return ids, err
 }

@@ -35,11 +35,11 @@ func TestCheckSelectAcceptsReads(t *testing.T) {
 		"SELECT id, tr FROM src;  ",
 	} {
 		if err := func() error {
-			if _, err := w.exec(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
+			if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
 				return err
 			}
-			defer w.rollback(ctx)
-			return w.checkSelect(ctx, q)
+			defer w.Rollback(ctx)
+			return (*adapter)(w).CheckSelect(ctx, q)
 		}(); err != nil {
 			t.Errorf("%q: %v", q, err)
 		}

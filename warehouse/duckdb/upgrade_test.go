@@ -39,7 +39,7 @@ func TestUpgradeRunsTable(t *testing.T) {
 	w := openTemp(t)
 	ctx := context.Background()
 	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr"}
-	execSQL(t, w, oldRunsDDL(t, out, duckType))
+	execSQL(t, w, oldRunsDDL(t, out, dialect.Types))
 	execSQL(t, w, "INSERT INTO st_runs (run_id, study, status, started_at) VALUES ('r0', 'st', 'running', TIMESTAMPTZ '2025-12-31 00:00:00+00')")
 	if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: "st", StartedAt: time.Now()}); err != nil {
 		t.Fatal(err)

@@ -83,7 +83,7 @@ var engine = warehousetest.Engine{
 	Other: func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse {
 		return openDSN(t, w.(*Warehouse).cfg.ConnString())
 	},
-	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).fault = f },
+	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).Fault = f },
 	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
 }
 

@@ -31,31 +31,20 @@ func lockKey(schema, study string) int64 {
 // warehouse.ErrLocked that names the holder's pid, application_name and
 // client address from pg_locks and pg_stat_activity. Lock also sets
 // application_name to "counterpart <study>".
-func (w *Warehouse) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
-	if err := warehouse.ValidIdent(out.Schema); err != nil {
-		return nil, fmt.Errorf("lock: output.schema: %w", err)
-	}
-	if err := warehouse.ValidIdent(out.Study); err != nil {
-		return nil, fmt.Errorf("lock: study: %w", err)
-	}
+func (w *adapter) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
 	if _, err := w.conn.Exec(ctx, "SELECT pg_catalog.set_config('application_name', $1, false)", "counterpart "+out.Study); err != nil {
-		return nil, fmt.Errorf("lock: set application_name: %w", w.dbErr(err))
+		return nil, fmt.Errorf("set application_name: %w", w.dbErr(err))
 	}
 	key := lockKey(out.Schema, out.Study)
 	var got bool
 	if err := w.conn.QueryRow(ctx, "SELECT pg_catalog.pg_try_advisory_lock($1)", key).Scan(&got); err != nil {
-		return nil, fmt.Errorf("lock: %w", w.dbErr(err))
+		return nil, fmt.Errorf("advisory lock: %w", w.dbErr(err))
 	}
 	if !got {
 		return nil, fmt.Errorf("%w: study %s in schema %s is locked by %s; wait for that run to finish",
 			warehouse.ErrLocked, out.Study, out.Schema, w.holder(ctx, key))
 	}
-	released := false
 	return func() error {
-		if released {
-			return nil
-		}
-		released = true
 		ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 		defer cancel()
 		var ok bool
@@ -72,11 +61,11 @@ func (w *Warehouse) Lock(ctx context.Context, out warehouse.Output) (func() erro
 // holder describes the session holding key, best effort: the holder may
 // have finished in between, and a role without pg_read_all_stats sees
 // other users' sessions without their details.
-func (w *Warehouse) holder(ctx context.Context, key int64) string {
+func (w *adapter) holder(ctx context.Context, key int64) string {
 	u := uint64(key)
 	var pid int32
 	var app, addr, since string
-	err := w.conn.QueryRow(ctx, render("lock_holder.sql", nil), uint32(u>>32), uint32(u)).Scan(&pid, &app, &addr, &since)
+	err := w.conn.QueryRow(ctx, w.Render("lock_holder.sql", nil), uint32(u>>32), uint32(u)).Scan(&pid, &app, &addr, &since)
 	switch {
 	case errors.Is(err, pgx.ErrNoRows):
 		return "another session (it has just ended; try again)"

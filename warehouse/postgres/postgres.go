@@ -2,6 +2,7 @@ package postgres
 
 import (
 	"context"
+	"embed"
 	"errors"
 	"fmt"
 	"net/url"
@@ -14,28 +15,76 @@ import (
 	"github.com/jackc/pgx/v5/pgconn/ctxwatch"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/sqlcore"
 )
 
-// dialect names this engine's folder of SQL text under sql/.
-const dialect = "postgres"
+//go:embed sql/*.sql
+var sqlFiles embed.FS
+
+func init() {
+	sqlcore.Register(warehouse.Engine{
+		Name: "postgres", DefaultSchema: "public", DSNHint: "a postgres:// URL",
+		Open: func(ctx context.Context, dsn string, o warehouse.OpenOptions) (warehouse.Warehouse, error) {
+			return open(ctx, dsn, o.ReadOnly, []Option{WithStudy(o.Study)})
+		},
+	}, sqlFiles)
+}
 
 // Warehouse is one connection to a Postgres database. It is not safe for
 // concurrent use: one run owns it, and all its statements (and its
 // advisory lock) live on that one session.
 type Warehouse struct {
-	conn     *pgx.Conn
-	cfg      *pgx.ConnConfig
-	readOnly bool
+	*sqlcore.Core
+	conn *pgx.Conn
+	cfg  *pgx.ConnConfig
 	// secrets are strings that must never appear in an error message: the
 	// password of the connection string, however it was given.
 	secrets []string
-
-	// fault, when set by a test, is called at each step of Publish; a
-	// non-nil return fails the publish there (checks the rollback).
-	fault func(step string) error
 }
 
-var _ warehouse.Warehouse = (*Warehouse)(nil)
+// adapter is the Warehouse as sqlcore sees it.
+type adapter Warehouse
+
+// pgTypes is the Postgres type of each contract column type, spelt as
+// format_type reports it (table_columns.sql). JSON columns are jsonb:
+// stored parsed, queryable with the JSON operators.
+var pgTypes = map[warehouse.ColType]string{
+	warehouse.TypeText: "text", warehouse.TypeBigInt: "bigint", warehouse.TypeDouble: "double precision",
+	warehouse.TypeBool: "boolean", warehouse.TypeTimestampTZ: "timestamp with time zone", warehouse.TypeJSON: "jsonb",
+}
+
+func (w *Warehouse) dialect() *sqlcore.Dialect {
+	a := (*adapter)(w)
+	return &sqlcore.Dialect{
+		Name: "postgres", Types: pgTypes, Inlines: true,
+		// hashtext is the hash of Postgres's text hash indexes; it is
+		// stable within a major version, which is all a seed needs.
+		SampleKeep: func(unit string, modulus int) string {
+			return fmt.Sprintf("mod(abs(CAST(hashtext(CAST(%s AS text)) AS bigint)), %d) = 0", unit, modulus)
+		},
+		Err:         a.dbErr,
+		QueryErr:    a.queryError,
+		Scrub:       func(s string) string { return scrub(s, w.secrets) },
+		StatusCheck: statusCheck,
+	}
+}
+
+// statusCheck drops and adds again, under its name and in the open
+// transaction, a runs table's status check from before the abandoned
+// status.
+func statusCheck(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
+	var name, def string
+	found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &name, &def)
+	if err != nil {
+		return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, err)
+	}
+	if !found || strings.Contains(def, warehouse.StatusAbandoned) {
+		return nil
+	}
+	q := fmt.Sprintf("ALTER TABLE %s DROP CONSTRAINT %s, ADD CONSTRAINT %s %s", o.Runs, warehouse.Quote(name), warehouse.Quote(name), sqlcore.StatusCheckExpr())
+	_, err = c.Exec(ctx, "update the status check of "+o.C.Runs.Name, q)
+	return err
+}
 
 // Option adjusts how Open connects.
 type Option func(*options)
@@ -72,7 +121,7 @@ func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Wareh
 	cfg, err := pgx.ParseConfig(dsn)
 	if err != nil {
 		// pgconn redacts what it recognises; scrub again with what we found.
-		return nil, fmt.Errorf("open postgres: %w: warehouse.dsn is not a valid connection string: %s",
+		return nil, fmt.Errorf("postgres: %w: warehouse.dsn is not a valid connection string: %s",
 			warehouse.ErrBadInput, scrub(err.Error(), secrets))
 	}
 	if cfg.Password != "" {
@@ -97,9 +146,11 @@ func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Wareh
 	cfg.DefaultQueryExecMode = pgx.QueryExecModeDescribeExec
 	conn, err := pgx.ConnectConfig(ctx, cfg)
 	if err != nil {
-		return nil, fmt.Errorf("open postgres %s: %w", describe(cfg), &scrubbed{scrub(oneLine(err), secrets), err})
+		return nil, fmt.Errorf("postgres %s: %w", describe(cfg), &scrubbed{scrub(oneLine(err), secrets), err})
 	}
-	return &Warehouse{conn: conn, cfg: cfg, readOnly: readOnly, secrets: secrets}, nil
+	w := &Warehouse{conn: conn, cfg: cfg, secrets: secrets}
+	w.Core = &sqlcore.Core{A: (*adapter)(w), D: w.dialect(), Place: "in database " + cfg.Database, ReadOnly: readOnly}
+	return w, nil
 }
 
 // describe names the server and database for messages, never the password.
@@ -107,11 +158,8 @@ func describe(cfg *pgx.ConnConfig) string {
 	return fmt.Sprintf("(user %s, database %s on %s:%d)", cfg.User, cfg.Database, cfg.Host, cfg.Port)
 }
 
-// Engine returns "postgres".
-func (w *Warehouse) Engine() string { return "postgres" }
-
 // User returns current_user, for lineage.
-func (w *Warehouse) User(ctx context.Context) string {
+func (w *adapter) User(ctx context.Context) string {
 	var u string
 	if err := w.conn.QueryRow(ctx, "SELECT current_user").Scan(&u); err != nil {
 		return w.cfg.User
@@ -120,19 +168,20 @@ func (w *Warehouse) User(ctx context.Context) string {
 }
 
 // Close ends the session, which also releases its advisory locks.
-func (w *Warehouse) Close() error {
+func (w *adapter) Close() error {
 	if err := w.conn.Close(context.Background()); err != nil {
 		return fmt.Errorf("close postgres: %w", w.dbErr(err))
 	}
 	return nil
 }
 
-// rollback ends any open transaction, ignoring the context's
-// cancellation: a cancelled run must still release its transaction.
-func (w *Warehouse) rollback(ctx context.Context) {
-	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
-	defer cancel()
-	_, _ = w.conn.Exec(ctx, "ROLLBACK")
+func (w *adapter) Exec(ctx context.Context, query string, args ...any) (int64, error) {
+	tag, err := w.conn.Exec(ctx, query, args...)
+	return tag.RowsAffected(), err
+}
+
+func (w *adapter) Query(ctx context.Context, query string, args ...any) (sqlcore.Rows, error) {
+	return w.conn.Query(ctx, query, args...)
 }
 
 // dsnSecrets finds the password a connection string carries (URL user
@@ -226,10 +275,7 @@ func pgMessage(err error) string {
 // dbErr flattens an error of counterpart's own statements. Those are never
 // the analyst's fault by themselves: where the study is at fault (a missing
 // schema, a type conflict) the caller checks first and says so.
-func (w *Warehouse) dbErr(err error) error {
-	if errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded) {
-		return err
-	}
+func (w *adapter) dbErr(err error) error {
 	return &dbError{scrub(pgMessage(err), w.secrets), []error{err}}
 }
 
@@ -244,10 +290,7 @@ var badInputClasses = map[string]bool{"0A": true, "21": true, "22": true, "25": 
 	"2F": true, "38": true, "39": true, "42": true, "44": true, "P0": true}
 
 // queryError classes an error the server raised for the analyst's query.
-func (w *Warehouse) queryError(err error) error {
-	if errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded) {
-		return err
-	}
+func (w *adapter) queryError(err error) error {
 	var pe *pgconn.PgError
 	if errors.As(err, &pe) && len(pe.Code) == 5 {
 		msg := scrub(pgMessage(err), w.secrets)

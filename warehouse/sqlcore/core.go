@@ -1,0 +1,238 @@
+package sqlcore
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io/fs"
+	"time"
+
+	sqltext "counterpart/sql"
+	"counterpart/warehouse"
+)
+
+// Rows is a query result read row by row.
+type Rows interface {
+	Next() bool
+	Scan(dest ...any) error
+	Err() error
+	Close()
+}
+
+// Conn is an engine's one session: every statement of a run goes through
+// it, so transactions span calls.
+type Conn interface {
+	// Exec runs a statement and returns the rows it affected.
+	Exec(ctx context.Context, query string, args ...any) (int64, error)
+	Query(ctx context.Context, query string, args ...any) (Rows, error)
+	// Bulk writes n rows of cols, plus run_id = runID, into the quoted
+	// table, inside the open transaction.
+	Bulk(ctx context.Context, table, runID string, cols []BulkCol, n int) error
+}
+
+// Dialect is what differs in an engine's SQL and errors.
+type Dialect struct {
+	// Name is the engine's and its SQL folder's name.
+	Name string
+	// Types names each contract type in CREATE TABLE; Reported as the
+	// engine's table_columns.sql reports it (nil: Types).
+	Types, Reported map[warehouse.ColType]string
+	// Inlines is true when the planner merges derived tables into their
+	// parent and copies each column's defining expression into every
+	// reference (Postgres): queries then fence or chain LATERAL scans.
+	Inlines bool
+	// SampleKeep is the seed sample's condition on the quoted unit
+	// column c.<unit>: a stable hash modulo modulus is 0.
+	SampleKeep func(unit string, modulus int) string
+	// Err flattens an error of counterpart's own statements; QueryErr
+	// classes one of the analyst's query (ErrBadInput or runtime).
+	Err, QueryErr func(error) error
+	// Scrub removes secrets from text stored in the warehouse (nil: none).
+	Scrub func(string) string
+	// StatusCheck brings a runs table's status check up to date.
+	StatusCheck func(ctx context.Context, c *Core, o *warehouse.Objects) error
+}
+
+// Adapter is one engine.
+type Adapter interface {
+	Conn
+	// CheckSelect refuses a cohort query that is not a single SELECT,
+	// inside the read-only transaction, before anything of it runs.
+	CheckSelect(ctx context.Context, text string) error
+	// Columns describes the result columns of text without reading rows.
+	Columns(ctx context.Context, text string) ([]Column, error)
+	// Stream runs text and feeds every row to the sinks open returns
+	// (nil: column unused).
+	Stream(ctx context.Context, text string, open func([]Column) ([]Sink, error)) error
+	Lock(ctx context.Context, out warehouse.Output) (func() error, error)
+	User(ctx context.Context) string
+	Close() error
+}
+
+// Core is an engine's Warehouse: the contract over an Adapter.
+type Core struct {
+	A Adapter
+	D *Dialect
+	// Place names the database in messages ("in /data/w.duckdb").
+	Place string
+	// ReadOnly refuses the write methods (dry runs).
+	ReadOnly bool
+	// Fault, when set by a test, is called at each step of Publish; a
+	// non-nil return fails the publish there (checks the rollback).
+	Fault func(step string) error
+}
+
+var (
+	_ warehouse.Warehouse      = (*Core)(nil)
+	_ warehouse.InWarehouse    = (*Core)(nil)
+	_ warehouse.Sampler        = (*Core)(nil)
+	_ warehouse.ScalePublisher = (*Core)(nil)
+)
+
+// Engine names the engine.
+func (c *Core) Engine() string { return c.D.Name }
+
+// User names the database user.
+func (c *Core) User(ctx context.Context) string { return c.A.User(ctx) }
+
+// Close ends the session.
+func (c *Core) Close() error { return c.A.Close() }
+
+// Lock takes the study's lock (the adapter's).
+func (c *Core) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
+	if err := warehouse.ValidIdent(out.Schema); err != nil {
+		return nil, fmt.Errorf("output.schema: %w", err)
+	}
+	if err := warehouse.ValidIdent(out.Study); err != nil {
+		return nil, fmt.Errorf("study: %w", err)
+	}
+	release, err := c.A.Lock(ctx, out)
+	if err != nil {
+		return nil, err
+	}
+	released := false
+	return func() error {
+		if released {
+			return nil
+		}
+		released = true
+		return release()
+	}, nil
+}
+
+// Render fills an SQL template of the dialect. The templates are
+// embedded and tested: failing here is a bug.
+func (c *Core) Render(name string, data any) string {
+	s, err := sqltext.Render(c.D.Name, name, data)
+	if err != nil {
+		panic(err)
+	}
+	return s
+}
+
+// Exec runs one of counterpart's own statements, naming what for.
+func (c *Core) Exec(ctx context.Context, what, query string, args ...any) (int64, error) {
+	n, err := c.A.Exec(ctx, query, args...)
+	if err != nil {
+		return n, fmt.Errorf("%s: %w", what, c.err(err))
+	}
+	return n, nil
+}
+
+// QueryRow scans the first row of one of counterpart's own queries;
+// found is false when there is none.
+func (c *Core) QueryRow(ctx context.Context, query string, args []any, dest ...any) (found bool, err error) {
+	err = c.Each(ctx, query, args, dest, func() error {
+		found = true
+		return errStop
+	})
+	return found, err
+}
+
+var errStop = errors.New("stop")
+
+// Each runs query and calls fn after scanning each row into dest.
+func (c *Core) Each(ctx context.Context, query string, args, dest []any, fn func() error) error {
+	rows, err := c.A.Query(ctx, query, args...)
+	if err != nil {
+		return c.err(err)
+	}
+	defer rows.Close()
+	for rows.Next() {
+		if err := rows.Scan(dest...); err != nil {
+			return c.err(err)
+		}
+		if err := fn(); err == errStop {
+			return nil
+		} else if err != nil {
+			return err
+		}
+	}
+	if err := rows.Err(); err != nil {
+		return c.err(err)
+	}
+	return nil
+}
+
+func (c *Core) err(err error) error {
+	if errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded) {
+		return err
+	}
+	return c.D.Err(err)
+}
+
+func (c *Core) queryErr(err error) error {
+	if errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded) {
+		return err
+	}
+	return c.D.QueryErr(err)
+}
+
+// Rollback ends any open transaction. It ignores the context's
+// cancellation: a cancelled run must still release its transaction.
+func (c *Core) Rollback(ctx context.Context) {
+	ctx, cancel := context.WithTimeout(context.WithoutCancel(ctx), 10*time.Second)
+	defer cancel()
+	_, _ = c.A.Exec(ctx, "ROLLBACK")
+}
+
+func (c *Core) writable() error {
+	if c.ReadOnly {
+		return errors.New("the warehouse was opened read-only (dry run)")
+	}
+	return nil
+}
+
+func (c *Core) step(name string) error {
+	if c.Fault != nil {
+		return c.Fault(name)
+	}
+	return nil
+}
+
+// tx runs fn in a transaction of its own, committed when fn succeeds.
+func (c *Core) tx(ctx context.Context, fn func() error) error {
+	if _, err := c.Exec(ctx, "begin", "BEGIN TRANSACTION"); err != nil {
+		return err
+	}
+	err := fn()
+	if err == nil {
+		_, err = c.Exec(ctx, "commit", "COMMIT")
+	}
+	if err != nil {
+		c.Rollback(ctx)
+	}
+	return err
+}
+
+// Register adds an engine to the warehouse registry and its dialect SQL
+// (the *.sql files under sql/ of files, embedded from the engine's folder)
+// to the SQL templates. Engines call it from init.
+func Register(e warehouse.Engine, files fs.FS) {
+	sub, err := fs.Sub(files, "sql")
+	if err != nil {
+		panic(err)
+	}
+	sqltext.RegisterDialect(e.Name, sub)
+	warehouse.Register(e)
+}

@@ -1,0 +1,179 @@
+package sqlcore
+
+import (
+	"context"
+	"fmt"
+
+	"counterpart/warehouse"
+)
+
+// BeginScale implements warehouse.ScalePublisher: it opens the publish
+// transaction of a warehouse-scale run.
+func (c *Core) BeginScale(ctx context.Context, out warehouse.Output, runID string) (warehouse.ScaleTx, error) {
+	if err := c.writable(); err != nil {
+		return nil, err
+	}
+	o, err := warehouse.NewObjects(out)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := c.Exec(ctx, "begin", "BEGIN TRANSACTION"); err != nil {
+		return nil, err
+	}
+	return &scaleTx{c: c, o: o, out: out, runID: runID}, nil
+}
+
+// scaleTx is one warehouse-scale publish transaction on the engine's
+// session. Any error leaves it for Rollback.
+type scaleTx struct {
+	c     *Core
+	o     *warehouse.Objects
+	out   warehouse.Output
+	runID string
+	done  bool
+}
+
+func (t *scaleTx) WriteMatches(ctx context.Context, ids *warehouse.Cohort, rows warehouse.MatchRows) error {
+	p := &warehouse.Publication{Run: warehouse.RunRecord{RunID: t.runID, Status: warehouse.StatusSucceeded}, Cohort: ids, Matches: rows}
+	if err := warehouse.CheckScalePublication(t.out, p); err != nil {
+		return err
+	}
+	if err := t.c.writeMatches(ctx, t.o, t.out, t.runID, ids, rows); err != nil {
+		return err
+	}
+	return t.c.step("matches")
+}
+
+func (t *scaleTx) WriteSnapshot(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL) error {
+	ct, err := t.c.scaleWrite(ctx, t.out, q)
+	if err != nil {
+		return err
+	}
+	types, err := t.c.scaleTypes(ctx, q)
+	if err != nil {
+		return err
+	}
+	text, err := warehouse.SnapshotSQL(ct, q, d, d.CovKinds(q), types.OutcomeBool)
+	if err != nil {
+		return err
+	}
+	if _, err := t.c.A.Exec(ctx, text, t.runID); err != nil {
+		return fmt.Errorf("snapshot into %s: %w", ct.Cohort.Name, t.c.queryErr(err))
+	}
+	return nil
+}
+
+func (t *scaleTx) WriteScores(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64, sup warehouse.Support, schemes []string) error {
+	return t.c.ScoreInto(ctx, t.out, t.runID, q, d, coef, sup, schemes)
+}
+
+// RunSums reads the run's categorical levels from its snapshot, makes
+// RunSumsSQL's one pass over the rows written so far and, with matched
+// sets and outcomes, MatchedSumsSQL's pass over the matches.
+func (t *scaleTx) RunSums(ctx context.Context, spec warehouse.RunSums) (*warehouse.Sums, error) {
+	c, ct := t.c, t.o.C
+	spec.Levels = make([][]string, len(spec.Covariates))
+	text, err := warehouse.BalanceLevelsSQL(ct, spec.Covariates)
+	if err != nil {
+		return nil, err
+	}
+	if text != "" {
+		var i int64
+		var level string
+		err := c.eachQuery(ctx, text, []any{t.runID}, []any{&i, &level}, func() error {
+			if i < 0 || int(i) >= len(spec.Covariates) {
+				return fmt.Errorf("covariate %d of %d", i, len(spec.Covariates))
+			}
+			spec.Levels[i] = append(spec.Levels[i], level)
+			return nil
+		})
+		if err != nil {
+			return nil, fmt.Errorf("balance levels: %w", err)
+		}
+	}
+	text, args, err := warehouse.RunSumsSQL(ct, spec, c.D.Inlines)
+	if err != nil {
+		return nil, err
+	}
+	args[0] = t.runID
+	width := spec.Adjustments()*spec.BalanceWidth() + len(spec.Outcomes)*spec.EffectAdjustments()*warehouse.EffectWidth
+	var arms [2][]float64
+	var treated bool
+	row := make([]*float64, width)
+	dest := []any{&treated}
+	for j := range row {
+		dest = append(dest, &row[j])
+	}
+	err = c.eachQuery(ctx, text, args, dest, func() error {
+		v := make([]float64, width)
+		for j, x := range row {
+			v[j] = deref(x) // NULL: no row in this arm
+		}
+		arms[b2i(treated)] = v
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("balance and effect sums: %w", err)
+	}
+	var matched []float64
+	if spec.Matched && len(spec.Outcomes) > 0 {
+		text, err := warehouse.MatchedSumsSQL(ct, spec.Outcomes)
+		if err != nil {
+			return nil, err
+		}
+		row := make([]*float64, len(spec.Outcomes)*warehouse.MatchedWidth)
+		dest := make([]any, len(row))
+		for j := range row {
+			dest[j] = &row[j]
+		}
+		found, err := c.query(ctx, text, []any{t.runID}, dest...)
+		if err == nil && !found {
+			err = fmt.Errorf("no row of sums")
+		}
+		if err != nil {
+			return nil, fmt.Errorf("matched effect sums: %w", err)
+		}
+		for _, x := range row {
+			matched = append(matched, nanDeref(x))
+		}
+	}
+	return warehouse.NewSums(spec, arms, matched), nil
+}
+
+func b2i(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+func nanDeref(f *float64) float64 { return nanNull(f) }
+
+// Finish writes the final runs row (p.Run), the effects, retention and
+// the views.
+func (t *scaleTx) Finish(ctx context.Context, p *warehouse.Publication) error {
+	if err := t.c.step("in-warehouse"); err != nil {
+		return err
+	}
+	switch p.Run.Status {
+	case warehouse.StatusSucceeded, warehouse.StatusRejected, warehouse.StatusFailed, warehouse.StatusSkipped:
+	default:
+		return fmt.Errorf("run %s: final status %q is not one of succeeded, rejected, failed, skipped", p.Run.RunID, p.Run.Status)
+	}
+	return t.c.finish(ctx, t.o, t.out, p, nil)
+}
+
+func (t *scaleTx) Commit(ctx context.Context) error {
+	if err := t.c.commit(ctx); err != nil {
+		return err
+	}
+	t.done = true
+	return nil
+}
+
+func (t *scaleTx) Rollback(ctx context.Context) {
+	if !t.done {
+		t.done = true
+		t.c.Rollback(ctx)
+	}
+}

@@ -7,6 +7,9 @@ import (
 	"slices"
 	"strconv"
 	"strings"
+
+	"counterpart/match/score"
+	"counterpart/match/weights"
 )
 
 // InWarehouse is the optional engine interface of warehouse-scale mode
@@ -115,7 +118,7 @@ type ColumnDescription struct {
 
 // DesignSQL is the propensity model's design as the engine computes it: a
 // numeric covariate as is, a categorical one as 0/1 indicators of every
-// level but the reference, in the order of match/study/design.go, so the
+// level but the reference, in the order of score.Design, so the
 // coefficients line up with the in-memory fit's.
 type DesignSQL struct {
 	Unit, Treatment string
@@ -235,30 +238,30 @@ func NewDesignSQL(desc *Description) (*DesignSQL, error) {
 		if c.Nulls > 0 {
 			return nil, fmt.Errorf("%w: covariate %s has %d NULL value(s); fill or exclude them in cohort.sql", ErrBadInput, c.Name, c.Nulls)
 		}
-		switch c.Kind {
-		case Numeric:
+		if c.Kind == Numeric {
 			if c.NonFinite > 0 {
 				return nil, fmt.Errorf("%w: covariate %s has %d non-finite value(s); fix or exclude them in cohort.sql", ErrBadInput, c.Name, c.NonFinite)
 			}
 			if !(c.SD > 0) || math.IsInf(1/c.SD, 0) {
 				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every value is %v); remove it", ErrBadInput, c.Name, c.Mean)
 			}
-			d.Columns = append(d.Columns, DesignColumn{Name: c.Name, Source: c.Name, Center: c.Mean, Scale: 1 / c.SD})
-		case Categorical:
-			if len(c.Levels) < 2 {
-				lvl := ""
-				if len(c.Levels) == 1 {
-					lvl = c.Levels[0]
-				}
-				return nil, fmt.Errorf("%w: covariate %s is constant in the cohort (every unit is %q); remove it from cohort.covariates", ErrBadInput, c.Name, lvl)
+		}
+		// The expansion rule (dummy coding, reference level) is
+		// score.Design's, shared with the in-memory design.
+		terms, err := score.Design([]score.DesignCovariate{{Name: c.Name, Categorical: c.Kind == Categorical, Levels: c.Levels}})
+		if err != nil {
+			return nil, fmt.Errorf("%w: %w", ErrBadInput, err)
+		}
+		for _, t := range terms {
+			if t.Level < 0 {
+				d.Columns = append(d.Columns, DesignColumn{Name: t.Name, Source: c.Name, Center: c.Mean, Scale: 1 / c.SD})
+				continue
 			}
-			for l := 1; l < len(c.Levels); l++ {
-				p := float64(c.Counts[l]) / n
-				d.Columns = append(d.Columns, DesignColumn{
-					Name: c.Name + "=" + c.Levels[l], Source: c.Name, Categorical: true, Text: c.Text,
-					Level: c.Levels[l], Center: p, Scale: 1 / math.Sqrt(p*(1-p)),
-				})
-			}
+			p := float64(c.Counts[t.Level]) / n
+			d.Columns = append(d.Columns, DesignColumn{
+				Name: t.Name, Source: c.Name, Categorical: true, Text: c.Text,
+				Level: c.Levels[t.Level], Center: p, Scale: 1 / math.Sqrt(p*(1-p)),
+			})
 		}
 	}
 	return d, nil
@@ -504,32 +507,15 @@ func Logistic(eta string) string {
 }
 
 // WeightSQL returns the closed-form weight of scheme over columns e (the
-// score) and z (0/1), the formulas of match/weights:
-//
-//	ate       Z/e + (1−Z)/(1−e)                   (Rosenbaum 1987)
-//	att       Z + (1−Z)·e/(1−e)                   (Imbens 2004)
-//	atc       Z·(1−e)/e + (1−Z)                   (Imbens 2004)
-//	overlap   Z·(1−e) + (1−Z)·e                   (Li, Morgan & Zaslavsky 2018)
-//	matching  min(e, 1−e)/(Z·e + (1−Z)·(1−e))     (Li & Greene 2013)
-//
+// score) and z (0/1): the SQL formula of the scheme's entry in
+// weights.Schemes, the registry that also holds its Go formula,
 // multiplied by 0 outside common support (column ins).
 func WeightSQL(scheme string) (string, error) {
-	var f string
-	switch scheme {
-	case "ate":
-		f = "CASE WHEN z = 1 THEN 1 / e ELSE 1 / (1 - e) END"
-	case "att":
-		f = "CASE WHEN z = 1 THEN 1.0 ELSE e / (1 - e) END"
-	case "atc":
-		f = "CASE WHEN z = 1 THEN (1 - e) / e ELSE 1.0 END"
-	case "overlap":
-		f = "CASE WHEN z = 1 THEN 1 - e ELSE e END"
-	case "matching":
-		f = "CASE WHEN z = 1 THEN least(e, 1 - e) / e ELSE least(e, 1 - e) / (1 - e) END"
-	default:
+	def, err := weights.Lookup(scheme)
+	if err != nil {
 		return "", fmt.Errorf("%w: unknown weighting scheme %q", ErrBadInput, scheme)
 	}
-	return "CASE WHEN ins THEN CAST(" + f + " AS DOUBLE PRECISION) ELSE 0.0 END", nil
+	return "CASE WHEN ins THEN CAST(" + def.SQL() + " AS DOUBLE PRECISION) ELSE 0.0 END", nil
 }
 
 // ScoredSQL returns SELECT unit, z, eta, e, ins over the cohort at coef

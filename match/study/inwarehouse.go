@@ -4,7 +4,6 @@ import (
 	"context"
 	"errors"
 	"fmt"
-	"math"
 
 	"counterpart/match/score"
 	"counterpart/warehouse"
@@ -125,23 +124,21 @@ func seedInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.
 	return fit.Coef, info, nil
 }
 
-// SupportInWarehouse returns the common-support interval of rule on the
-// logit scale: "none" keeps every unit; "minmax" keeps η inside both arms'
-// ranges, [max of minima, min of maxima] (read with LogitRange, so the
-// boundary units are kept exactly); "crump" keeps 0.1 ≤ ps ≤ 0.9 (Crump,
-// Hotz, Imbens & Mitnik 2009), i.e. |η| ≤ log 9.
+// SupportInWarehouse returns the common-support interval of rule
+// (score.SupportInterval) on the logit scale; only minmax needs the arms'
+// ranges, read with LogitRange so the boundary units are kept exactly.
 func SupportInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64, rule string) (warehouse.Support, error) {
-	switch rule {
-	case "", "none":
-		return warehouse.Support{Low: math.Inf(-1), High: math.Inf(1)}, nil
-	case "crump":
-		return warehouse.Support{Low: -math.Log(9), High: math.Log(9)}, nil
-	case "minmax":
+	var min, max [2]float64
+	if rule == score.SupportMinMax {
 		r, err := iw.LogitRange(ctx, q, d, coef)
 		if err != nil {
 			return warehouse.Support{}, fmt.Errorf("support: %w", err)
 		}
-		return warehouse.Support{Low: math.Max(r.Min[0], r.Min[1]), High: math.Min(r.Max[0], r.Max[1])}, nil
+		min, max = r.Min, r.Max
 	}
-	return warehouse.Support{}, fmt.Errorf("support: %w: unknown rule %q", warehouse.ErrBadInput, rule)
+	low, high, err := score.SupportInterval(rule, score.ScaleLogit, min, max)
+	if err != nil {
+		return warehouse.Support{}, fmt.Errorf("support: %w: %w", warehouse.ErrBadInput, err)
+	}
+	return warehouse.Support{Low: low, High: high}, nil
 }

@@ -71,28 +71,14 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		debug.SetMemoryLimit(ScaleGoMemoryLimit)
 		defer debug.SetMemoryLimit(prev)
 	}
-	now := opt.Now
-	if now == nil {
-		now = time.Now
-	}
-	stage := func(name string) {
-		if opt.Stage != nil {
-			opt.Stage(name)
-		}
-	}
-	lap := now()
-	timed := func(name string) {
-		t := now()
-		sum.Timings[name] = t.Sub(lap).Seconds()
-		lap = t
-	}
+	clk := newClock(opt, sum)
 	q := warehouse.CohortQuery{SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
 		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical}
 
-	stage("fit")
-	model := score.Logistic
-	if s.Score.Model == "ridge" {
-		model = score.Ridge
+	clk.stage("fit")
+	model, err := score.ParseModel(s.Score.Model)
+	if err != nil {
+		return sum, badInput("fit score", err)
 	}
 	fit, d, err := FitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
 	if err != nil {
@@ -107,18 +93,14 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 			return sum, fmt.Errorf("score.fit_in: %w", err)
 		}
 	}
-	sum.Model = ModelSummary{Kind: s.Score.Model, Iterations: fit.Iterations, Converged: fit.Converged,
-		LogLik: Num(fit.LogLik), NullLogLik: Num(fit.NullLogLik)}
-	for j, name := range fit.Names {
-		sum.Model.Terms = append(sum.Model.Terms, Term{Name: name, Coef: Num(fit.Coef[j]), SE: Num(fit.SE[j])})
-	}
+	sum.Model = modelSummary(s.Score.Model, fit)
 	sup, err := SupportInWarehouse(ctx, iw, q, d, fit.Coef, s.Support)
 	if err != nil {
 		return sum, err
 	}
-	timed("fit")
+	clk.timed("fit")
 
-	stage("match")
+	clk.stage("match")
 	mi, err := iw.MatchInput(ctx, q, d, fit.Coef, sup, s.Matching.ExactOn)
 	if err != nil {
 		return sum, fmt.Errorf("match input: %w", err)
@@ -127,20 +109,9 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		return sum, fmt.Errorf("match input: %d rows, the fit saw %d: the data changed during the run", len(mi.Treated), n)
 	}
 	sum.Model.CStatistic = Num(score.CStatistic(mi.Logit, mi.Treated))
-	var keptT, keptC int
-	for i, in := range mi.InSupport {
-		if in {
-			if mi.Treated[i] {
-				keptT++
-			} else {
-				keptC++
-			}
-		}
-	}
-	sum.Support = Support{Rule: s.Support, Low: Num(logistic(sup.Low)), High: Num(logistic(sup.High)), Dropped: n - keptT - keptC}
-	sum.Counts.SupportTreated, sum.Counts.SupportControl = keptT, keptC
-	if keptT == 0 || keptC == 0 {
-		return sum, fmt.Errorf("support: %w: the %s rule leaves %d treated and %d comparison units; relax support", warehouse.ErrBadInput, s.Support, keptT, keptC)
+	keptT, err := recordSupport(sum, s.Support, logistic(sup.Low), logistic(sup.High), mi.Treated, mi.InSupport)
+	if err != nil {
+		return sum, err
 	}
 	// thin is the cohort as matching and the matches rows need it: ids
 	// and treatment only.
@@ -150,14 +121,14 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum); err != nil {
 			return sum, err
 		}
-		timed("match")
+		clk.timed("match")
 	}
 	if opt.DryRun {
 		sum.Status = "dry-run"
 		return sum, nil
 	}
 
-	stage("publish")
+	clk.stage("publish")
 	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
 		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes()}
 	for i, k := range d.CovKinds(q) {
@@ -166,29 +137,16 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	if _, err := warehouse.NewContract(out); err != nil {
 		return sum, fmt.Errorf("publish: %w", err)
 	}
-	rec := warehouse.RunRecord{
-		RunID: sum.RunID, Study: s.Study, Status: warehouse.StatusRunning, StartedAt: sum.StartedAt,
-		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256, SpecJSON: s.Redacted(), CohortSQL: s.Cohort.SQL,
-		Engine: wh.Engine(), DBUser: wh.User(ctx),
-	}
+	rec := newRunRecord(ctx, s, wh, opt, sum)
 	if err := wh.StartRun(ctx, out, rec); err != nil {
 		return sum, fmt.Errorf("start run: %w", err)
 	}
-	rec.Status = warehouse.StatusSucceeded
 	pub := &warehouse.Publication{Run: rec}
-	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, now); err != nil {
-		msg := err.Error()
-		fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
-		defer cancel()
-		_ = wh.FailRun(fctx, out, sum.RunID, msg)
-		sum.Status = warehouse.StatusFailed
-		return sum, fmt.Errorf("publish: %w", err)
+	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, clk.now); err != nil {
+		return sum, failPublish(wh, out, sum, err)
 	}
-	timed("publish")
-	if pub.Run.Status == warehouse.StatusRejected {
-		return sum, fmt.Errorf("%w: %s", ErrRejected, sum.Gate.Message)
-	}
-	return sum, nil
+	clk.timed("publish")
+	return sum, finishRun(sum)
 }
 
 // publishInWarehouse drives the publish transaction in order: matches,
@@ -221,25 +179,7 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	if err := effectsInWarehouse(s, sum, rs); err != nil {
 		return err
 	}
-	r := &pub.Run
-	if !sum.Gate.Pass {
-		if s.Balance.OnFail == "reject" {
-			r.Status, r.Message = warehouse.StatusRejected, sum.Gate.Message
-		} else {
-			r.Message = "balance warning: " + sum.Gate.Message
-		}
-	}
-	sum.Status, sum.Message = r.Status, r.Message
-	r.CountsJSON = mustJSON(sum.Counts)
-	r.ModelJSON = mustJSON(sum.Model)
-	r.BalanceJSON = mustJSON(struct {
-		Gate        Gate                `json:"gate"`
-		Adjustments []AdjustmentBalance `json:"adjustments"`
-	}{sum.Gate, sum.Balance})
-	r.EffectsJSON = mustJSON(sum.Effects)
-	r.FinishedAt = now().UTC()
-	sum.FinishedAt = r.FinishedAt
-	r.SummaryJSON = mustJSON(sum)
+	settleRecord(&pub.Run, s, sum, now())
 	pub.Effects = effectRecords(sum.Effects)
 	if err := tx.Finish(ctx, pub); err != nil {
 		return fmt.Errorf("run %s: %w", sum.RunID, err)
@@ -322,23 +262,12 @@ func balanceInWarehouse(rs *warehouse.Sums, s *Spec, sum *Summary) {
 			}
 			return levelLess(st[a].Level, st[b].Level)
 		})
-		v := balance.Judge(st, balance.Limits{SMD: s.Balance.SMDLimit, VarRatio: s.Balance.VarianceRatioLimit})
+		v := balance.Judge(st, limits(s))
 		sum.Balance = append(sum.Balance, AdjustmentBalance{Adjustment: adj, Pass: v.Pass, WorstSMD: Num(v.WorstSMD),
 			WorstVariable: v.WorstVariable, Failures: v.Failures, Stats: toStats(st),
 			ESSTreated: Num(ess[adj][0]), ESSControl: Num(ess[adj][1])})
 	}
-	sum.Gate = Gate{Adjustment: s.Primary(), OnFail: s.Balance.OnFail, Pass: true,
-		SMDLimit: Num(s.Balance.SMDLimit), VRLimit: Num(s.Balance.VarianceRatioLimit)}
-	for _, ab := range sum.Balance {
-		if ab.Adjustment == sum.Gate.Adjustment {
-			sum.Gate.Pass = ab.Pass
-			sum.Gate.WorstSMD, sum.Gate.WorstVariable = ab.WorstSMD, ab.WorstVariable
-			if !ab.Pass {
-				sum.Gate.Message = fmt.Sprintf("%s balance fails the limits (|SMD| < %g, variance ratio within 1/%g..%g): %s",
-					ab.Adjustment, s.Balance.SMDLimit, s.Balance.VarianceRatioLimit, s.Balance.VarianceRatioLimit, joinFirst(ab.Failures, 5))
-			}
-		}
-	}
+	judgeGate(s, sum)
 }
 
 // levelLess orders two levels as warehouse.SortLevels does.

@@ -243,7 +243,7 @@ func pgEngine(t *testing.T, sets []dataset) engine {
 }
 
 // inMemory is the in-memory path: ReadCohort, the design of
-// match/study/design.go (numeric as is, categorical → indicators of every level
+// score.Design (numeric as is, categorical → indicators of every level
 // but the first), FitModel.
 func inMemory(t *testing.T, w warehouse.Warehouse, q warehouse.CohortQuery) (*warehouse.Cohort, *score.Fit) {
 	t.Helper()

@@ -25,6 +25,8 @@ package warehouse
 import (
 	"context"
 	"errors"
+	"fmt"
+	"math"
 	"time"
 )
 
@@ -132,8 +134,52 @@ type Covariate struct {
 type Outcome struct {
 	Name   string
 	Values []float64
-	// Binary is true when every non-NULL value is 0 or 1.
-	Binary bool
+	// Kind is what the outcome measures, as ClassifyOutcome read it.
+	Kind OutcomeKind
+}
+
+// OutcomeKind is what an outcome measures. The reader classes every
+// outcome; the kind decides its estimators, its effects rows and its
+// report section (match/study's outcome kinds). Time-to-event and rate
+// outcomes, which read more than one column, add kinds here.
+type OutcomeKind int
+
+const (
+	// OutcomeContinuous is a number compared by its mean.
+	OutcomeContinuous OutcomeKind = iota
+	// OutcomeBinary is an event (1) or none (0), compared by its risk.
+	OutcomeBinary
+)
+
+// String names the kind as the summary does.
+func (k OutcomeKind) String() string {
+	switch k {
+	case OutcomeContinuous:
+		return "continuous"
+	case OutcomeBinary:
+		return "binary"
+	}
+	return fmt.Sprintf("OutcomeKind(%d)", int(k))
+}
+
+// ClassifyOutcome classes a single-column outcome: binary when it has a
+// non-missing value and every non-missing value is 0 or 1, continuous
+// otherwise. NaN marks a missing value.
+func ClassifyOutcome(vals []float64) OutcomeKind {
+	seen := false
+	for _, v := range vals {
+		if math.IsNaN(v) {
+			continue
+		}
+		if v != 0 && v != 1 {
+			return OutcomeContinuous
+		}
+		seen = true
+	}
+	if seen {
+		return OutcomeBinary
+	}
+	return OutcomeContinuous
 }
 
 // Cohort is the analyst's query result, one entry per unit in every slice.

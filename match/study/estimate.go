@@ -84,12 +84,15 @@ var (
 	binaryOutcome     = outcomeKind{contrasts: eventContrasts, events: true}
 )
 
+// outcomeKinds maps the reader's classes to what each brings.
+var outcomeKinds = map[warehouse.OutcomeKind]outcomeKind{
+	warehouse.OutcomeContinuous: continuousOutcome,
+	warehouse.OutcomeBinary:     binaryOutcome,
+}
+
 // outcomeKindOf is the kind of an outcome as the reader classed it.
 func outcomeKindOf(o warehouse.Outcome) outcomeKind {
-	if o.Binary {
-		return binaryOutcome
-	}
-	return continuousOutcome
+	return outcomeKinds[o.Kind]
 }
 
 // estimateOutcome returns the effect rows of one outcome under one

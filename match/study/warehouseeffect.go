@@ -17,7 +17,13 @@ func effectsInWarehouse(s *Spec, sum *Summary, rs *warehouse.Sums) error {
 	for o, name := range s.Cohort.Outcomes {
 		arm := func(a, g int) effect.ArmSums { return effect.ArmSums(rs.Effects[o][a][g]) }
 		ut, uc := arm(0, 1), arm(0, 0)
-		binary := ut.NonBinary+uc.NonBinary == 0
+		// The sums count values other than 0 and 1: the reader's rule
+		// (warehouse.ClassifyOutcome) without reading the rows.
+		kind := warehouse.OutcomeContinuous
+		if ut.NonBinary+uc.NonBinary == 0 {
+			kind = warehouse.OutcomeBinary
+		}
+		binary := outcomeKinds[kind].events
 		sc := outcomeScale{prevalence: (ut.WY + uc.WY) / (ut.N + uc.N), sd: effect.UnadjustedSD(ut, uc)}
 		ea := 0 // index into the effect adjustments (all but matched)
 		for _, adj := range adjustmentNames(s) {

@@ -85,7 +85,7 @@ func TestReadDuckDBTypes(t *testing.T) {
 		if got := c.Covariates[4].Values; !slices.Equal(got, []float64{0.5, 1.5, 2.5}) {
 			t.Errorf("FLOAT covariate %v", got)
 		}
-		if o := c.Outcomes[0]; !slices.Equal(o.Values, []float64{1, 0, 1}) || !o.Binary {
+		if o := c.Outcomes[0]; !slices.Equal(o.Values, []float64{1, 0, 1}) || o.Kind != warehouse.OutcomeBinary {
 			t.Errorf("UTINYINT outcome %+v", o)
 		}
 	})

@@ -428,7 +428,7 @@ func (k *Collector) Finish() (*warehouse.Cohort, error) {
 		c.Covariates = append(c.Covariates, cv)
 	}
 	for _, o := range k.outs {
-		c.Outcomes = append(c.Outcomes, warehouse.Outcome{Name: o.name, Values: o.vals, Binary: binary(o.vals)})
+		c.Outcomes = append(c.Outcomes, warehouse.Outcome{Name: o.name, Values: o.vals, Kind: warehouse.ClassifyOutcome(o.vals)})
 	}
 	if err := warehouse.CheckUnique(c); err != nil {
 		return nil, err
@@ -436,17 +436,3 @@ func (k *Collector) Finish() (*warehouse.Cohort, error) {
 	return c, nil
 }
 
-// binary reports whether every non-NULL value is 0 or 1 (and there is one).
-func binary(vals []float64) bool {
-	seen := false
-	for _, v := range vals {
-		if math.IsNaN(v) {
-			continue
-		}
-		if v != 0 && v != 1 {
-			return false
-		}
-		seen = true
-	}
-	return seen
-}

@@ -167,8 +167,8 @@ func testReadTypes(t *testing.T, e Engine) {
 			{"y3", []float64{0, 1, 1}, true},
 		} {
 			o := outs[tt.name]
-			if !sameFloats(o.Values, tt.want) || o.Binary != tt.binary {
-				t.Errorf("outcome %s = %v binary %v, want %v %v", tt.name, o.Values, o.Binary, tt.want, tt.binary)
+			if !sameFloats(o.Values, tt.want) || (o.Kind == warehouse.OutcomeBinary) != tt.binary {
+				t.Errorf("outcome %s = %v binary %v, want %v %v", tt.name, o.Values, o.Kind == warehouse.OutcomeBinary, tt.want, tt.binary)
 			}
 		}
 	})

@@ -2,6 +2,7 @@ package study
 
 import (
 	"context"
+	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"fmt"
 	"os"
@@ -31,12 +32,12 @@ func BenchmarkWholeRun(b *testing.B) {
 	if err != nil {
 		b.Fatal(err)
 	}
-	if _, err := raw.Exec(BenchCohortSQL(n)); err != nil {
+	if _, err := raw.Exec(warehousetest.BenchCohortSQL(n)); err != nil {
 		b.Fatal(err)
 	}
 	raw.Close()
 	path := filepath.Join(dir, "bench.yaml")
-	if err := os.WriteFile(path, []byte(fmt.Sprintf(BenchStudy, db)), 0o644); err != nil {
+	if err := os.WriteFile(path, []byte(fmt.Sprintf(warehousetest.BenchStudy, db)), 0o644); err != nil {
 		b.Fatal(err)
 	}
 	s, err := Load(path)

@@ -2,6 +2,7 @@ package study
 
 import (
 	"context"
+	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"fmt"
 	"math"
@@ -28,7 +29,7 @@ import (
 func TestWarehouseModeMatchesMemory(t *testing.T) {
 	for _, tc := range []struct {
 		name    string
-		edit    []string // old, new pairs applied to BenchStudy
+		edit    []string // old, new pairs applied to warehousetest.BenchStudy
 		schemes []string
 	}{
 		{"greedy and three weightings", nil, []string{"att", "ate", "overlap"}},
@@ -51,13 +52,13 @@ func compareModes(t *testing.T, edit, schemes []string) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := db.Exec(BenchCohortSQL(3000)); err != nil {
+	if _, err := db.Exec(warehousetest.BenchCohortSQL(3000)); err != nil {
 		t.Fatal(err)
 	}
 	db.Close()
 	runs := map[string]*Summary{}
 	for _, mode := range []string{"memory", "warehouse"} {
-		text := fmt.Sprintf(BenchStudy, dsn)
+		text := fmt.Sprintf(warehousetest.BenchStudy, dsn)
 		text = mustReplace(t, text, "select * from synth.cohort", "select * from synth.cohort order by unit_id")
 		text = mustReplace(t, text, "bench_run_", "m_"+mode+"_")
 		for i := 0; i+1 < len(edit); i += 2 {

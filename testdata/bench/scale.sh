@@ -5,7 +5,7 @@
 # of each mode, then how the two runs' matched sets, scores and weights
 # differ (testdata/bench/modediff).
 #
-# DuckDB: UNITS units (default 10,000,000) of study.BenchCohortSQLWith:
+# DuckDB: UNITS units (default 10,000,000) of warehousetest.BenchCohortSQLWith:
 # ~10 % treated, NUMERIC numeric (default 27) + 3 categorical covariates,
 # built by testdata/bench/mkwarehouse.
 # Postgres: only when PG_DSN is set (a scratch database you own):

@@ -1,5 +1,5 @@
 // Command mkwarehouse writes the benchmarks' synthetic DuckDB warehouse
-// (see study.BenchCohortSQLWith) and, when asked, the study file that runs
+// (see warehousetest.BenchCohortSQLWith) and, when asked, the study file that runs
 // on it. It lives under testdata so that `go build ./...` skips it; run it
 // with `go run ./testdata/bench/mkwarehouse`.
 package main
@@ -13,13 +13,13 @@ import (
 
 	_ "github.com/duckdb/duckdb-go/v2"
 
-	"counterpart/match/study"
+	"counterpart/warehouse/warehousetest"
 )
 
 func main() {
 	out := flag.String("out", "bench.duckdb", "DuckDB file to write")
 	units := flag.Int("units", 1_000_000, "number of units")
-	numeric := flag.Int("numeric", study.BenchNumeric, "numeric covariates (plus 3 categorical ones)")
+	numeric := flag.Int("numeric", warehousetest.BenchNumeric, "numeric covariates (plus 3 categorical ones)")
 	csv := flag.String("csv", "", "also export the cohort to this CSV file (for the statsmodels comparison)")
 	studyOut := flag.String("study", "", "only write the study file for -out to this path (the warehouse is not rebuilt)")
 	engine := flag.String("engine", "duckdb", "study file: warehouse.engine")
@@ -32,7 +32,7 @@ func main() {
 		if *dsn == "" {
 			*dsn = *out
 		}
-		text := fmt.Sprintf(study.BenchStudyWith(*numeric), *dsn)
+		text := fmt.Sprintf(warehousetest.BenchStudyWith(*numeric), *dsn)
 		text = strings.Replace(text, "engine: duckdb", "engine: "+*engine, 1)
 		text = strings.Replace(text, "bench_run_", *prefix, 1)
 		text = strings.Replace(text, "synth.cohort", *from, 1)
@@ -47,7 +47,7 @@ func main() {
 	os.Remove(*out + ".wal")
 	db, err := sql.Open("duckdb", *out)
 	if err == nil {
-		_, err = db.Exec(study.BenchCohortSQLWith(*units, *numeric))
+		_, err = db.Exec(warehousetest.BenchCohortSQLWith(*units, *numeric))
 	}
 	if err == nil && *csv != "" {
 		_, err = db.Exec(fmt.Sprintf("COPY synth.cohort TO '%s' (HEADER)", *csv))

@@ -59,8 +59,8 @@ do_dataset <- function(name, d, horizons) {
       IS <- matrix(0, length(ids), 2); IR <- matrix(0, length(ids), 2); Sh <- c(0, 0); Rh <- c(0, 0)
       for (a in 0:1) {
         inf <- r$influence.surv[[a + 1]]
-        # Row names index the cluster levels (rows: the row number).
-        cid <- ids[as.integer(rownames(inf))]
+        # Row names are the cluster values (without clusters: row numbers).
+        cid <- as.integer(rownames(inf))
         if (cv == "row") stopifnot(all(cid == which(d$z == a)))
         else stopifnot(all(cid == sort(unique(d$cl[d$z == a]))))
         tt <- r$time[rep(1:2, r$strata) == a + 1]; ss <- r$surv[rep(1:2, r$strata) == a + 1]

@@ -185,3 +185,36 @@ func TestKaplanMeierMatchesR(t *testing.T) {
 	}
 	tr.log(t)
 }
+
+// Source: R survival 3.5.3, coxph(Surv(t, e) ~ z, weights = w,
+// robust = TRUE, ties = ties) (coef, sqrt(naive.var), sqrt(var), loglik),
+// coxph(..., cluster = cl) for the cluster SE, and cox.zph(fit,
+// transform = "km") for the PH check.
+func TestCoxMatchesR(t *testing.T) {
+	tr := tracker{}
+	for _, ds := range survSets {
+		d := loadSurv(t, ds.name)
+		ref := readRef(t, ds.name+"_ref.csv")
+		for _, ties := range []Ties{Efron, Breslow} {
+			t.Run(ds.name+"/"+ties.String(), func(t *testing.T) {
+				f, err := Cox(d, ties)
+				if err != nil {
+					t.Fatal(err)
+				}
+				p := "cox/" + ties.String() + "/"
+				se := ref[p+"se_model"]
+				// The coefficient can sit near 0 (veteran's weighted HR is
+				// ≈ 1), so its floor is its SE: agreement to 1e-6 SE.
+				tr.check(t, "cox coef", p, f.LogHR, ref[p+"coef"], se)
+				tr.check(t, "cox se model", p, f.Model.SE, se, 0)
+				tr.check(t, "cox se robust", p, f.Robust.SE, ref[p+"se_robust"], 0)
+				tr.check(t, "cox se cluster", p, f.Cluster.SE, ref[p+"se_cluster"], 0)
+				tr.check(t, "cox loglik", p, f.LogLik, ref[p+"loglik"], 0)
+				tr.check(t, "cox loglik", p+"0", f.LogLik0, ref[p+"loglik0"], 0)
+				tr.check(t, "zph chisq", p, f.PH.ChiSq, ref[p+"zph_chisq"], 0)
+				tr.check(t, "zph p", p, f.PH.P, ref[p+"zph_p"], 0)
+			})
+		}
+	}
+	tr.log(t)
+}

@@ -3,9 +3,11 @@ package survival
 import (
 	"encoding/csv"
 	"fmt"
+	"maps"
 	"math"
 	"os"
 	"path/filepath"
+	"slices"
 	"strconv"
 	"testing"
 )
@@ -105,8 +107,9 @@ func (tr tracker) check(t *testing.T, family, what string, got, want, floor floa
 }
 
 func (tr tracker) log(t *testing.T) {
-	for k, v := range tr {
-		t.Logf("max relative difference %-28s %.3g", k, v)
+	keys := slices.Sorted(maps.Keys(tr))
+	for _, k := range keys {
+		t.Logf("max relative difference %-30s %.3g", k, tr[k])
 	}
 }
 
@@ -247,6 +250,12 @@ func TestRatesMatchStatsmodels(t *testing.T) {
 			tr.check(t, "rate diff", name, f.Diff, 1000*ref["wls/rate_diff"], 0)
 			tr.check(t, "rate diff se hc0", name, f.DiffHC0.SE, 1000*ref["wls/se_hc0"], 0)
 			tr.check(t, "rate diff se cluster", name, f.DiffCluster.SE, 1000*ref["wls/se_cluster"], 0)
+			// Source: R glm(quasipoisson, weights = w) + sandwich vcovHC
+			// "HC0" / vcovCL "HC1" (make_reference.R).
+			rr := readRef(t, "rates_"+name+"_r.csv")
+			tr.check(t, "rate log rr (R)", name, math.Log(f.RateRatio), rr["log_rr"], 0)
+			tr.check(t, "rate se hc0 (R sandwich)", name, f.HC0.SE, rr["se_hc0"], 0)
+			tr.check(t, "rate se cluster (R sandwich)", name, f.Cluster.SE, rr["se_cluster"], 0)
 			if f.Groups != int(ref["n_groups"]) {
 				t.Errorf("groups %d, statsmodels %v", f.Groups, ref["n_groups"])
 			}

@@ -143,3 +143,17 @@ ins$cl <- as.integer(ins$District)
 ins <- ins[ins$exposure > 0, ]
 write.csv(ins[, c("count", "exposure", "z", "w", "cl")], file.path(out, "rates_insurance.csv"), row.names = FALSE)
 cat("R", R.version.string, "survival", as.character(packageVersion("survival")), "\n")
+
+# Second reference for the rates: R glm(quasipoisson) with prior weights and
+# sandwich (Debian r-cran-sandwich): vcovHC(type = "HC0") and vcovCL(type =
+# "HC1", cadjust = TRUE), i.e. G/(G-1)·(N-1)/(N-K).
+suppressMessages(library(sandwich))
+for (nm in c("cgd", "insurance")) {
+  r <- read.csv(file.path(out, paste0("rates_", nm, ".csv")))
+  m <- glm(count ~ z + offset(log(exposure)), family = quasipoisson, weights = w, data = r)
+  kv <- c(log_rr = unname(coef(m)[2]),
+          se_hc0 = sqrt(vcovHC(m, type = "HC0")[2, 2]),
+          se_cluster = sqrt(vcovCL(m, cluster = ~cl, type = "HC1", cadjust = TRUE)[2, 2]))
+  write.csv(data.frame(key = names(kv), value = sprintf("%.17g", kv)),
+            file.path(out, paste0("rates_", nm, "_r.csv")), row.names = FALSE, quote = FALSE)
+}

@@ -1,0 +1,219 @@
+package survival
+
+import (
+	"cmp"
+	"fmt"
+	"math"
+	"slices"
+)
+
+// ZCrit is the 0.975 quantile of the standard normal distribution, used for
+// every 95% interval in this package.
+const ZCrit = 1.959963984540054
+
+// Data holds one time-to-event outcome for a two-arm comparison. All
+// non-nil slices must have the length of Time.
+type Data struct {
+	// Time is the follow-up time, > 0: time of the event, or of censoring.
+	Time []float64
+	// Event is true for an event, false for a censored row.
+	Event []bool
+	// Treated is true for the treated arm.
+	Treated []bool
+	// Weight holds non-negative case weights; nil means all 1.
+	Weight []float64
+	// Cluster labels dependent rows (a matched set, a reused control's
+	// copies); nil means every row is its own cluster.
+	Cluster []int
+}
+
+// Interval is a standard error with its 95% interval and two-sided p-value.
+// For a ratio the SE is that of the logarithm and the interval is
+// exp(log ratio ± z·SE); the p-value tests ratio 1, otherwise value 0.
+type Interval struct {
+	SE, Lo, Hi, P float64
+}
+
+// Measure is an estimate with its Greenwood-type (frequency-weight,
+// independent arms) and robust (influence-function, clustered when
+// clusters are given) intervals.
+type Measure struct {
+	Value float64
+	// Ratio is true when Value is a ratio whose SEs are on the log scale.
+	Ratio     bool
+	Greenwood Interval
+	Robust    Interval
+}
+
+// interval builds the 95% interval of value (or of log value when ratio)
+// with standard error se.
+func interval(value, se float64, ratio bool) Interval {
+	if ratio {
+		l := math.Log(value)
+		return Interval{SE: se, Lo: math.Exp(l - ZCrit*se), Hi: math.Exp(l + ZCrit*se), P: pNormal(l / se)}
+	}
+	return Interval{SE: se, Lo: value - ZCrit*se, Hi: value + ZCrit*se, P: pNormal(value / se)}
+}
+
+// pNormal is the two-sided normal p-value of a z statistic.
+func pNormal(z float64) float64 {
+	if math.IsNaN(z) {
+		return math.NaN()
+	}
+	return math.Erfc(math.Abs(z) / math.Sqrt2)
+}
+
+// pChiSq1 is the upper tail of a chi-square with one degree of freedom.
+func pChiSq1(x float64) float64 {
+	if !(x >= 0) {
+		return math.NaN()
+	}
+	return math.Erfc(math.Sqrt(x / 2))
+}
+
+// EventsFromFloat converts a 0/1 event column to booleans; any other value
+// (including NaN) is an error counting the offending units.
+func EventsFromFloat(x []float64) ([]bool, error) {
+	out := make([]bool, len(x))
+	bad := 0
+	for i, v := range x {
+		switch v {
+		case 1:
+			out[i] = true
+		case 0:
+		default:
+			bad++
+		}
+	}
+	if bad > 0 {
+		return nil, fmt.Errorf("survival: %d units have an event value other than 0 or 1", bad)
+	}
+	return out, nil
+}
+
+func checkLen(name string, n, m int) {
+	if m != n {
+		panic(fmt.Sprintf("survival: %s has length %d, time has %d", name, m, n))
+	}
+}
+
+// validate checks the data of one outcome; lengths panic, values error.
+func (d Data) validate() error {
+	n := len(d.Time)
+	checkLen("event", n, len(d.Event))
+	checkLen("treated", n, len(d.Treated))
+	if d.Weight != nil {
+		checkLen("weight", n, len(d.Weight))
+	}
+	if d.Cluster != nil {
+		checkLen("cluster", n, len(d.Cluster))
+	}
+	badT, badW := 0, 0
+	var arms [2]int
+	for i, t := range d.Time {
+		if !(t > 0) || math.IsInf(t, 1) {
+			badT++
+		}
+		if d.Weight != nil && (!(d.Weight[i] >= 0) || math.IsInf(d.Weight[i], 1)) {
+			badW++
+		}
+		arms[b2i(d.Treated[i])]++
+	}
+	if badT > 0 {
+		return fmt.Errorf("survival: %d units have a follow-up time that is missing, not finite or not > 0", badT)
+	}
+	if badW > 0 {
+		return fmt.Errorf("survival: %d units have a weight that is missing, negative or not finite", badW)
+	}
+	if arms[0] == 0 || arms[1] == 0 {
+		return fmt.Errorf("survival: %d treated and %d control units; both arms need units", arms[1], arms[0])
+	}
+	return nil
+}
+
+func b2i(b bool) int {
+	if b {
+		return 1
+	}
+	return 0
+}
+
+func (d Data) weight(i int) float64 {
+	if d.Weight == nil {
+		return 1
+	}
+	return d.Weight[i]
+}
+
+// canonical returns the row indices in the package's canonical order: time
+// ascending, events before censorings at the same time (a unit censored at t
+// is at risk at t), then control before treated, then weight and cluster.
+// Rows equal on every key are interchangeable, so every later sum is
+// independent of the input order.
+func (d Data) canonical() []int32 {
+	idx := make([]int32, len(d.Time))
+	for i := range idx {
+		idx[i] = int32(i)
+	}
+	slices.SortFunc(idx, func(a, b int32) int {
+		if c := cmp.Compare(d.Time[a], d.Time[b]); c != 0 {
+			return c
+		}
+		if d.Event[a] != d.Event[b] {
+			if d.Event[a] {
+				return -1
+			}
+			return 1
+		}
+		if d.Treated[a] != d.Treated[b] {
+			if d.Treated[b] {
+				return -1
+			}
+			return 1
+		}
+		if c := cmp.Compare(d.weight(int(a)), d.weight(int(b))); c != 0 {
+			return c
+		}
+		if d.Cluster != nil {
+			return cmp.Compare(d.Cluster[a], d.Cluster[b])
+		}
+		return 0
+	})
+	return idx
+}
+
+// clusters maps rows to dense cluster numbers in ascending label order, so
+// that sums over clusters run in a fixed order. Without labels every row
+// is its own cluster, numbered by its canonical position.
+func clusters(labels []int, order []int32) (of []int32, k int) {
+	of = make([]int32, len(order))
+	if labels == nil {
+		for pos, i := range order {
+			of[i] = int32(pos)
+		}
+		return of, len(order)
+	}
+	u := slices.Clone(labels)
+	slices.Sort(u)
+	u = slices.Compact(u)
+	for i, l := range labels {
+		j, _ := slices.BinarySearch(u, l)
+		of[i] = int32(j)
+	}
+	return of, len(u)
+}
+
+// clusterVar returns Σ_c (Σ_{i∈c} u_i)², the infinitesimal-jackknife
+// (sandwich) variance of an estimate whose weighted per-row influence is u,
+// accumulating rows in canonical order and clusters in label order.
+func clusterVar(u []float64, of []int32, k int, order []int32) float64 {
+	acc := make([]float64, k)
+	for _, i := range order {
+		acc[of[i]] += u[i]
+	}
+	s := 0.0
+	for _, a := range acc {
+		s += a * a
+	}
+	return s
+}

@@ -1,0 +1,294 @@
+package survival
+
+import (
+	"fmt"
+	"math"
+	"slices"
+)
+
+// Step is one row of a Kaplan–Meier table: a distinct follow-up time of the
+// arm (an event or a censoring time, as R's survfit lists them).
+type Step struct {
+	Time float64
+	// AtRisk, Events and Censored are weighted: at risk just before Time
+	// (units censored at Time count as at risk), events and censorings at
+	// Time.
+	AtRisk, Events, Censored float64
+	// NAtRisk, NEvents and NCensored are the same counts unweighted.
+	NAtRisk, NEvents, NCensored int
+	// Surv is S(Time), right-continuous. SE is its Greenwood-type standard
+	// error with weighted counts,
+	//
+	//	SE = S(t)·√(Σ_{t_j ≤ t} d_j / (n_j (n_j − d_j))),
+	//
+	// as R survfit(weights = w, robust = FALSE) reports (summary std.err);
+	// increments with n_j = d_j are taken as 0.
+	Surv, SE float64
+}
+
+// Curve is one arm's Kaplan–Meier table.
+type Curve struct {
+	Treated bool
+	Steps   []Step
+}
+
+// Horizon holds the horizon summaries of both arms (index 0 control,
+// 1 treated) and their contrasts, treated minus (or over) control.
+type Horizon struct {
+	Time float64
+	// Surv is S(H), Risk is 1 − S(H), RMST is ∫₀ᴴ S(u) du.
+	Surv, Risk, RMST [2]Measure
+	// SurvDiff = S₁(H) − S₀(H); RiskDiff = its negative; RMSTDiff likewise
+	// treated − control; RiskRatio = (1 − S₁(H)) / (1 − S₀(H)), SEs on the
+	// log scale.
+	SurvDiff, RiskDiff, RMSTDiff, RiskRatio Measure
+}
+
+// KMResult is the output of KaplanMeier.
+type KMResult struct {
+	Curves   [2]Curve
+	Horizons []Horizon
+}
+
+// kmArm holds one arm's step arrays plus the cumulative Greenwood sum
+// A(t_j) = Σ_{k ≤ j} d_k / (n_k (n_k − d_k)).
+type kmArm struct {
+	t, n, d, s, a, cumA []float64
+}
+
+// KaplanMeier estimates the weighted Kaplan–Meier curve of each arm,
+//
+//	S(t) = Π_{t_j ≤ t} (1 − d_j / n_j)
+//
+// with d_j, n_j the weighted events and weighted number at risk at t_j
+// (R survfit(Surv(t, e) ~ z, weights = w)), and at each horizon H reports
+// survival, risk, RMST and the arm contrasts.
+//
+// Greenwood intervals use the weighted Greenwood formula (Step.SE) for S(H)
+// and, for RMST, Var = Σ_{t_j ≤ H} B_j² d_j / (n_j (n_j − d_j)) with
+// B_j = ∫_{t_j}^H S(u) du, which is what R's print(fit, rmean = H) reports as
+// se(rmean); contrasts add the arms' variances (independent arms).
+//
+// Robust intervals use the infinitesimal jackknife: the derivative of the
+// estimate with respect to each row's weight,
+//
+//	∂S(H)/∂w_i = −S(H) Σ_{t_j ≤ H} (dN_i(t_j) − Y_i(t_j) d_j/n_j) / (n_j − d_j),
+//
+// times w_i, summed within clusters and squared (R survfit(..., robust = TRUE,
+// cluster = c); with non-integer weights R uses it by default). RMST's
+// influence integrates that of S over [0, H]. Because a cluster may hold
+// rows of both arms, contrasts sum each cluster's influence across arms
+// before squaring, which carries the covariance between the arms.
+//
+// A horizon must be > 0 and no later than the last follow-up time of
+// either arm.
+func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
+	if err := d.validate(); err != nil {
+		return KMResult{}, fmt.Errorf("kaplan-meier: %w", err)
+	}
+	order := d.canonical()
+	pos := make([]int32, len(d.Time)) // row → its step in its arm
+	var arms [2]kmArm
+	var res KMResult
+	for a := range res.Curves {
+		res.Curves[a].Treated = a == 1
+	}
+	for _, i := range order {
+		a := b2i(d.Treated[i])
+		c := &res.Curves[a]
+		t := d.Time[i]
+		if len(c.Steps) == 0 || c.Steps[len(c.Steps)-1].Time != t {
+			c.Steps = append(c.Steps, Step{Time: t})
+		}
+		st := &c.Steps[len(c.Steps)-1]
+		w := d.weight(int(i))
+		if d.Event[i] {
+			st.Events += w
+			st.NEvents++
+		} else {
+			st.Censored += w
+			st.NCensored++
+		}
+		pos[i] = int32(len(c.Steps) - 1)
+	}
+	for a := range arms {
+		steps := res.Curves[a].Steps
+		k := len(steps)
+		ar := kmArm{t: make([]float64, k), n: make([]float64, k), d: make([]float64, k),
+			s: make([]float64, k), a: make([]float64, k), cumA: make([]float64, k)}
+		var n float64
+		var nn int
+		for j := k - 1; j >= 0; j-- {
+			n += steps[j].Events + steps[j].Censored
+			nn += steps[j].NEvents + steps[j].NCensored
+			steps[j].AtRisk, steps[j].NAtRisk = n, nn
+		}
+		s, cum := 1.0, 0.0
+		for j := range steps {
+			st := &steps[j]
+			ar.t[j], ar.n[j], ar.d[j] = st.Time, st.AtRisk, st.Events
+			if st.Events > 0 {
+				s *= 1 - st.Events/st.AtRisk
+				if st.AtRisk > st.Events {
+					ar.a[j] = st.Events / (st.AtRisk * (st.AtRisk - st.Events))
+				}
+			}
+			if s < 0 { // rounding when every unit at risk has the event
+				s = 0
+			}
+			cum += ar.a[j]
+			ar.s[j], ar.cumA[j] = s, cum
+			st.Surv, st.SE = s, s*math.Sqrt(cum)
+		}
+		arms[a] = ar
+	}
+	last := math.Min(arms[0].t[len(arms[0].t)-1], arms[1].t[len(arms[1].t)-1])
+	of, k := clusters(d.Cluster, order)
+	for _, h := range horizons {
+		if !(h > 0) || h > last {
+			beyond := 0
+			for _, t := range d.Time {
+				if t < h {
+					beyond++
+				}
+			}
+			return KMResult{}, fmt.Errorf("kaplan-meier: horizon %v is not within follow-up (0, %v], the last time both arms are followed; %d units have follow-up ending before it", h, last, beyond)
+		}
+		res.Horizons = append(res.Horizons, horizon(d, &arms, pos, order, of, k, h))
+	}
+	return res, nil
+}
+
+// horizon computes the summaries at one horizon h.
+func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) Horizon {
+	out := Horizon{Time: h}
+	var sh, rm, varS, varR [2]float64
+	var bAt, abCum [2][]float64 // B_j per step; Σ_{i ≤ j} a_i B_i
+	for a := range arms {
+		ar := &arms[a]
+		m := len(ar.t)
+		j := lastAtOrBefore(ar.t, h)
+		sh[a] = 1
+		if j >= 0 {
+			sh[a] = ar.s[j]
+			varS[a] = sh[a] * sh[a] * ar.cumA[j]
+		}
+		// B_i = ∫_{t_i}^h S(u) du, accumulated backwards over steps ≤ h.
+		b := make([]float64, m)
+		acc := 0.0
+		for i := j; i >= 0; i-- {
+			right := h
+			if i < j {
+				right = ar.t[i+1]
+			}
+			acc += ar.s[i] * (right - ar.t[i])
+			b[i] = acc
+		}
+		first := h // S = 1 on [0, t_1)
+		if m > 0 && ar.t[0] < h {
+			first = ar.t[0]
+		}
+		rm[a] = first + acc
+		cum := make([]float64, m)
+		c := 0.0
+		for i := 0; i < m; i++ {
+			if i <= j {
+				c += ar.a[i] * b[i]
+				varR[a] += b[i] * b[i] * ar.a[i]
+			}
+			cum[i] = c
+		}
+		bAt[a], abCum[a] = b, cum
+	}
+	// Weighted influence of each row on S_a(h) and RMST_a(h).
+	n := len(d.Time)
+	uS, uR := make([]float64, n), make([]float64, n)
+	for i := 0; i < n; i++ {
+		a := b2i(d.Treated[i])
+		ar := &arms[a]
+		m := int(pos[i])
+		w := d.weight(i)
+		tm := ar.t[m]
+		free := ar.n[m] - ar.d[m] // weighted survivors of the row's step
+		// S(h): C_i = [event, t_m ≤ h]/(n_m − d_m) − A(min(h, t_m)).
+		if sh[a] > 0 {
+			jm := m
+			if tm > h {
+				jm = lastAtOrBefore(ar.t, h)
+			}
+			c := 0.0
+			if jm >= 0 {
+				c = -ar.cumA[jm]
+			}
+			if d.Event[i] && tm <= h {
+				c += 1 / free
+			}
+			uS[i] = -w * sh[a] * c
+		}
+		// RMST: −[event, t_m < h]·B_m/(n_m − d_m) + Σ_{t_k ≤ min(h, t_m)} a_k B_k.
+		jm := m
+		if tm > h {
+			jm = lastAtOrBefore(ar.t, h)
+		}
+		r := 0.0
+		if jm >= 0 {
+			r = abCum[a][jm]
+		}
+		if d.Event[i] && tm < h && free > 0 {
+			r -= bAt[a][m] / free
+		}
+		uR[i] = w * r
+	}
+	for a := 0; a < 2; a++ {
+		uSa, uRa := armOnly(d, uS, a), armOnly(d, uR, a)
+		rs := math.Sqrt(clusterVar(uSa, of, k, order))
+		rr := math.Sqrt(clusterVar(uRa, of, k, order))
+		out.Surv[a] = Measure{Value: sh[a], Greenwood: interval(sh[a], math.Sqrt(varS[a]), false), Robust: interval(sh[a], rs, false)}
+		out.Risk[a] = Measure{Value: 1 - sh[a], Greenwood: interval(1-sh[a], math.Sqrt(varS[a]), false), Robust: interval(1-sh[a], rs, false)}
+		out.RMST[a] = Measure{Value: rm[a], Greenwood: interval(rm[a], math.Sqrt(varR[a]), false), Robust: interval(rm[a], rr, false)}
+	}
+	// Contrasts: treated rows carry +u, control rows −u (diff), so a
+	// cluster's sum holds both arms' influence.
+	uD, uDR, uL := make([]float64, n), make([]float64, n), make([]float64, n)
+	for i := 0; i < n; i++ {
+		if d.Treated[i] {
+			uD[i], uDR[i], uL[i] = uS[i], uR[i], -uS[i]/(1-sh[1])
+		} else {
+			uD[i], uDR[i], uL[i] = -uS[i], -uR[i], uS[i]/(1-sh[0])
+		}
+	}
+	sd := sh[1] - sh[0]
+	seD := math.Sqrt(varS[0] + varS[1])
+	rseD := math.Sqrt(clusterVar(uD, of, k, order))
+	out.SurvDiff = Measure{Value: sd, Greenwood: interval(sd, seD, false), Robust: interval(sd, rseD, false)}
+	out.RiskDiff = Measure{Value: -sd, Greenwood: interval(-sd, seD, false), Robust: interval(-sd, rseD, false)}
+	rd := rm[1] - rm[0]
+	out.RMSTDiff = Measure{Value: rd, Greenwood: interval(rd, math.Sqrt(varR[0]+varR[1]), false),
+		Robust: interval(rd, math.Sqrt(clusterVar(uDR, of, k, order)), false)}
+	r1, r0 := 1-sh[1], 1-sh[0]
+	ratio := r1 / r0
+	seL := math.Sqrt(varS[1]/(r1*r1) + varS[0]/(r0*r0))
+	out.RiskRatio = Measure{Value: ratio, Ratio: true, Greenwood: interval(ratio, seL, true),
+		Robust: interval(ratio, math.Sqrt(clusterVar(uL, of, k, order)), true)}
+	return out
+}
+
+// armOnly returns u with the other arm's rows set to 0.
+func armOnly(d Data, u []float64, a int) []float64 {
+	out := make([]float64, len(u))
+	for i, v := range u {
+		if b2i(d.Treated[i]) == a {
+			out[i] = v
+		}
+	}
+	return out
+}
+
+// lastAtOrBefore returns the index of the last t ≤ x in ascending t, or −1.
+func lastAtOrBefore(t []float64, x float64) int {
+	j, found := slices.BinarySearch(t, x)
+	if found {
+		return j
+	}
+	return j - 1
+}

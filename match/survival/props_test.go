@@ -1,0 +1,168 @@
+package survival
+
+import (
+	"math"
+	"math/rand/v2"
+	"reflect"
+	"strings"
+	"testing"
+)
+
+// permute returns d with its rows in the order p.
+func permute(d Data, p []int) Data {
+	out := Data{Time: make([]float64, len(p)), Event: make([]bool, len(p)), Treated: make([]bool, len(p))}
+	if d.Weight != nil {
+		out.Weight = make([]float64, len(p))
+	}
+	if d.Cluster != nil {
+		out.Cluster = make([]int, len(p))
+	}
+	for i, j := range p {
+		out.Time[i], out.Event[i], out.Treated[i] = d.Time[j], d.Event[j], d.Treated[j]
+		if d.Weight != nil {
+			out.Weight[i] = d.Weight[j]
+		}
+		if d.Cluster != nil {
+			out.Cluster[i] = d.Cluster[j]
+		}
+	}
+	return out
+}
+
+// Results must be a function of the multiset of rows (DESIGN.md: results
+// never depend on the order an engine returns rows): shuffled inputs give
+// bit-identical KM, Cox and rate results. Property of the canonical order
+// (common practice).
+func TestShuffleInvariance(t *testing.T) {
+	rng := rand.New(rand.NewPCG(14, 1))
+	for _, ds := range survSets {
+		d := loadSurv(t, ds.name)
+		km0, err := KaplanMeier(d, ds.horizons)
+		if err != nil {
+			t.Fatal(err)
+		}
+		cox0, err := Cox(d, Efron)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for rep := 0; rep < 5; rep++ {
+			p := rng.Perm(len(d.Time))
+			dp := permute(d, p)
+			km1, _ := KaplanMeier(dp, ds.horizons)
+			cox1, _ := Cox(dp, Efron)
+			if !reflect.DeepEqual(km0, km1) {
+				t.Errorf("%s: Kaplan–Meier changed when rows were shuffled", ds.name)
+			}
+			if !reflect.DeepEqual(cox0, cox1) {
+				t.Errorf("%s: Cox fit changed when rows were shuffled: %+v vs %+v", ds.name, cox0, cox1)
+			}
+		}
+	}
+	c := readCSV(t, "rates_cgd.csv")
+	cl := floats(t, c["cl"])
+	d := RateData{Count: floats(t, c["count"]), Exposure: floats(t, c["exposure"]),
+		Weight: floats(t, c["w"]), Treated: make([]bool, len(cl)), Cluster: make([]int, len(cl))}
+	for i, z := range floats(t, c["z"]) {
+		d.Treated[i], d.Cluster[i] = z == 1, int(cl[i])
+	}
+	f0, _ := Rates(d, 1000)
+	for rep := 0; rep < 5; rep++ {
+		p := rng.Perm(len(cl))
+		dp := RateData{Count: make([]float64, len(p)), Exposure: make([]float64, len(p)), Weight: make([]float64, len(p)),
+			Treated: make([]bool, len(p)), Cluster: make([]int, len(p))}
+		for i, j := range p {
+			dp.Count[i], dp.Exposure[i], dp.Weight[i], dp.Treated[i], dp.Cluster[i] = d.Count[j], d.Exposure[j], d.Weight[j], d.Treated[j], d.Cluster[j]
+		}
+		if f1, _ := Rates(dp, 1000); !reflect.DeepEqual(f0, f1) {
+			t.Errorf("rates changed when rows were shuffled")
+		}
+	}
+}
+
+// Clusters of one row each must give the row-level robust SE: the cluster
+// sandwich sums nothing across rows then (definition, common practice).
+func TestClusterOfOneEqualsRow(t *testing.T) {
+	d := loadSurv(t, "veteran")
+	row := d
+	row.Cluster = nil
+	own := d
+	own.Cluster = make([]int, len(d.Time))
+	for i := range own.Cluster {
+		own.Cluster[i] = 1000 - i // any distinct labels
+	}
+	a, _ := KaplanMeier(row, []float64{90})
+	b, _ := KaplanMeier(own, []float64{90})
+	if r := relDiff(a.Horizons[0].SurvDiff.Robust.SE, b.Horizons[0].SurvDiff.Robust.SE, 0); r > 1e-12 {
+		t.Errorf("singleton clusters: robust SE differs from row-level by %g", r)
+	}
+	ca, _ := Cox(row, Efron)
+	cb, _ := Cox(own, Efron)
+	if r := relDiff(ca.Robust.SE, cb.Cluster.SE, 0); r > 1e-12 {
+		t.Errorf("singleton clusters: Cox cluster SE differs from robust by %g", r)
+	}
+}
+
+// Bad input is an error naming how many units are at fault (issue 14, bad
+// input: one clear line, so the caller can exit 2).
+func TestBadInput(t *testing.T) {
+	good := func() Data {
+		return Data{Time: []float64{1, 2, 3, 4}, Event: []bool{true, false, true, true}, Treated: []bool{true, true, false, false}}
+	}
+	tests := []struct {
+		name string
+		mod  func(d *Data)
+		h    []float64
+		want string
+	}{
+		{"zero time", func(d *Data) { d.Time[0] = 0 }, nil, "1 units have a follow-up time"},
+		{"NaN times", func(d *Data) { d.Time[0], d.Time[2] = math.NaN(), -1 }, nil, "2 units have a follow-up time"},
+		{"negative weight", func(d *Data) { d.Weight = []float64{1, -1, 1, 1} }, nil, "1 units have a weight"},
+		{"one arm", func(d *Data) { d.Treated = []bool{true, true, true, true} }, nil, "4 treated and 0 control"},
+		{"horizon beyond follow-up", func(d *Data) {}, []float64{2.5}, "horizon 2.5 is not within follow-up (0, 2]"},
+		{"horizon zero", func(d *Data) {}, []float64{0}, "horizon 0 is not within"},
+	}
+	for _, tc := range tests {
+		t.Run(tc.name, func(t *testing.T) {
+			d := good()
+			tc.mod(&d)
+			_, err := KaplanMeier(d, tc.h)
+			if err == nil || !strings.Contains(err.Error(), tc.want) {
+				t.Errorf("KaplanMeier: error %v, want it to contain %q", err, tc.want)
+			}
+			if tc.h == nil {
+				if _, err := Cox(d, Efron); err == nil || !strings.Contains(err.Error(), tc.want) {
+					t.Errorf("Cox: error %v, want it to contain %q", err, tc.want)
+				}
+			}
+		})
+	}
+	if _, err := EventsFromFloat([]float64{0, 1, 2, 0.5, math.NaN()}); err == nil || !strings.Contains(err.Error(), "3 units have an event value") {
+		t.Errorf("EventsFromFloat: %v", err)
+	}
+	if ev, err := EventsFromFloat([]float64{0, 1}); err != nil || !reflect.DeepEqual(ev, []bool{false, true}) {
+		t.Errorf("EventsFromFloat(0, 1) = %v, %v", ev, err)
+	}
+	rate := func() RateData {
+		return RateData{Count: []float64{0, 2, 1, 3}, Exposure: []float64{1, 2, 3, 4}, Treated: []bool{true, true, false, false}}
+	}
+	rtests := []struct {
+		name string
+		mod  func(d *RateData)
+		want string
+	}{
+		{"negative count", func(d *RateData) { d.Count[0] = -1 }, "1 units have a count"},
+		{"fractional count", func(d *RateData) { d.Count[0], d.Count[1] = 0.5, math.NaN() }, "2 units have a count"},
+		{"zero exposure", func(d *RateData) { d.Exposure[3] = 0 }, "1 units have an exposure"},
+		{"no events in an arm", func(d *RateData) { d.Count[0], d.Count[1] = 0, 0 }, "treated arm has 0 weighted events"},
+	}
+	for _, tc := range rtests {
+		d := rate()
+		tc.mod(&d)
+		if _, err := Rates(d, 1000); err == nil || !strings.Contains(err.Error(), tc.want) {
+			t.Errorf("%s: error %v, want it to contain %q", tc.name, err, tc.want)
+		}
+	}
+	if _, err := Cox(Data{Time: []float64{1, 2}, Event: []bool{false, false}, Treated: []bool{true, false}}, Efron); err == nil || !strings.Contains(err.Error(), "0 units have an event") {
+		t.Errorf("Cox without events: %v", err)
+	}
+}

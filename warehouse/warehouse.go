@@ -278,6 +278,18 @@ type Publication struct {
 // EffectRecord is one row of {prefix}effects: one effect estimate of one
 // outcome under one adjustment and contrast. NaN floats are stored as
 // NULL (an undefined standard error, a ratio with a zero denominator).
+// SurvivalStep is one row of the survival table: one arm's weighted
+// Kaplan–Meier step at a follow-up time of one time-to-event outcome
+// under one adjustment.
+type SurvivalStep struct {
+	Outcome, Adjustment string
+	Treated             bool
+	Time                float64
+	// AtRisk, Events and Censored are weighted counts at Time.
+	AtRisk, Events, Censored float64
+	Survival, StdError       float64
+}
+
 type EffectRecord struct {
 	Outcome    string
 	Adjustment string // unadjusted, matched or a weighting scheme

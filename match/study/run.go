@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"slices"
 	"time"
 
 	"github.com/google/uuid"
@@ -108,7 +109,7 @@ func (r *run) read(ctx context.Context) error {
 	r.stage("read")
 	c, err := r.wh.ReadCohort(ctx, warehouse.CohortQuery{
 		SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
-		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
+		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
 	})
 	if err != nil {
 		return fmt.Errorf("read cohort: %w", err)
@@ -203,6 +204,7 @@ type results struct {
 	inSupport []bool
 	matches   warehouse.MatchRows
 	weights   [][]float64
+	survival  []warehouse.SurvivalStep
 }
 
 // badInput classes a stage error as a problem with the data or the study
@@ -457,22 +459,41 @@ func (a *analysis) diagnose() error {
 	return nil
 }
 
-// estimate judges the gate and estimates every outcome's effects.
+// estimate judges the gate and estimates every outcome's effects: the
+// plain outcomes (continuous, binary), then the time-to-event and rate
+// outcomes.
 func (a *analysis) estimate() error {
 	s, sum := a.s, a.sum
 	judgeGate(s, sum)
 	a.clk.stage("estimate")
-	if err := estimateAll(a.c, a.adjs, a.mr, a.fit.Logit, sum); err != nil {
+	// The reader also fetched the time-to-event and rate columns; the
+	// plain estimators see only the plain outcomes.
+	plain := *a.c
+	plain.Outcomes = nil
+	for _, o := range a.c.Outcomes {
+		if slices.Contains(s.Cohort.Outcomes, o.Name) {
+			plain.Outcomes = append(plain.Outcomes, o)
+		}
+	}
+	if err := estimateAll(&plain, a.adjs, a.mr, a.fit.Logit, sum); err != nil {
+		return err
+	}
+	steps, err := estimateEvents(s, a.c, a.adjs, a.mr, sum)
+	if err != nil {
+		return err
+	}
+	a.res.survival = steps
+	if err := estimateRates(s, a.c, a.adjs, a.mr, sum); err != nil {
 		return err
 	}
 	if s.Estimate.Augment {
-		if err := augmentAll(a.c, a.adjs, a.mr, a.d.x, sum); err != nil {
+		if err := augmentAll(&plain, a.adjs, a.mr, a.d.x, sum); err != nil {
 			return err
 		}
 	}
 	if s.Estimate.Bootstrap > 0 {
 		a.clk.stage("bootstrap")
-		if err := bootstrapAll(s, a.c, a.d, sum); err != nil {
+		if err := bootstrapAll(s, &plain, a.d, sum); err != nil {
 			return err
 		}
 		a.clk.timed("bootstrap")

@@ -59,6 +59,44 @@ type CohortSpec struct {
 	Outcomes    []string `yaml:"outcomes" json:"outcomes"`
 	Covariates  []string `yaml:"covariates" json:"covariates"`
 	Categorical []string `yaml:"categorical" json:"categorical"`
+	// TimeToEvent lists outcomes that are a time to an event under
+	// censoring; Rates lists event counts over unequal exposure.
+	TimeToEvent []TimeToEventSpec `yaml:"time_to_event" json:"time_to_event,omitempty"`
+	Rates       []RateSpec        `yaml:"rates" json:"rates,omitempty"`
+}
+
+// TimeToEventSpec is one time-to-event outcome: follow-up time (> 0) and
+// whether it ended in the event (1) or in censoring (0).
+type TimeToEventSpec struct {
+	// Name is the outcome's name in every table.
+	Name  string `yaml:"name" json:"name"`
+	Time  string `yaml:"time" json:"time"`
+	Event string `yaml:"event" json:"event"`
+	// Horizons are the fixed times (in Time's unit) at which risks and
+	// restricted mean times are reported, increasing.
+	Horizons []float64 `yaml:"horizons" json:"horizons"`
+}
+
+// RateSpec is one rate outcome: a non-negative event count over an
+// exposure (> 0, e.g. member-months).
+type RateSpec struct {
+	Name     string `yaml:"name" json:"name"`
+	Count    string `yaml:"count" json:"count"`
+	Exposure string `yaml:"exposure" json:"exposure"`
+}
+
+// ReadColumns lists the outcome-like columns the reader must fetch: the
+// plain outcomes, then each time-to-event outcome's time and event and
+// each rate's count and exposure.
+func (c *CohortSpec) ReadColumns() []string {
+	out := append([]string(nil), c.Outcomes...)
+	for _, t := range c.TimeToEvent {
+		out = append(out, t.Time, t.Event)
+	}
+	for _, r := range c.Rates {
+		out = append(out, r.Count, r.Exposure)
+	}
+	return out
 }
 
 // ScoreSpec configures the propensity model.
@@ -513,6 +551,9 @@ func (s *Spec) validate(doc *yaml.Node) error {
 			used[col] = group.key
 		}
 	}
+	if err := c.validateKinds(used, bad); err != nil {
+		return err
+	}
 	for _, col := range c.Categorical {
 		if used[col] != "cohort.covariates" {
 			return bad("cohort.categorical", "%q is not listed in cohort.covariates", col)
@@ -773,6 +814,76 @@ func (s *Spec) OutputTarget() warehouse.Output {
 	return out
 }
 
+// validateKinds checks the time-to-event and rate outcomes: names unique
+// among all outcomes (they name effects rows), columns valid and not used
+// in another role, horizons positive and increasing.
+func (c *CohortSpec) validateKinds(used map[string]string, bad func(key, format string, args ...any) error) error {
+	names := map[string]string{}
+	for _, o := range c.Outcomes {
+		names[o] = "cohort.outcomes"
+	}
+	name := func(key, n string) error {
+		if n == "" {
+			return bad(key, "missing; give the outcome a name like readmission")
+		}
+		if err := warehouse.ValidIdent(n); err != nil {
+			return bad(key, "%v", err)
+		}
+		if prev, ok := names[n]; ok {
+			return bad(key, "outcome name %q is already used in %s", n, prev)
+		}
+		names[n] = key
+		return nil
+	}
+	column := func(key, col, what string) error {
+		if col == "" {
+			return bad(key, "missing; name the column that holds the %s", what)
+		}
+		if err := warehouse.ValidIdent(col); err != nil {
+			return bad(key, "%v", err)
+		}
+		if prev, ok := used[col]; ok {
+			return bad(key, "column %q is already used as %s", col, prev)
+		}
+		used[col] = key
+		return nil
+	}
+	for _, t := range c.TimeToEvent {
+		if err := name("cohort.time_to_event.name", t.Name); err != nil {
+			return err
+		}
+		if err := column("cohort.time_to_event.time", t.Time, "follow-up time (> 0)"); err != nil {
+			return err
+		}
+		if err := column("cohort.time_to_event.event", t.Event, "event flag (1 = event, 0 = censored)"); err != nil {
+			return err
+		}
+		if len(t.Horizons) == 0 {
+			return bad("cohort.time_to_event.horizons", "missing for %s; list the times (in %s's unit) at which to report risks, e.g. [365]", t.Name, t.Time)
+		}
+		for i, h := range t.Horizons {
+			if !(h > 0) || math.IsInf(h, 0) {
+				return bad("cohort.time_to_event.horizons", "%v is not a positive time (outcome %s)", h, t.Name)
+			}
+			if i > 0 && !(h > t.Horizons[i-1]) {
+				return bad("cohort.time_to_event.horizons", "must increase (outcome %s: %v after %v)", t.Name, h, t.Horizons[i-1])
+			}
+		}
+	}
+	for _, r := range c.Rates {
+		if err := name("cohort.rates.name", r.Name); err != nil {
+			return err
+		}
+		if err := column("cohort.rates.count", r.Count, "event count (>= 0, whole numbers)"); err != nil {
+			return err
+		}
+		if err := column("cohort.rates.exposure", r.Exposure, "exposure (> 0, e.g. member-months)"); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // validateFitIn rejects the options warehouse-scale mode does not carry
 // out: everything that needs the covariate matrix or per-unit outcomes in
 // the process (augmented estimates, the bootstrap's refits, weight rules
@@ -801,6 +912,10 @@ func (s *Spec) validateFitIn(doc *yaml.Node) error {
 		return bad("estimate.bootstrap", "the bootstrap")
 	case s.Rules.Stabilize || len(s.Rules.Percentiles) > 0 || len(s.Rules.Bounds) > 0:
 		return bad("weight_rules", "a weight rule")
+	case len(s.Cohort.TimeToEvent) > 0:
+		return bad("cohort.time_to_event", "a time-to-event outcome")
+	case len(s.Cohort.Rates) > 0:
+		return bad("cohort.rates", "a rate outcome")
 	}
 	return nil
 }

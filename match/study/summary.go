@@ -33,6 +33,9 @@ type Summary struct {
 	Effects     []EffectRow         `json:"effects"`
 	Timings     map[string]float64  `json:"stage_seconds"`
 	Diagnostics *Diagnostics        `json:"diagnostics,omitempty"`
+	// Survival holds the Kaplan–Meier curves of every time-to-event
+	// outcome, arm and adjustment, on a grid.
+	Survival []SurvivalCurve `json:"survival,omitempty"`
 }
 
 // Counts is the attrition of the run.
@@ -165,6 +168,20 @@ type EffectRow struct {
 	BootLow  Num `json:"bootstrap_ci_low,omitempty"`
 	BootHigh Num `json:"bootstrap_ci_high,omitempty"`
 	BootReps int `json:"bootstrap_reps,omitempty"`
+	// Horizon is the follow-up time a time-to-event row is read at
+	// (survival and risk differences and ratios, RMST); nil otherwise.
+	Horizon *Num `json:"horizon,omitempty"`
+	// PH is the proportional-hazards check of a hazard-ratio row.
+	PH *PHCheck `json:"ph_check,omitempty"`
+}
+
+// PHCheck is the Schoenfeld-residual score test of proportional hazards
+// for the treatment effect (reported, not gating): chi-square with 1 df
+// and its p-value, for the named time transform.
+type PHCheck struct {
+	Transform string `json:"transform"`
+	ChiSq     Num    `json:"chi_square"`
+	P         Num    `json:"p_value"`
 }
 
 // Num is a float64 that encodes NaN and ±Inf as JSON null instead of

@@ -22,13 +22,17 @@ func (p *page) effects() {
 	}
 	type group struct {
 		outcome, contrast string
+		horizon           *study.Num
 		rows              []study.EffectRow
 	}
+	sameHorizon := func(a, b *study.Num) bool { return (a == nil) == (b == nil) && (a == nil || *a == *b) }
 	var groups []*group
 	for _, e := range s.Effects {
-		k := slices.IndexFunc(groups, func(g *group) bool { return g.outcome == e.Outcome && g.contrast == e.Contrast })
+		k := slices.IndexFunc(groups, func(g *group) bool {
+			return g.outcome == e.Outcome && g.contrast == e.Contrast && sameHorizon(g.horizon, e.Horizon)
+		})
 		if k < 0 {
-			groups = append(groups, &group{outcome: e.Outcome, contrast: e.Contrast})
+			groups = append(groups, &group{outcome: e.Outcome, contrast: e.Contrast, horizon: e.Horizon})
 			k = len(groups) - 1
 		}
 		groups[k].rows = append(groups[k].rows, e)
@@ -80,6 +84,9 @@ func (p *page) effects() {
 		title := g.outcome
 		if g.contrast != "" {
 			title += " · " + contrastName(g.contrast)
+		}
+		if g.horizon != nil {
+			title += " at " + trimFloat(float64(*g.horizon))
 		}
 		p.text(10, y+14, "start", "head", title)
 		top := y + 24
@@ -137,7 +144,7 @@ func (p *page) effects() {
 				m = len(methods) - 1
 			}
 			p.f("%s<td>%s</td><td>%s</td><td>%s</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">[%s, %s]</td><td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s / %s</td><td class=\"n\">%s</td><td class=\"n\">%d</td></tr>\n",
-				tr, esc(e.Outcome), esc(contrastName(e.Contrast)), esc(e.Adjustment), esc(e.Estimand), effectNum(e.Estimate, ratio), effectNum(e.CILow, ratio), effectNum(e.CIHigh, ratio),
+				tr, esc(e.Outcome), esc(contrastLabel(e)), esc(e.Adjustment), esc(e.Estimand), effectNum(e.Estimate, ratio), effectNum(e.CILow, ratio), effectNum(e.CIHigh, ratio),
 				num(e.SE, 3), pValue(e.P), thousands(e.NTreated), thousands(e.NControl), thousands(e.NMissing), m+1)
 		}
 	}
@@ -157,6 +164,14 @@ func contrastName(c string) string {
 		return "difference"
 	}
 	return strings.ReplaceAll(c, "_", " ")
+}
+
+// contrastLabel is a row's contrast with its horizon, if it has one.
+func contrastLabel(e study.EffectRow) string {
+	if e.Horizon == nil {
+		return contrastName(e.Contrast)
+	}
+	return contrastName(e.Contrast) + " at " + trimFloat(float64(*e.Horizon))
 }
 
 // effectNum prints a difference with its sign and a ratio without.

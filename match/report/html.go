@@ -79,6 +79,7 @@ func (p *page) document() {
 	p.scores()
 	p.ecdf()
 	p.effects()
+	p.survival()
 	p.sensitivity()
 	p.model()
 	p.timings()

@@ -100,16 +100,21 @@ func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 		if len(outcomes) == 0 || outcomes[len(outcomes)-1] != e.Outcome {
 			outcomes = append(outcomes, e.Outcome)
 		}
-		byKey[[3]string{e.Outcome, e.Adjustment, e.Contrast}] = e
+		if e.Horizon == nil {
+			byKey[[3]string{e.Outcome, e.Adjustment, e.Contrast}] = e
+		}
 	}
 	for _, o := range outcomes {
-		p.line(" %s", o)
 		var adjs []string
 		for _, e := range s.Effects {
 			if e.Outcome == o && e.Contrast == "difference" {
 				adjs = append(adjs, e.Adjustment)
 			}
 		}
+		if len(adjs) == 0 {
+			continue // a time-to-event or rate outcome: its own section below
+		}
+		p.line(" %s", o)
 		for _, a := range adjs {
 			d := byKey[[3]string{o, a, "difference"}]
 			head := " "
@@ -126,6 +131,7 @@ func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 				ratio, optional(float64(ev), "%.2f"), optional(float64(d.RosenbaumGamma), "%.2f"))
 		}
 	}
+	terminalEvents(p, s, outcomes)
 	p.line("  * headline adjustment (%s); the balance gate judges it. E-value: confounder strength (risk-ratio", s.Primary)
 	p.line("    scale) that would explain the estimate away. Γ: matched-pair odds of hidden bias at which p > 0.05.")
 	if s.Message != "" {
@@ -206,4 +212,54 @@ func wrap(s string, width int) string {
 	}
 	out.WriteString(line.String())
 	return out.String()
+}
+
+// terminalEvents prints the time-to-event and rate outcomes: per
+// adjustment the hazard ratio (with the proportional-hazards check) and,
+// at each horizon, the survival and RMST differences; or the rate ratio
+// and the rate difference per 1,000 exposure units.
+func terminalEvents(p printer, s *study.Summary, outcomes []string) {
+	interval := func(e study.EffectRow, format string) string {
+		return fmt.Sprintf(format+" ["+format+", "+format+"]", float64(e.Estimate), float64(e.CILow), float64(e.CIHigh))
+	}
+	for _, o := range outcomes {
+		var rows []study.EffectRow
+		for _, e := range s.Effects {
+			if e.Outcome == o {
+				rows = append(rows, e)
+			}
+		}
+		if len(rows) == 0 || rows[0].Contrast == "difference" {
+			continue
+		}
+		p.line(" %s", o)
+		for _, e := range rows {
+			head := " "
+			if e.Adjustment == s.Primary {
+				head = "*"
+			}
+			switch e.Contrast {
+			case study.ContrastHazardRatio:
+				ph := ""
+				if e.PH != nil {
+					ph = "PH check p " + optional(float64(e.PH.P), "%.2f")
+				}
+				p.line(" %s%-13s %-9s hazard ratio %-24s %7s  %s", head, e.Adjustment, e.Estimand, interval(e, "%.3f"), optional(float64(e.EValue), "%.2f"), ph)
+			case study.ContrastSurvivalDifference:
+				rmst := ""
+				for _, r := range rows {
+					if r.Adjustment == e.Adjustment && r.Contrast == study.ContrastRMSTDifference && r.Horizon != nil && *r.Horizon == *e.Horizon {
+						rmst = "restricted mean " + fmt.Sprintf("%s [%s, %s]", signed(float64(r.Estimate)), signed(float64(r.CILow)), signed(float64(r.CIHigh)))
+					}
+				}
+				p.line("   %-22s at %-7g survival %s  %s", "", float64(*e.Horizon),
+					fmt.Sprintf("%s [%s, %s]", signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh))), rmst)
+			case study.ContrastRateRatio:
+				p.line(" %s%-13s %-9s rate ratio   %-24s %7s", head, e.Adjustment, e.Estimand, interval(e, "%.3f"), optional(float64(e.EValue), "%.2f"))
+			case study.ContrastRateDifference:
+				p.line("   %-22s per %s exposure units %s [%s, %s]", "", thousands(study.RatePer),
+					signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh)))
+			}
+		}
+	}
 }

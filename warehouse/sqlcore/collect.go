@@ -435,4 +435,3 @@ func (k *Collector) Finish() (*warehouse.Cohort, error) {
 	}
 	return c, nil
 }
-

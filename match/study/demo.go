@@ -23,7 +23,23 @@ const (
 	// DemoReadmitShift is the planted change in each coached member's
 	// 30-day readmission probability (before clipping to [0.01, 0.99]).
 	DemoReadmitShift = -0.06
+	// DemoReadmissionHR is the planted hazard ratio of coaching on the
+	// time to first readmission over a year of follow-up.
+	DemoReadmissionHR = 0.75
+	// DemoERRateRatio is the planted ratio of emergency-visit rates.
+	DemoERRateRatio = 0.8
+	// DemoHorizon is the follow-up day at which the demo compares risks.
+	DemoHorizon = 180.0
 )
+
+// DemoTruth is one planted effect among the coached members, for the
+// demo's check of its estimates: the contrast it is read from and, for a
+// time-to-event outcome, the horizon.
+type DemoTruth struct {
+	Outcome, Contrast string
+	Horizon           float64
+	Value             float64
+}
 
 // DemoData is the synthetic cohort plus the truth it was built from.
 type DemoData struct {
@@ -38,9 +54,20 @@ type DemoData struct {
 	Coached     []bool
 	Readmit30d  []int64
 	Cost90d     []float64
+	// FollowupDays is the time to first readmission or to the end of
+	// follow-up (a year, or leaving the plan); Readmitted says which.
+	FollowupDays []int64
+	Readmitted   []bool
+	// ERVisits counts emergency visits over EnrolledMonths.
+	ERVisits       []int64
+	EnrolledMonths []int64
 	// TrueATT holds the expected effect among the coached, per outcome:
 	// the mean over coached members of E[Y(1) − Y(0)].
 	TrueATT map[string]float64
+	// TrueEvents holds the planted effects of the time-to-event and rate
+	// outcomes: the survival difference at DemoHorizon among the coached
+	// (exact, from the hazards) and the emergency-visit rate ratio.
+	TrueEvents []DemoTruth
 }
 
 var demoRegions = []string{"coast", "hills", "metro", "plains", "valley"}
@@ -60,7 +87,20 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 			k++
 		}
 	}
-	var sumRD, nCoached float64
+	// The time-to-event and rate outcomes draw from their own stream, so
+	// the members and the older outcomes stay what they were.
+	r2 := rand.New(rand.NewPCG(seed, 0x71e5))
+	pois2 := func(mean float64) int64 {
+		l, k, p := math.Exp(-mean), int64(0), 1.0
+		for {
+			p *= r2.Float64()
+			if p <= l {
+				return k
+			}
+			k++
+		}
+	}
+	var sumRD, nCoached, sumSurvDiff float64
 	for i := 0; i < n; i++ {
 		age := int64(math.Round(math.Min(98, math.Max(45, 74+9*r.NormFloat64()))))
 		sex := "F"
@@ -95,6 +135,26 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 			sumRD += p1 - p0
 			nCoached++
 		}
+		// Readmission hazard per day (exponential), confounded like the
+		// other outcomes; coaching multiplies it by DemoReadmissionHR.
+		haz := 0.0022 * math.Exp(0.25*a+0.3*(float64(prior)-1)+0.1*(float64(charlson)-3)+0.25*b2f(alone)+0.2*b2f(ef))
+		h := haz
+		if coached {
+			h *= DemoReadmissionHR
+			sumSurvDiff += math.Exp(-haz*DemoReadmissionHR*DemoHorizon) - math.Exp(-haz*DemoHorizon)
+		}
+		tEvent := r2.ExpFloat64() / h
+		tLeave := r2.ExpFloat64() / 0.0012 // leaving the plan, about a third a year
+		fu := math.Min(365, math.Min(tEvent, tLeave))
+		d.FollowupDays = append(d.FollowupDays, max(1, int64(math.Ceil(fu))))
+		d.Readmitted = append(d.Readmitted, tEvent <= math.Min(365, tLeave))
+		months := 1 + r2.IntN(12)
+		erRate := 0.12 * math.Exp(0.2*a+0.25*(float64(prior)-1)+0.08*(float64(charlson)-3)+0.2*b2f(alone))
+		if coached {
+			erRate *= DemoERRateRatio
+		}
+		d.EnrolledMonths = append(d.EnrolledMonths, int64(months))
+		d.ERVisits = append(d.ERVisits, pois2(erRate*float64(months)))
 		d.MemberID = append(d.MemberID, int64(100001+i))
 		d.Age = append(d.Age, age)
 		d.Sex = append(d.Sex, sex)
@@ -110,6 +170,12 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 	d.TrueATT["cost_90d"] = DemoCostEffect
 	if nCoached > 0 {
 		d.TrueATT["readmit_30d"] = sumRD / nCoached
+		// Survival difference S₁ − S₀ at the horizon is minus the risk
+		// difference; the rate ratio holds in every population.
+		d.TrueEvents = []DemoTruth{
+			{Outcome: "readmission", Contrast: ContrastSurvivalDifference, Horizon: DemoHorizon, Value: sumSurvDiff / nCoached},
+			{Outcome: "er_visits", Contrast: ContrastRateRatio, Value: DemoERRateRatio},
+		}
 	}
 	return d
 }

@@ -67,6 +67,8 @@ type coxTime struct {
 	// Score-residual increments at t (see coxEval): for rows at risk,
 	// and for the tied event rows themselves.
 	h, g, hOwn, gOwn float64
+	// xbb is (1/d) Σ_k x̄_k, the Efron-averaged risk-set mean of z.
+	xbb float64
 }
 
 // Cox fits the weighted Cox model log h(t | z) = log h₀(t) + β·z by
@@ -171,8 +173,7 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		own := j < len(ts) && ts[j].t == d.Time[i]
 		if d.Event[i] {
 			c := &ts[j]
-			xbb := c.xbarMean(beta, ties)
-			res = (z - xbb) - risk*(z*(ch[j]+c.hOwn)-(cg[j]+c.gOwn))
+			res = (z - c.xbb) - risk*(z*(ch[j]+c.hOwn)-(cg[j]+c.gOwn))
 		} else {
 			hj, gj := ch[j], cg[j]
 			if own {
@@ -202,25 +203,6 @@ func (c *coxTime) steps(ties Ties) int {
 	return c.nd
 }
 
-// xbarMean is the mean over the tied-event steps of the risk-weighted mean
-// of z, (1/d) Σ_k x̄_k (x̄ for Breslow).
-func (c *coxTime) xbarMean(beta float64, ties Ties) float64 {
-	r := math.Exp(beta)
-	s0 := c.rw[0] + r*c.rw[1]
-	s1 := r * c.rw[1]
-	e0, e1 := c.dw[0], r*c.dw[1]
-	m := c.steps(ties)
-	sum := 0.0
-	for k := 0; k < m; k++ {
-		f := 0.0
-		if ties == Efron {
-			f = float64(k) / float64(m)
-		}
-		sum += (s1 - f*e1) / (s0 - f*(e0+e1))
-	}
-	return sum / float64(m)
-}
-
 // coxEval returns the weighted log partial likelihood, score and
 // information at beta. With keep it also stores, per event time, the
 // increments used by the score residuals: H = Σ_k m/den_k and
@@ -238,7 +220,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 		mw := dwt / float64(steps) // mean weight per step
 		ll += beta * c.dw[1]
 		u += c.dw[1]
-		var h, g, hx, gx float64
+		var h, g, hx, gx, xs float64
 		for k := 0; k < steps; k++ {
 			f := 0.0
 			if ties == Efron {
@@ -249,6 +231,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 			ll -= mw * math.Log(den)
 			u -= mw * xb
 			info += mw * xb * (1 - xb)
+			xs += xb
 			h += mw / den
 			g += mw * xb / den
 			hx += (1 - f) * mw / den
@@ -256,6 +239,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 		}
 		if keep {
 			c.h, c.g, c.hOwn, c.gOwn = h, g, hx, gx
+			c.xbb = xs / float64(steps)
 		}
 	}
 	return ll, u, info

@@ -151,34 +151,47 @@ func (d Data) weight(i int) float64 {
 // Rows equal on every key are interchangeable, so every later sum is
 // independent of the input order.
 func (d Data) canonical() []int32 {
-	idx := make([]int32, len(d.Time))
-	for i := range idx {
-		idx[i] = int32(i)
+	// Sorting compact keys rather than indices into five columns keeps the
+	// comparisons in cache; it is most of the cost at a million rows.
+	type key struct {
+		t, w  float64
+		c     int
+		flags uint8 // bit 1: censored (events first), bit 0: treated
+		i     int32
 	}
-	slices.SortFunc(idx, func(a, b int32) int {
-		if c := cmp.Compare(d.Time[a], d.Time[b]); c != 0 {
-			return c
+	keys := make([]key, len(d.Time))
+	for i := range keys {
+		k := key{t: d.Time[i], w: d.weight(i), i: int32(i)}
+		if !d.Event[i] {
+			k.flags |= 2
 		}
-		if d.Event[a] != d.Event[b] {
-			if d.Event[a] {
-				return -1
-			}
-			return 1
-		}
-		if d.Treated[a] != d.Treated[b] {
-			if d.Treated[b] {
-				return -1
-			}
-			return 1
-		}
-		if c := cmp.Compare(d.weight(int(a)), d.weight(int(b))); c != 0 {
-			return c
+		if d.Treated[i] {
+			k.flags |= 1
 		}
 		if d.Cluster != nil {
-			return cmp.Compare(d.Cluster[a], d.Cluster[b])
+			k.c = d.Cluster[i]
 		}
-		return 0
+		keys[i] = k
+	}
+	slices.SortFunc(keys, func(a, b key) int {
+		switch {
+		case a.t < b.t:
+			return -1
+		case a.t > b.t:
+			return 1
+		case a.flags != b.flags:
+			return int(a.flags) - int(b.flags)
+		case a.w < b.w:
+			return -1
+		case a.w > b.w:
+			return 1
+		}
+		return cmp.Compare(a.c, b.c)
 	})
+	idx := make([]int32, len(keys))
+	for i, k := range keys {
+		idx[i] = k.i
+	}
 	return idx
 }
 

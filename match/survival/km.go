@@ -200,22 +200,39 @@ func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) H
 		}
 		bAt[a], abCum[a] = b, cum
 	}
-	// Weighted influence of each row on S_a(h) and RMST_a(h).
-	n := len(d.Time)
-	uS, uR := make([]float64, n), make([]float64, n)
-	for i := 0; i < n; i++ {
+	// Weighted influence of each row on S_a(h) and RMST_a(h), accumulated
+	// per cluster in one pass over the canonical order. The contrasts sum
+	// treated rows' influence with +, control rows' with −, so a cluster's
+	// sum carries both arms and their covariance.
+	const (
+		qS0 = iota // S₀(h)
+		qS1        // S₁(h)
+		qR0        // RMST₀(h)
+		qR1        // RMST₁(h)
+		qD         // S₁ − S₀
+		qDR        // RMST₁ − RMST₀
+		qL         // log((1 − S₁)/(1 − S₀))
+		nq
+	)
+	var jh [2]int
+	for a := range arms {
+		jh[a] = lastAtOrBefore(arms[a].t, h)
+	}
+	acc := make([]float64, k*nq)
+	for _, i := range order {
 		a := b2i(d.Treated[i])
 		ar := &arms[a]
 		m := int(pos[i])
-		w := d.weight(i)
+		w := d.weight(int(i))
 		tm := ar.t[m]
 		free := ar.n[m] - ar.d[m] // weighted survivors of the row's step
-		// S(h): C_i = [event, t_m ≤ h]/(n_m − d_m) − A(min(h, t_m)).
+		jm := m
+		if tm > h {
+			jm = jh[a]
+		}
+		// S(h): −S(h)·C_i, C_i = [event, t_m ≤ h]/(n_m − d_m) − A(min(h, t_m)).
+		var uS float64
 		if sh[a] > 0 {
-			jm := m
-			if tm > h {
-				jm = lastAtOrBefore(ar.t, h)
-			}
 			c := 0.0
 			if jm >= 0 {
 				c = -ar.cumA[jm]
@@ -223,64 +240,58 @@ func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) H
 			if d.Event[i] && tm <= h {
 				c += 1 / free
 			}
-			uS[i] = -w * sh[a] * c
+			uS = -w * sh[a] * c
 		}
-		// RMST: −[event, t_m < h]·B_m/(n_m − d_m) + Σ_{t_k ≤ min(h, t_m)} a_k B_k.
-		jm := m
-		if tm > h {
-			jm = lastAtOrBefore(ar.t, h)
-		}
-		r := 0.0
+		// RMST: Σ_{t_k ≤ min(h, t_m)} a_k B_k − [event, t_m < h]·B_m/(n_m − d_m).
+		uR := 0.0
 		if jm >= 0 {
-			r = abCum[a][jm]
+			uR = abCum[a][jm]
 		}
 		if d.Event[i] && tm < h && free > 0 {
-			r -= bAt[a][m] / free
+			uR -= bAt[a][m] / free
 		}
-		uR[i] = w * r
+		uR *= w
+		c := acc[int(of[i])*nq : int(of[i])*nq+nq]
+		if a == 1 {
+			c[qS1] += uS
+			c[qR1] += uR
+			c[qD] += uS
+			c[qDR] += uR
+			c[qL] -= uS / (1 - sh[1])
+		} else {
+			c[qS0] += uS
+			c[qR0] += uR
+			c[qD] -= uS
+			c[qDR] -= uR
+			c[qL] += uS / (1 - sh[0])
+		}
+	}
+	var v [nq]float64
+	for c := 0; c < k; c++ {
+		for q := 0; q < nq; q++ {
+			x := acc[c*nq+q]
+			v[q] += x * x
+		}
 	}
 	for a := 0; a < 2; a++ {
-		uSa, uRa := armOnly(d, uS, a), armOnly(d, uR, a)
-		rs := math.Sqrt(clusterVar(uSa, of, k, order))
-		rr := math.Sqrt(clusterVar(uRa, of, k, order))
+		rs, rr := math.Sqrt(v[qS0+a]), math.Sqrt(v[qR0+a])
 		out.Surv[a] = Measure{Value: sh[a], Greenwood: interval(sh[a], math.Sqrt(varS[a]), false), Robust: interval(sh[a], rs, false)}
 		out.Risk[a] = Measure{Value: 1 - sh[a], Greenwood: interval(1-sh[a], math.Sqrt(varS[a]), false), Robust: interval(1-sh[a], rs, false)}
 		out.RMST[a] = Measure{Value: rm[a], Greenwood: interval(rm[a], math.Sqrt(varR[a]), false), Robust: interval(rm[a], rr, false)}
 	}
-	// Contrasts: treated rows carry +u, control rows −u (diff), so a
-	// cluster's sum holds both arms' influence.
-	uD, uDR, uL := make([]float64, n), make([]float64, n), make([]float64, n)
-	for i := 0; i < n; i++ {
-		if d.Treated[i] {
-			uD[i], uDR[i], uL[i] = uS[i], uR[i], -uS[i]/(1-sh[1])
-		} else {
-			uD[i], uDR[i], uL[i] = -uS[i], -uR[i], uS[i]/(1-sh[0])
-		}
-	}
 	sd := sh[1] - sh[0]
 	seD := math.Sqrt(varS[0] + varS[1])
-	rseD := math.Sqrt(clusterVar(uD, of, k, order))
+	rseD := math.Sqrt(v[qD])
 	out.SurvDiff = Measure{Value: sd, Greenwood: interval(sd, seD, false), Robust: interval(sd, rseD, false)}
 	out.RiskDiff = Measure{Value: -sd, Greenwood: interval(-sd, seD, false), Robust: interval(-sd, rseD, false)}
 	rd := rm[1] - rm[0]
 	out.RMSTDiff = Measure{Value: rd, Greenwood: interval(rd, math.Sqrt(varR[0]+varR[1]), false),
-		Robust: interval(rd, math.Sqrt(clusterVar(uDR, of, k, order)), false)}
+		Robust: interval(rd, math.Sqrt(v[qDR]), false)}
 	r1, r0 := 1-sh[1], 1-sh[0]
 	ratio := r1 / r0
 	seL := math.Sqrt(varS[1]/(r1*r1) + varS[0]/(r0*r0))
 	out.RiskRatio = Measure{Value: ratio, Ratio: true, Greenwood: interval(ratio, seL, true),
-		Robust: interval(ratio, math.Sqrt(clusterVar(uL, of, k, order)), true)}
-	return out
-}
-
-// armOnly returns u with the other arm's rows set to 0.
-func armOnly(d Data, u []float64, a int) []float64 {
-	out := make([]float64, len(u))
-	for i, v := range u {
-		if b2i(d.Treated[i]) == a {
-			out[i] = v
-		}
-	}
+		Robust: interval(ratio, math.Sqrt(v[qL]), true)}
 	return out
 }
 

@@ -58,6 +58,10 @@ type PHCheck struct {
 	ChiSq, P  float64
 }
 
+// maxNewton bounds the Newton–Raphson iterations; a well-posed
+// one-parameter fit converges in well under 10.
+const maxNewton = 50
+
 // coxTime is one distinct event time: weighted events and weighted at-risk
 // per arm, and the number of tied events (for Efron).
 type coxTime struct {
@@ -103,6 +107,24 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		return CoxFit{}, fmt.Errorf("cox: 0 units have an event; a hazard ratio needs events")
 	}
 	{
+		// An arm without weighted events has a log HR of ±∞ (monotone
+		// likelihood); refuse rather than report a non-converged value.
+		var dw [2]float64
+		var cnt [2]int
+		for i, e := range d.Event {
+			a := b2i(d.Treated[i])
+			cnt[a]++
+			if e {
+				dw[a] += d.weight(i)
+			}
+		}
+		for a, name := range []string{"control", "treated"} {
+			if !(dw[a] > 0) {
+				return CoxFit{}, fmt.Errorf("cox: the %s arm's %d units have 0 weighted events; a hazard ratio needs events in both arms", name, cnt[a])
+			}
+		}
+	}
+	{
 		var r [2]float64
 		j := len(ts) - 1
 		for p := n - 1; p >= 0; p-- {
@@ -125,7 +147,8 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 	var u, info float64
 	fit.LogLik0, _, _ = coxEval(ts, 0, ties, false)
 	beta, ll := 0.0, fit.LogLik0
-	for it := 1; it <= 50; it++ {
+	converged := false
+	for it := 1; it <= maxNewton; it++ {
 		_, u, info = coxEval(ts, beta, ties, false)
 		if !(info > 0) {
 			return CoxFit{}, fmt.Errorf("cox: information %v at log HR %v; the arms' event times do not overlap enough to estimate a hazard ratio", info, beta)
@@ -142,13 +165,17 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		done := math.Abs(next-beta) <= 1e-12*math.Max(1, math.Abs(beta))
 		beta, ll = next, nll
 		if done {
+			converged = true
 			break
 		}
 		if math.Abs(beta) > 50 {
 			return CoxFit{}, fmt.Errorf("cox: log hazard ratio diverges (|β| > 50); one arm has no events or no unit at risk at the other arm's events")
 		}
 	}
-	fit.LogLik, u, info = coxEval(ts, beta, ties, true)
+	if !converged {
+		return CoxFit{}, fmt.Errorf("cox: Newton–Raphson did not converge in %d iterations (log HR %v)", maxNewton, beta)
+	}
+	fit.LogLik, _, info = coxEval(ts, beta, ties, true)
 	fit.LogHR, fit.HR = beta, math.Exp(beta)
 	fit.Model = interval(fit.HR, math.Sqrt(1/info), true)
 

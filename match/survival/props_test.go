@@ -165,4 +165,42 @@ func TestBadInput(t *testing.T) {
 	if _, err := Cox(Data{Time: []float64{1, 2}, Event: []bool{false, false}, Treated: []bool{true, false}}, Efron); err == nil || !strings.Contains(err.Error(), "0 units have an event") {
 		t.Errorf("Cox without events: %v", err)
 	}
+	noTreatedEvents := Data{Time: []float64{1, 2, 3, 4}, Event: []bool{false, false, true, true}, Treated: []bool{true, true, false, false}}
+	if _, err := Cox(noTreatedEvents, Breslow); err == nil || !strings.Contains(err.Error(), "treated arm's 2 units have 0 weighted events") {
+		t.Errorf("Cox with an event-free arm: %v", err)
+	}
+}
+
+// When every unit still at risk has the event, S drops to 0 and stays
+// there: the Greenwood increment is taken as 0 (R survmean's rule), and the
+// robust SE of S at later horizons is 0 because no weight can move it
+// (definition of the product-limit estimator).
+func TestCurveReachesZero(t *testing.T) {
+	d := Data{
+		Time:    []float64{1, 2, 3, 3, 1, 2, 4},
+		Event:   []bool{true, false, true, true, true, true, false},
+		Treated: []bool{true, true, true, true, false, false, false},
+		Weight:  []float64{1, 2, 1.5, 0.5, 1, 1, 1},
+	}
+	res, err := KaplanMeier(d, []float64{3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	last := res.Curves[1].Steps[len(res.Curves[1].Steps)-1]
+	if last.Surv != 0 || last.SE != 0 || math.IsNaN(last.SE) {
+		t.Errorf("last treated step %+v, want S = 0 and SE = 0", last)
+	}
+	h := res.Horizons[0]
+	if h.Surv[1].Value != 0 || h.Surv[1].Robust.SE != 0 {
+		t.Errorf("treated S(3) = %v, robust SE %v; want 0, 0", h.Surv[1].Value, h.Surv[1].Robust.SE)
+	}
+	for _, m := range []Measure{h.RMST[1], h.RMSTDiff, h.SurvDiff} {
+		if math.IsNaN(m.Value) || math.IsNaN(m.Greenwood.SE) || math.IsNaN(m.Robust.SE) {
+			t.Errorf("NaN in %+v", m)
+		}
+	}
+	// S₁ = (1 − 1/5)·(1 − 2/2) on the weighted counts; RMST₁(3) = 1 + 0.8·2.
+	if math.Abs(h.RMST[1].Value-2.6) > 1e-12 {
+		t.Errorf("treated RMST(3) = %v, want 2.6 (by hand)", h.RMST[1].Value)
+	}
 }

@@ -267,9 +267,9 @@ func TestRatesMatchStatsmodels(t *testing.T) {
 // Source: statsmodels 0.13.5 PHReg (make_reference.py), unweighted because
 // PHReg takes no weights: coefficient, model-based SE (bse of fit()) and
 // robust SE by cluster (fit(groups = cl)). PHReg's cluster SE under Efron
-// ties differs from R's coxph by 0.02–0.5% on these data (R agrees with
-// this package to 1e-8: veteran unweighted, cluster = cl, 0.181477875564),
-// so for Efron only the coefficient and model SE are compared with PHReg.
+// ties differs from R's coxph by 0.02–0.5% on these data, so for Efron the
+// unweighted cluster SE is compared with R coxph(..., cluster = cl)
+// (make_reference.R) instead.
 func TestCoxMatchesPHReg(t *testing.T) {
 	tr := tracker{}
 	for _, ds := range survSets {
@@ -287,6 +287,10 @@ func TestCoxMatchesPHReg(t *testing.T) {
 			tr.check(t, "phreg se model", w, f.Model.SE, ref[p+"se_model"], 0)
 			if ties == Breslow {
 				tr.check(t, "phreg se cluster (breslow)", w, f.Cluster.SE, ref[p+"se_cluster"], 0)
+			} else {
+				rr := readRef(t, ds.name+"_ref.csv")
+				tr.check(t, "R coxph unweighted coef", w, f.LogHR, rr["cox/efron_unweighted/coef"], f.Model.SE)
+				tr.check(t, "R coxph unweighted se cluster", w, f.Cluster.SE, rr["cox/efron_unweighted/se_cluster"], 0)
 			}
 		}
 	}

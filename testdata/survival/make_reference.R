@@ -92,6 +92,9 @@ do_dataset <- function(name, d, horizons) {
     zp <- cox.zph(f, transform = "km")
     put(paste0(p, "zph_chisq"), zp$table[1, "chisq"]); put(paste0(p, "zph_p"), zp$table[1, "p"])
   }
+  # Unweighted Efron fit by cluster: the reference for PHReg's comparison.
+  fu <- coxph(S ~ z, data = d, cluster = cl, ties = "efron")
+  put("cox/efron_unweighted/coef", unname(coef(fu))); put("cox/efron_unweighted/se_cluster", sqrt(fu$var[1, 1]))
   kv <- data.frame(key = names(ref), value = sprintf("%.17g", unlist(ref)))
   write.csv(kv, file.path(out, paste0(name, "_ref.csv")), row.names = FALSE, quote = FALSE)
   ref <<- list()

@@ -93,14 +93,14 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 	events := 0
 	for _, i := range order {
 		if d.Event[i] {
-			events++
+			events += d.rows(int(i))
 			t := d.Time[i]
 			if len(ts) == 0 || ts[len(ts)-1].t != t {
 				ts = append(ts, coxTime{t: t})
 			}
 			c := &ts[len(ts)-1]
 			c.dw[b2i(d.Treated[i])] += d.weight(int(i))
-			c.nd++
+			c.nd += d.rows(int(i))
 		}
 	}
 	if events == 0 {
@@ -208,7 +208,7 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 			}
 			res = -risk * (z*hj - gj)
 		}
-		ur[i] = d.weight(i) * res / info
+		ur[i] = d.varWeight(i) * res / info
 	}
 	of, k := clusters(nil, order)
 	fit.Robust = interval(fit.HR, math.Sqrt(clusterVar(ur, of, k, order)), true)
@@ -277,7 +277,10 @@ func phCheck(d Data, order []int32, ts []coxTime, beta float64, ties Ties) PHChe
 	// Unweighted pooled KM just before each event time: the product over
 	// earlier event times of (1 − d/n), counts over both arms.
 	n := len(order)
-	atRisk := n
+	atRisk := 0
+	for i := range order {
+		atRisk += d.rows(i)
+	}
 	s := 1.0
 	j := 0
 	sBefore := make([]float64, len(ts))
@@ -286,9 +289,9 @@ func phCheck(d Data, order []int32, ts []coxTime, beta float64, ties Ties) PHChe
 		ev, all := 0, 0
 		for p < n && d.Time[order[p]] == t {
 			if d.Event[order[p]] {
-				ev++
+				ev += d.rows(int(order[p]))
 			}
-			all++
+			all += d.rows(int(order[p]))
 			p++
 		}
 		if ev > 0 {

@@ -25,6 +25,12 @@ type Data struct {
 	// Cluster labels dependent rows (a matched set, a reused control's
 	// copies); nil means every row is its own cluster.
 	Cluster []int
+
+	// count and sqW are set only by the grouped entry points: a pseudo-row
+	// then stands for count[i] rows whose weights sum to Weight[i] and
+	// whose squared weights sum to sqW[i]².
+	count []int
+	sqW   []float64
 }
 
 // Interval is a standard error with its 95% interval and two-sided p-value.
@@ -136,6 +142,23 @@ func b2i(b bool) int {
 		return 1
 	}
 	return 0
+}
+
+// rows is the number of units row i stands for.
+func (d Data) rows(i int) int {
+	if d.count == nil {
+		return 1
+	}
+	return d.count[i]
+}
+
+// varWeight is the weight that multiplies row i's influence in a variance:
+// its own weight, or √Σw² for a group (Σ_rows (w·IF)² = IF²·Σw²).
+func (d Data) varWeight(i int) float64 {
+	if d.sqW == nil {
+		return d.weight(i)
+	}
+	return d.sqW[i]
 }
 
 func (d Data) weight(i int) float64 {

@@ -104,10 +104,10 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 		w := d.weight(int(i))
 		if d.Event[i] {
 			st.Events += w
-			st.NEvents++
+			st.NEvents += d.rows(int(i))
 		} else {
 			st.Censored += w
-			st.NCensored++
+			st.NCensored += d.rows(int(i))
 		}
 		pos[i] = int32(len(c.Steps) - 1)
 	}
@@ -223,7 +223,7 @@ func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) H
 		a := b2i(d.Treated[i])
 		ar := &arms[a]
 		m := int(pos[i])
-		w := d.weight(int(i))
+		w := d.varWeight(int(i)) // the row weight; √Σw² for a group
 		tm := ar.t[m]
 		free := ar.n[m] - ar.d[m] // weighted survivors of the row's step
 		jm := m

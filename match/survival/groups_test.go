@@ -64,7 +64,8 @@ func TestGroupsEqualRows(t *testing.T) {
 			for j, s := range rk.Curves[a].Steps {
 				q := gk.Curves[a].Steps[j]
 				if s.NAtRisk != q.NAtRisk || s.NEvents != q.NEvents || s.NCensored != q.NCensored ||
-					relDiff(q.AtRisk, s.AtRisk, 1) > tol || relDiff(q.Surv, s.Surv, 1e-3) > tol || relDiff(q.SE, s.SE, 1e-3) > tol {
+					relDiff(q.AtRisk, s.AtRisk, 1) > tol || relDiff(q.Surv, s.Surv, 1e-3) > tol || relDiff(q.SE, s.SE, 1e-3) > tol ||
+					relDiff(q.RobustSE, s.RobustSE, 1e-3) > tol {
 					t.Errorf("%s arm %d step %d: groups %+v, rows %+v", ds.name, a, j, q, s)
 				}
 			}

@@ -137,6 +137,7 @@ func TestKaplanMeierMatchesR(t *testing.T) {
 			arm, tm := floats(t, km["arm"]), floats(t, km["time"])
 			nr, ne, nc := floats(t, km["n_risk"]), floats(t, km["n_event"]), floats(t, km["n_censor"])
 			sv, se := floats(t, km["surv"]), floats(t, km["se_surv"])
+			seRob := map[string][]float64{"row": floats(t, km["se_row"]), "cluster": floats(t, km["se_cluster"])}
 			for _, variant := range []string{"row", "cluster"} {
 				dd := d
 				if variant == "row" {
@@ -146,7 +147,7 @@ func TestKaplanMeierMatchesR(t *testing.T) {
 				if err != nil {
 					t.Fatal(err)
 				}
-				if variant == "row" {
+				{
 					var j [2]int
 					for i := range tm {
 						a := int(arm[i])
@@ -159,6 +160,7 @@ func TestKaplanMeierMatchesR(t *testing.T) {
 						tr.check(t, "km table", w+" n.censor", st.Censored, nc[i], 1)
 						tr.check(t, "km table", w+" surv", st.Surv, sv[i], 1e-3)
 						tr.check(t, "km greenwood se", w, st.SE, se[i], 1e-3)
+						tr.check(t, "km robust se per step", w+" "+variant, st.RobustSE, seRob[variant][i], 1e-3)
 					}
 					for a := range j {
 						if j[a] != len(res.Curves[a].Steps) {

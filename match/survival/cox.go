@@ -18,6 +18,8 @@ const (
 	Breslow
 )
 
+// String is the name R's coxph uses for the method ("efron", "breslow"),
+// so tables and reports can name it the way the reference does.
 func (t Ties) String() string {
 	if t == Breslow {
 		return "breslow"

@@ -36,6 +36,9 @@ type Data struct {
 // Interval is a standard error with its 95% interval and two-sided p-value.
 // For a ratio the SE is that of the logarithm and the interval is
 // exp(log ratio ± z·SE); the p-value tests ratio 1, otherwise value 0.
+// Survival, risk, RMST and their differences use the linear scale, value ±
+// z·SE (R survfit's conf.type = "plain"), so the interval of a survival
+// near 0 or 1 can leave [0, 1]; a caller plotting bands clips them.
 type Interval struct {
 	SE, Lo, Hi, P float64
 }

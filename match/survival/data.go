@@ -121,10 +121,10 @@ func (d Data) validate() error {
 	var arms [2]int
 	for i, t := range d.Time {
 		if !(t > 0) || math.IsInf(t, 1) {
-			badT++
+			badT += d.rows(i) // a group's units, so the count is of units
 		}
 		if d.Weight != nil && (!(d.Weight[i] >= 0) || math.IsInf(d.Weight[i], 1)) {
-			badW++
+			badW += d.rows(i)
 		}
 		arms[b2i(d.Treated[i])]++
 	}

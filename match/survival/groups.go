@@ -126,6 +126,10 @@ func RatesGroups(g []RateGroup, per float64, clustered bool) (RateFit, error) {
 	}
 	bad := 0
 	for _, x := range g {
+		if x.N < 1 {
+			bad++
+			continue
+		}
 		for _, v := range []float64{x.WY, x.WE, x.W2YY, x.W2YE, x.W2EE} {
 			if !(v >= 0) || math.IsInf(v, 1) {
 				bad++
@@ -134,7 +138,7 @@ func RatesGroups(g []RateGroup, per float64, clustered bool) (RateFit, error) {
 		}
 	}
 	if bad > 0 {
-		return RateFit{}, fmt.Errorf("rates: %d groups have a sum that is missing, negative or not finite", bad)
+		return RateFit{}, fmt.Errorf("rates: %d groups have a unit count < 1 or a sum that is missing, negative or not finite", bad)
 	}
 	s := slices.Clone(g)
 	slices.SortFunc(s, func(a, b RateGroup) int {

@@ -2,6 +2,7 @@ package survival
 
 import (
 	"math"
+	"strings"
 	"testing"
 )
 
@@ -158,5 +159,18 @@ func TestRateGroupsEqualRows(t *testing.T) {
 	nf, _ := RatesGroups(gs, 1000, false)
 	if nf.Cluster != nf.HC0 || nf.Groups != 0 {
 		t.Errorf("unclustered groups: cluster %+v, HC0 %+v, groups %d", nf.Cluster, nf.HC0, nf.Groups)
+	}
+}
+
+// Malformed groups are errors that count them (issue 14, bad input).
+func TestGroupsBadInput(t *testing.T) {
+	if _, err := KaplanMeierGroups([]TimeGroup{{Time: 1, N: 0, W: 1, W2: 1}, {Time: 2, Treated: true, Event: true, N: 1, W: -1, W2: 1}}, nil); err == nil || !strings.Contains(err.Error(), "2 groups have") {
+		t.Errorf("KaplanMeierGroups: %v", err)
+	}
+	if _, err := CoxGroups([]TimeGroup{{Time: -1, N: 3, W: 3, W2: 3}, {Time: 2, Treated: true, Event: true, N: 1, W: 1, W2: 1}}, Efron); err == nil || !strings.Contains(err.Error(), "3 units have a follow-up time") {
+		t.Errorf("CoxGroups: %v", err)
+	}
+	if _, err := RatesGroups([]RateGroup{{N: 0, WY: 1, WE: 1}, {Treated: true, N: 1, WY: math.NaN(), WE: 1}}, 1000, false); err == nil || !strings.Contains(err.Error(), "2 groups have") {
+		t.Errorf("RatesGroups: %v", err)
 	}
 }

@@ -126,7 +126,7 @@ func (d Data) validate() error {
 		if d.Weight != nil && (!(d.Weight[i] >= 0) || math.IsInf(d.Weight[i], 1)) {
 			badW += d.rows(i)
 		}
-		arms[b2i(d.Treated[i])]++
+		arms[b2i(d.Treated[i])] += d.rows(i)
 	}
 	if badT > 0 {
 		return fmt.Errorf("survival: %d units have a follow-up time that is missing, not finite or not > 0", badT)

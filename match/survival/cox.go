@@ -146,30 +146,36 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		}
 	}
 	fit := CoxFit{Ties: ties}
-	var u, info float64
+	var info float64
 	fit.LogLik0, _, _ = coxEval(ts, 0, ties, false)
-	beta, ll := 0.0, fit.LogLik0
+	beta := 0.0
 	converged := false
 	for it := 1; it <= maxNewton; it++ {
-		_, u, info = coxEval(ts, beta, ties, false)
+		ll, u, info := coxEval(ts, beta, ties, false)
 		if !(info > 0) {
 			return CoxFit{}, fmt.Errorf("cox: information %v at log HR %v; the arms' event times do not overlap enough to estimate a hazard ratio", info, beta)
 		}
 		step := u / info
+		fit.Iterations = it
+		// Converged when the Newton step is negligible; the step is still
+		// taken, and by quadratic convergence leaves an error of order
+		// step². Comparing log likelihoods here instead would stop on
+		// rounding noise before the score is 0.
+		if math.Abs(step) <= 1e-10*math.Max(1, math.Abs(beta)) {
+			beta += step
+			converged = true
+			break
+		}
 		next := beta + step
+		// Step halving, as R's coxph does, only when the likelihood
+		// falls by more than rounding.
 		nll, _, _ := coxEval(ts, next, ties, false)
-		for half := 0; nll < ll && half < 30; half++ { // step halving as R does
+		for half := 0; nll < ll-1e-12*math.Abs(ll) && half < 30; half++ {
 			step /= 2
 			next = beta + step
 			nll, _, _ = coxEval(ts, next, ties, false)
 		}
-		fit.Iterations = it
-		done := math.Abs(next-beta) <= 1e-12*math.Max(1, math.Abs(beta))
-		beta, ll = next, nll
-		if done {
-			converged = true
-			break
-		}
+		beta = next
 		if math.Abs(beta) > 50 {
 			return CoxFit{}, fmt.Errorf("cox: log hazard ratio diverges (|β| > 50); one arm has no events or no unit at risk at the other arm's events")
 		}

@@ -86,6 +86,10 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 	if err := d.validate(); err != nil {
 		return CoxFit{}, fmt.Errorf("cox: %w", err)
 	}
+	d, err := d.dropZeroWeights()
+	if err != nil {
+		return CoxFit{}, fmt.Errorf("cox: %w", err)
+	}
 	order := d.canonical()
 	n := len(order)
 	// Event times and each row's index into them: tix[i] is the first

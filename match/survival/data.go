@@ -20,7 +20,8 @@ type Data struct {
 	Event []bool
 	// Treated is true for the treated arm.
 	Treated []bool
-	// Weight holds non-negative case weights; nil means all 1.
+	// Weight holds non-negative case weights; nil means all 1. Rows of
+	// weight 0 are dropped before anything is computed.
 	Weight []float64
 	// Cluster labels dependent rows (a matched set, a reused control's
 	// copies); nil means every row is its own cluster.
@@ -138,6 +139,43 @@ func (d Data) validate() error {
 		return fmt.Errorf("survival: %d treated and %d control units; both arms need units", arms[1], arms[0])
 	}
 	return nil
+}
+
+// dropZeroWeights returns d without its weight-0 rows: a unit with weight
+// 0 is outside the weighted comparison, so it neither counts at risk nor
+// adds a tied event (R's coxph refuses such weights; survfit keeps their
+// times as empty steps with the same estimates). It then checks that both
+// arms still have units.
+func (d Data) dropZeroWeights() (Data, error) {
+	if d.Weight == nil || !slices.Contains(d.Weight, 0) {
+		return d, nil
+	}
+	var out Data
+	keepInts := d.Cluster != nil
+	for i, w := range d.Weight {
+		if w == 0 {
+			continue
+		}
+		out.Time = append(out.Time, d.Time[i])
+		out.Event = append(out.Event, d.Event[i])
+		out.Treated = append(out.Treated, d.Treated[i])
+		out.Weight = append(out.Weight, w)
+		if keepInts {
+			out.Cluster = append(out.Cluster, d.Cluster[i])
+		}
+		if d.count != nil {
+			out.count = append(out.count, d.count[i])
+			out.sqW = append(out.sqW, d.sqW[i])
+		}
+	}
+	var arms [2]int
+	for i, z := range out.Treated {
+		arms[b2i(z)] += out.rows(i)
+	}
+	if arms[0] == 0 || arms[1] == 0 {
+		return Data{}, fmt.Errorf("survival: %d treated and %d control units have positive weight; both arms need units", arms[1], arms[0])
+	}
+	return out, nil
 }
 
 func b2i(b bool) int {

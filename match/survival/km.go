@@ -90,6 +90,10 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 	if err := d.validate(); err != nil {
 		return KMResult{}, fmt.Errorf("kaplan-meier: %w", err)
 	}
+	d, err := d.dropZeroWeights()
+	if err != nil {
+		return KMResult{}, fmt.Errorf("kaplan-meier: %w", err)
+	}
 	order := d.canonical()
 	pos := make([]int32, len(d.Time)) // row → its step in its arm
 	var arms [2]kmArm

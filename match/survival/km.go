@@ -150,9 +150,19 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 		}
 		arms[a] = ar
 	}
-	robustSteps(d, &res, &arms, pos, order)
-	last := math.Min(arms[0].t[len(arms[0].t)-1], arms[1].t[len(arms[1].t)-1])
+	// The variance passes read the rows in canonical order many times; a
+	// copy laid out in that order makes each pass sequential in memory.
 	of, k := clusters(d.Cluster, order)
+	n := len(order)
+	sd := Data{Time: make([]float64, n), Event: make([]bool, n), Treated: make([]bool, n), Weight: make([]float64, n)}
+	spos, sof, ident := make([]int32, n), make([]int32, n), make([]int32, n)
+	for p, i := range order {
+		sd.Time[p], sd.Event[p], sd.Treated[p] = d.Time[i], d.Event[i], d.Treated[i]
+		sd.Weight[p] = d.varWeight(int(i))
+		spos[p], sof[p], ident[p] = pos[i], of[i], int32(p)
+	}
+	robustSteps(sd, &res, &arms, spos, ident, sof, k)
+	last := math.Min(arms[0].t[len(arms[0].t)-1], arms[1].t[len(arms[1].t)-1])
 	for _, h := range horizons {
 		if !(h > 0) || h > last {
 			beyond := 0
@@ -163,7 +173,7 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 			}
 			return KMResult{}, fmt.Errorf("kaplan-meier: horizon %v is not within follow-up (0, %v], the last time both arms are followed; %d units have follow-up ending before it", h, last, beyond)
 		}
-		res.Horizons = append(res.Horizons, horizon(d, &arms, pos, order, of, k, h))
+		res.Horizons = append(res.Horizons, horizon(sd, &arms, spos, ident, sof, k, h))
 	}
 	return res, nil
 }
@@ -179,8 +189,7 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 // Var S(t) = S(t)²·(ΣP² − 2A·ΣPQ + A²·ΣQ²), and the three sums change only
 // where one of the cluster's rows leaves: O(n) in all instead of
 // O(n × steps).
-func robustSteps(d Data, res *KMResult, arms *[2]kmArm, pos, order []int32) {
-	of, k := clusters(d.Cluster, order)
+func robustSteps(d Data, res *KMResult, arms *[2]kmArm, pos, order, of []int32, k int) {
 	p, q := make([]float64, 2*k), make([]float64, 2*k)
 	var pp, pq, qq [2]float64
 	for _, i := range order {

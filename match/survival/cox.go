@@ -119,7 +119,7 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		var cnt [2]int
 		for i, e := range d.Event {
 			a := b2i(d.Treated[i])
-			cnt[a]++
+			cnt[a] += d.rows(i)
 			if e {
 				dw[a] += d.weight(i)
 			}

@@ -166,9 +166,9 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 	for _, h := range horizons {
 		if !(h > 0) || h > last {
 			beyond := 0
-			for _, t := range d.Time {
+			for i, t := range d.Time {
 				if t < h {
-					beyond++
+					beyond += d.rows(i)
 				}
 			}
 			return KMResult{}, fmt.Errorf("kaplan-meier: horizon %v is not within follow-up (0, %v], the last time both arms are followed; %d units have follow-up ending before it", h, last, beyond)

@@ -5,6 +5,13 @@ import (
 	"math"
 )
 
+// RareOutcomeRisk is the cumulative risk by the end of follow-up below which
+// an outcome counts as rare for the HR → RR conversion (about 15%,
+// VanderWeele & Ding 2017, Ann Intern Med 167:268; from memory). A caller
+// with Kaplan–Meier risks at the last horizon passes
+// rare = max(risk₀, risk₁) < RareOutcomeRisk.
+const RareOutcomeRisk = 0.15
+
 // RRFromHR converts a hazard ratio to the approximate risk-ratio scale on
 // which E-values are defined (VanderWeele & Ding 2017, Ann Intern Med
 // 167:268, table of conversions; the square-root form is studied in

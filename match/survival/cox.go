@@ -18,6 +18,8 @@ const (
 	Breslow
 )
 
+// String is the name R's coxph uses for the method ("efron", "breslow"),
+// so tables and reports can name it the way the reference does.
 func (t Ties) String() string {
 	if t == Breslow {
 		return "breslow"
@@ -58,6 +60,10 @@ type PHCheck struct {
 	ChiSq, P  float64
 }
 
+// maxNewton bounds the Newton–Raphson iterations; a well-posed
+// one-parameter fit converges in well under 10.
+const maxNewton = 50
+
 // coxTime is one distinct event time: weighted events and weighted at-risk
 // per arm, and the number of tied events (for Efron).
 type coxTime struct {
@@ -67,6 +73,8 @@ type coxTime struct {
 	// Score-residual increments at t (see coxEval): for rows at risk,
 	// and for the tied event rows themselves.
 	h, g, hOwn, gOwn float64
+	// xbb is (1/d) Σ_k x̄_k, the Efron-averaged risk-set mean of z.
+	xbb float64
 }
 
 // Cox fits the weighted Cox model log h(t | z) = log h₀(t) + β·z by
@@ -78,6 +86,10 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 	if err := d.validate(); err != nil {
 		return CoxFit{}, fmt.Errorf("cox: %w", err)
 	}
+	d, err := d.dropZeroWeights()
+	if err != nil {
+		return CoxFit{}, fmt.Errorf("cox: %w", err)
+	}
 	order := d.canonical()
 	n := len(order)
 	// Event times and each row's index into them: tix[i] is the first
@@ -87,18 +99,36 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 	events := 0
 	for _, i := range order {
 		if d.Event[i] {
-			events++
+			events += d.rows(int(i))
 			t := d.Time[i]
 			if len(ts) == 0 || ts[len(ts)-1].t != t {
 				ts = append(ts, coxTime{t: t})
 			}
 			c := &ts[len(ts)-1]
 			c.dw[b2i(d.Treated[i])] += d.weight(int(i))
-			c.nd++
+			c.nd += d.rows(int(i))
 		}
 	}
 	if events == 0 {
 		return CoxFit{}, fmt.Errorf("cox: 0 units have an event; a hazard ratio needs events")
+	}
+	{
+		// An arm without weighted events has a log HR of ±∞ (monotone
+		// likelihood); refuse rather than report a non-converged value.
+		var dw [2]float64
+		var cnt [2]int
+		for i, e := range d.Event {
+			a := b2i(d.Treated[i])
+			cnt[a] += d.rows(i)
+			if e {
+				dw[a] += d.weight(i)
+			}
+		}
+		for a, name := range []string{"control", "treated"} {
+			if !(dw[a] > 0) {
+				return CoxFit{}, fmt.Errorf("cox: the %s arm's %d units have 0 weighted events; a hazard ratio needs events in both arms", name, cnt[a])
+			}
+		}
 	}
 	{
 		var r [2]float64
@@ -120,33 +150,44 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		}
 	}
 	fit := CoxFit{Ties: ties}
-	var u, info float64
+	var info float64
 	fit.LogLik0, _, _ = coxEval(ts, 0, ties, false)
-	beta, ll := 0.0, fit.LogLik0
-	for it := 1; it <= 50; it++ {
-		_, u, info = coxEval(ts, beta, ties, false)
+	beta := 0.0
+	converged := false
+	for it := 1; it <= maxNewton; it++ {
+		ll, u, info := coxEval(ts, beta, ties, false)
 		if !(info > 0) {
 			return CoxFit{}, fmt.Errorf("cox: information %v at log HR %v; the arms' event times do not overlap enough to estimate a hazard ratio", info, beta)
 		}
 		step := u / info
+		fit.Iterations = it
+		// Converged when the Newton step is negligible; the step is still
+		// taken, and by quadratic convergence leaves an error of order
+		// step². Comparing log likelihoods here instead would stop on
+		// rounding noise before the score is 0.
+		if math.Abs(step) <= 1e-10*math.Max(1, math.Abs(beta)) {
+			beta += step
+			converged = true
+			break
+		}
 		next := beta + step
+		// Step halving, as R's coxph does, only when the likelihood
+		// falls by more than rounding.
 		nll, _, _ := coxEval(ts, next, ties, false)
-		for half := 0; nll < ll && half < 30; half++ { // step halving as R does
+		for half := 0; nll < ll-1e-12*math.Abs(ll) && half < 30; half++ {
 			step /= 2
 			next = beta + step
 			nll, _, _ = coxEval(ts, next, ties, false)
 		}
-		fit.Iterations = it
-		done := math.Abs(next-beta) <= 1e-12*math.Max(1, math.Abs(beta))
-		beta, ll = next, nll
-		if done {
-			break
-		}
+		beta = next
 		if math.Abs(beta) > 50 {
 			return CoxFit{}, fmt.Errorf("cox: log hazard ratio diverges (|β| > 50); one arm has no events or no unit at risk at the other arm's events")
 		}
 	}
-	fit.LogLik, u, info = coxEval(ts, beta, ties, true)
+	if !converged {
+		return CoxFit{}, fmt.Errorf("cox: Newton–Raphson did not converge in %d iterations (log HR %v)", maxNewton, beta)
+	}
+	fit.LogLik, _, info = coxEval(ts, beta, ties, true)
 	fit.LogHR, fit.HR = beta, math.Exp(beta)
 	fit.Model = interval(fit.HR, math.Sqrt(1/info), true)
 
@@ -171,8 +212,7 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 		own := j < len(ts) && ts[j].t == d.Time[i]
 		if d.Event[i] {
 			c := &ts[j]
-			xbb := c.xbarMean(beta, ties)
-			res = (z - xbb) - risk*(z*(ch[j]+c.hOwn)-(cg[j]+c.gOwn))
+			res = (z - c.xbb) - risk*(z*(ch[j]+c.hOwn)-(cg[j]+c.gOwn))
 		} else {
 			hj, gj := ch[j], cg[j]
 			if own {
@@ -180,7 +220,7 @@ func Cox(d Data, ties Ties) (CoxFit, error) {
 			}
 			res = -risk * (z*hj - gj)
 		}
-		ur[i] = d.weight(i) * res / info
+		ur[i] = d.varWeight(i) * res / info
 	}
 	of, k := clusters(nil, order)
 	fit.Robust = interval(fit.HR, math.Sqrt(clusterVar(ur, of, k, order)), true)
@@ -202,25 +242,6 @@ func (c *coxTime) steps(ties Ties) int {
 	return c.nd
 }
 
-// xbarMean is the mean over the tied-event steps of the risk-weighted mean
-// of z, (1/d) Σ_k x̄_k (x̄ for Breslow).
-func (c *coxTime) xbarMean(beta float64, ties Ties) float64 {
-	r := math.Exp(beta)
-	s0 := c.rw[0] + r*c.rw[1]
-	s1 := r * c.rw[1]
-	e0, e1 := c.dw[0], r*c.dw[1]
-	m := c.steps(ties)
-	sum := 0.0
-	for k := 0; k < m; k++ {
-		f := 0.0
-		if ties == Efron {
-			f = float64(k) / float64(m)
-		}
-		sum += (s1 - f*e1) / (s0 - f*(e0+e1))
-	}
-	return sum / float64(m)
-}
-
 // coxEval returns the weighted log partial likelihood, score and
 // information at beta. With keep it also stores, per event time, the
 // increments used by the score residuals: H = Σ_k m/den_k and
@@ -238,7 +259,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 		mw := dwt / float64(steps) // mean weight per step
 		ll += beta * c.dw[1]
 		u += c.dw[1]
-		var h, g, hx, gx float64
+		var h, g, hx, gx, xs float64
 		for k := 0; k < steps; k++ {
 			f := 0.0
 			if ties == Efron {
@@ -249,6 +270,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 			ll -= mw * math.Log(den)
 			u -= mw * xb
 			info += mw * xb * (1 - xb)
+			xs += xb
 			h += mw / den
 			g += mw * xb / den
 			hx += (1 - f) * mw / den
@@ -256,6 +278,7 @@ func coxEval(ts []coxTime, beta float64, ties Ties, keep bool) (ll, u, info floa
 		}
 		if keep {
 			c.h, c.g, c.hOwn, c.gOwn = h, g, hx, gx
+			c.xbb = xs / float64(steps)
 		}
 	}
 	return ll, u, info
@@ -266,7 +289,10 @@ func phCheck(d Data, order []int32, ts []coxTime, beta float64, ties Ties) PHChe
 	// Unweighted pooled KM just before each event time: the product over
 	// earlier event times of (1 − d/n), counts over both arms.
 	n := len(order)
-	atRisk := n
+	atRisk := 0
+	for i := range order {
+		atRisk += d.rows(i)
+	}
 	s := 1.0
 	j := 0
 	sBefore := make([]float64, len(ts))
@@ -275,9 +301,9 @@ func phCheck(d Data, order []int32, ts []coxTime, beta float64, ties Ties) PHChe
 		ev, all := 0, 0
 		for p < n && d.Time[order[p]] == t {
 			if d.Event[order[p]] {
-				ev++
+				ev += d.rows(int(order[p]))
 			}
-			all++
+			all += d.rows(int(order[p]))
 			p++
 		}
 		if ev > 0 {

@@ -20,16 +20,26 @@ type Data struct {
 	Event []bool
 	// Treated is true for the treated arm.
 	Treated []bool
-	// Weight holds non-negative case weights; nil means all 1.
+	// Weight holds non-negative case weights; nil means all 1. Rows of
+	// weight 0 are dropped before anything is computed.
 	Weight []float64
 	// Cluster labels dependent rows (a matched set, a reused control's
 	// copies); nil means every row is its own cluster.
 	Cluster []int
+
+	// count and sqW are set only by the grouped entry points: a pseudo-row
+	// then stands for count[i] rows whose weights sum to Weight[i] and
+	// whose squared weights sum to sqW[i]².
+	count []int
+	sqW   []float64
 }
 
 // Interval is a standard error with its 95% interval and two-sided p-value.
 // For a ratio the SE is that of the logarithm and the interval is
 // exp(log ratio ± z·SE); the p-value tests ratio 1, otherwise value 0.
+// Survival, risk, RMST and their differences use the linear scale, value ±
+// z·SE (R survfit's conf.type = "plain"), so the interval of a survival
+// near 0 or 1 can leave [0, 1]; a caller plotting bands clips them.
 type Interval struct {
 	SE, Lo, Hi, P float64
 }
@@ -112,12 +122,12 @@ func (d Data) validate() error {
 	var arms [2]int
 	for i, t := range d.Time {
 		if !(t > 0) || math.IsInf(t, 1) {
-			badT++
+			badT += d.rows(i) // a group's units, so the count is of units
 		}
 		if d.Weight != nil && (!(d.Weight[i] >= 0) || math.IsInf(d.Weight[i], 1)) {
-			badW++
+			badW += d.rows(i)
 		}
-		arms[b2i(d.Treated[i])]++
+		arms[b2i(d.Treated[i])] += d.rows(i)
 	}
 	if badT > 0 {
 		return fmt.Errorf("survival: %d units have a follow-up time that is missing, not finite or not > 0", badT)
@@ -131,11 +141,65 @@ func (d Data) validate() error {
 	return nil
 }
 
+// dropZeroWeights returns d without its weight-0 rows: a unit with weight
+// 0 is outside the weighted comparison, so it neither counts at risk nor
+// adds a tied event (R's coxph refuses such weights; survfit keeps their
+// times as empty steps with the same estimates). It then checks that both
+// arms still have units.
+func (d Data) dropZeroWeights() (Data, error) {
+	if d.Weight == nil || !slices.Contains(d.Weight, 0) {
+		return d, nil
+	}
+	var out Data
+	keepInts := d.Cluster != nil
+	for i, w := range d.Weight {
+		if w == 0 {
+			continue
+		}
+		out.Time = append(out.Time, d.Time[i])
+		out.Event = append(out.Event, d.Event[i])
+		out.Treated = append(out.Treated, d.Treated[i])
+		out.Weight = append(out.Weight, w)
+		if keepInts {
+			out.Cluster = append(out.Cluster, d.Cluster[i])
+		}
+		if d.count != nil {
+			out.count = append(out.count, d.count[i])
+			out.sqW = append(out.sqW, d.sqW[i])
+		}
+	}
+	var arms [2]int
+	for i, z := range out.Treated {
+		arms[b2i(z)] += out.rows(i)
+	}
+	if arms[0] == 0 || arms[1] == 0 {
+		return Data{}, fmt.Errorf("survival: %d treated and %d control units have positive weight; both arms need units", arms[1], arms[0])
+	}
+	return out, nil
+}
+
 func b2i(b bool) int {
 	if b {
 		return 1
 	}
 	return 0
+}
+
+// rows is the number of units row i stands for.
+func (d Data) rows(i int) int {
+	if d.count == nil {
+		return 1
+	}
+	return d.count[i]
+}
+
+// varWeight is the weight that multiplies row i's influence in a variance:
+// its own weight, or √Σw² for a group (Σ_rows (w·IF)² = IF²·Σw²).
+func (d Data) varWeight(i int) float64 {
+	if d.sqW == nil {
+		return d.weight(i)
+	}
+	return d.sqW[i]
 }
 
 func (d Data) weight(i int) float64 {
@@ -151,34 +215,47 @@ func (d Data) weight(i int) float64 {
 // Rows equal on every key are interchangeable, so every later sum is
 // independent of the input order.
 func (d Data) canonical() []int32 {
-	idx := make([]int32, len(d.Time))
-	for i := range idx {
-		idx[i] = int32(i)
+	// Sorting compact keys rather than indices into five columns keeps the
+	// comparisons in cache; it is most of the cost at a million rows.
+	type key struct {
+		t, w  float64
+		c     int
+		flags uint8 // bit 1: censored (events first), bit 0: treated
+		i     int32
 	}
-	slices.SortFunc(idx, func(a, b int32) int {
-		if c := cmp.Compare(d.Time[a], d.Time[b]); c != 0 {
-			return c
+	keys := make([]key, len(d.Time))
+	for i := range keys {
+		k := key{t: d.Time[i], w: d.weight(i), i: int32(i)}
+		if !d.Event[i] {
+			k.flags |= 2
 		}
-		if d.Event[a] != d.Event[b] {
-			if d.Event[a] {
-				return -1
-			}
-			return 1
-		}
-		if d.Treated[a] != d.Treated[b] {
-			if d.Treated[b] {
-				return -1
-			}
-			return 1
-		}
-		if c := cmp.Compare(d.weight(int(a)), d.weight(int(b))); c != 0 {
-			return c
+		if d.Treated[i] {
+			k.flags |= 1
 		}
 		if d.Cluster != nil {
-			return cmp.Compare(d.Cluster[a], d.Cluster[b])
+			k.c = d.Cluster[i]
 		}
-		return 0
+		keys[i] = k
+	}
+	slices.SortFunc(keys, func(a, b key) int {
+		switch {
+		case a.t < b.t:
+			return -1
+		case a.t > b.t:
+			return 1
+		case a.flags != b.flags:
+			return int(a.flags) - int(b.flags)
+		case a.w < b.w:
+			return -1
+		case a.w > b.w:
+			return 1
+		}
+		return cmp.Compare(a.c, b.c)
 	})
+	idx := make([]int32, len(keys))
+	for i, k := range keys {
+		idx[i] = k.i
+	}
 	return idx
 }
 

@@ -14,6 +14,11 @@
 // error whose message counts the offending units, so a caller can refuse
 // the study with exit code 2.
 //
+// KaplanMeierGroups, CoxGroups and RatesGroups take the sums of a grouped
+// query instead of rows (arm × time × status; cluster × arm for rates), so
+// a warehouse can supply them for any number of units; what needs rows
+// (clustered SEs of curves and Cox) is said on each.
+//
 // Every result is a function of the multiset of rows only: rows are put in
 // a canonical order (time, then event, arm, weight and cluster) before any
 // sum, so shuffling the input gives bit-identical results.

@@ -24,6 +24,10 @@ type Step struct {
 	// as R survfit(weights = w, robust = FALSE) reports (summary std.err);
 	// increments with n_j = d_j are taken as 0.
 	Surv, SE float64
+	// RobustSE is the infinitesimal-jackknife SE of S(Time), clustered
+	// when clusters are given (R survfit(weights = w, robust = TRUE[,
+	// cluster = c])); use it for the bands of weighted or matched curves.
+	RobustSE float64
 }
 
 // Curve is one arm's Kaplan–Meier table.
@@ -86,6 +90,10 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 	if err := d.validate(); err != nil {
 		return KMResult{}, fmt.Errorf("kaplan-meier: %w", err)
 	}
+	d, err := d.dropZeroWeights()
+	if err != nil {
+		return KMResult{}, fmt.Errorf("kaplan-meier: %w", err)
+	}
 	order := d.canonical()
 	pos := make([]int32, len(d.Time)) // row → its step in its arm
 	var arms [2]kmArm
@@ -104,10 +112,10 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 		w := d.weight(int(i))
 		if d.Event[i] {
 			st.Events += w
-			st.NEvents++
+			st.NEvents += d.rows(int(i))
 		} else {
 			st.Censored += w
-			st.NCensored++
+			st.NCensored += d.rows(int(i))
 		}
 		pos[i] = int32(len(c.Steps) - 1)
 	}
@@ -142,21 +150,95 @@ func KaplanMeier(d Data, horizons []float64) (KMResult, error) {
 		}
 		arms[a] = ar
 	}
-	last := math.Min(arms[0].t[len(arms[0].t)-1], arms[1].t[len(arms[1].t)-1])
+	// The variance passes read the rows in canonical order many times; a
+	// copy laid out in that order makes each pass sequential in memory.
 	of, k := clusters(d.Cluster, order)
+	n := len(order)
+	sd := Data{Time: make([]float64, n), Event: make([]bool, n), Treated: make([]bool, n), Weight: make([]float64, n)}
+	spos, sof, ident := make([]int32, n), make([]int32, n), make([]int32, n)
+	for p, i := range order {
+		sd.Time[p], sd.Event[p], sd.Treated[p] = d.Time[i], d.Event[i], d.Treated[i]
+		sd.Weight[p] = d.varWeight(int(i))
+		spos[p], sof[p], ident[p] = pos[i], of[i], int32(p)
+	}
+	robustSteps(sd, &res, &arms, spos, ident, sof, k)
+	last := math.Min(arms[0].t[len(arms[0].t)-1], arms[1].t[len(arms[1].t)-1])
 	for _, h := range horizons {
 		if !(h > 0) || h > last {
 			beyond := 0
-			for _, t := range d.Time {
+			for i, t := range d.Time {
 				if t < h {
-					beyond++
+					beyond += d.rows(i)
 				}
 			}
 			return KMResult{}, fmt.Errorf("kaplan-meier: horizon %v is not within follow-up (0, %v], the last time both arms are followed; %d units have follow-up ending before it", h, last, beyond)
 		}
-		res.Horizons = append(res.Horizons, horizon(d, &arms, pos, order, of, k, h))
+		res.Horizons = append(res.Horizons, horizon(sd, &arms, spos, ident, sof, k, h))
 	}
 	return res, nil
+}
+
+// robustSteps sets Step.RobustSE for every step of both arms in one sweep
+// over time. A cluster c's summed weighted influence on log S(t)/−1 is
+//
+//	X_c(t) = P_c(t) − A(t)·Q_c(t),
+//
+// P_c the sum of w_i·K_i over its rows with t_i ≤ t (K_i = [event]/(n_m −
+// d_m) − A(t_m), the row's constant influence once it has left the risk
+// set), Q_c the weight of its rows still at risk after t. So
+// Var S(t) = S(t)²·(ΣP² − 2A·ΣPQ + A²·ΣQ²), and the three sums change only
+// where one of the cluster's rows leaves: O(n) in all instead of
+// O(n × steps).
+func robustSteps(d Data, res *KMResult, arms *[2]kmArm, pos, order, of []int32, k int) {
+	p, q := make([]float64, 2*k), make([]float64, 2*k)
+	var pp, pq, qq [2]float64
+	for _, i := range order {
+		q[b2i(d.Treated[i])*k+int(of[i])] += d.varWeight(int(i))
+	}
+	for c, v := range q {
+		qq[c/k] += v * v
+	}
+	n := len(order)
+	for at := 0; at < n; {
+		t := d.Time[order[at]]
+		step := [2]int{-1, -1}
+		for ; at < n && d.Time[order[at]] == t; at++ {
+			i := order[at]
+			a := b2i(d.Treated[i])
+			ar := &arms[a]
+			m := int(pos[i])
+			kk := -ar.cumA[m]
+			if d.Event[i] {
+				if free := ar.n[m] - ar.d[m]; free > 0 {
+					kk += 1 / free
+				} else {
+					kk = 0 // S is 0 from here on; its SE is 0
+				}
+			}
+			w := d.varWeight(int(i))
+			c := a*k + int(of[i])
+			pp[a] -= p[c] * p[c]
+			pq[a] -= p[c] * q[c]
+			qq[a] -= q[c] * q[c]
+			p[c] += w * kk
+			q[c] -= w
+			pp[a] += p[c] * p[c]
+			pq[a] += p[c] * q[c]
+			qq[a] += q[c] * q[c]
+			step[a] = m
+		}
+		for a, m := range step {
+			if m < 0 {
+				continue
+			}
+			ar := &arms[a]
+			st := &res.Curves[a].Steps[m]
+			if ar.s[m] > 0 {
+				A := ar.cumA[m]
+				st.RobustSE = ar.s[m] * math.Sqrt(math.Max(0, pp[a]-2*A*pq[a]+A*A*qq[a]))
+			}
+		}
+	}
 }
 
 // horizon computes the summaries at one horizon h.
@@ -200,22 +282,39 @@ func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) H
 		}
 		bAt[a], abCum[a] = b, cum
 	}
-	// Weighted influence of each row on S_a(h) and RMST_a(h).
-	n := len(d.Time)
-	uS, uR := make([]float64, n), make([]float64, n)
-	for i := 0; i < n; i++ {
+	// Weighted influence of each row on S_a(h) and RMST_a(h), accumulated
+	// per cluster in one pass over the canonical order. The contrasts sum
+	// treated rows' influence with +, control rows' with −, so a cluster's
+	// sum carries both arms and their covariance.
+	const (
+		qS0 = iota // S₀(h)
+		qS1        // S₁(h)
+		qR0        // RMST₀(h)
+		qR1        // RMST₁(h)
+		qD         // S₁ − S₀
+		qDR        // RMST₁ − RMST₀
+		qL         // log((1 − S₁)/(1 − S₀))
+		nq
+	)
+	var jh [2]int
+	for a := range arms {
+		jh[a] = lastAtOrBefore(arms[a].t, h)
+	}
+	acc := make([]float64, k*nq)
+	for _, i := range order {
 		a := b2i(d.Treated[i])
 		ar := &arms[a]
 		m := int(pos[i])
-		w := d.weight(i)
+		w := d.varWeight(int(i)) // the row weight; √Σw² for a group
 		tm := ar.t[m]
 		free := ar.n[m] - ar.d[m] // weighted survivors of the row's step
-		// S(h): C_i = [event, t_m ≤ h]/(n_m − d_m) − A(min(h, t_m)).
+		jm := m
+		if tm > h {
+			jm = jh[a]
+		}
+		// S(h): −S(h)·C_i, C_i = [event, t_m ≤ h]/(n_m − d_m) − A(min(h, t_m)).
+		var uS float64
 		if sh[a] > 0 {
-			jm := m
-			if tm > h {
-				jm = lastAtOrBefore(ar.t, h)
-			}
 			c := 0.0
 			if jm >= 0 {
 				c = -ar.cumA[jm]
@@ -223,64 +322,58 @@ func horizon(d Data, arms *[2]kmArm, pos, order, of []int32, k int, h float64) H
 			if d.Event[i] && tm <= h {
 				c += 1 / free
 			}
-			uS[i] = -w * sh[a] * c
+			uS = -w * sh[a] * c
 		}
-		// RMST: −[event, t_m < h]·B_m/(n_m − d_m) + Σ_{t_k ≤ min(h, t_m)} a_k B_k.
-		jm := m
-		if tm > h {
-			jm = lastAtOrBefore(ar.t, h)
-		}
-		r := 0.0
+		// RMST: Σ_{t_k ≤ min(h, t_m)} a_k B_k − [event, t_m < h]·B_m/(n_m − d_m).
+		uR := 0.0
 		if jm >= 0 {
-			r = abCum[a][jm]
+			uR = abCum[a][jm]
 		}
 		if d.Event[i] && tm < h && free > 0 {
-			r -= bAt[a][m] / free
+			uR -= bAt[a][m] / free
 		}
-		uR[i] = w * r
+		uR *= w
+		c := acc[int(of[i])*nq : int(of[i])*nq+nq]
+		if a == 1 {
+			c[qS1] += uS
+			c[qR1] += uR
+			c[qD] += uS
+			c[qDR] += uR
+			c[qL] -= uS / (1 - sh[1])
+		} else {
+			c[qS0] += uS
+			c[qR0] += uR
+			c[qD] -= uS
+			c[qDR] -= uR
+			c[qL] += uS / (1 - sh[0])
+		}
+	}
+	var v [nq]float64
+	for c := 0; c < k; c++ {
+		for q := 0; q < nq; q++ {
+			x := acc[c*nq+q]
+			v[q] += x * x
+		}
 	}
 	for a := 0; a < 2; a++ {
-		uSa, uRa := armOnly(d, uS, a), armOnly(d, uR, a)
-		rs := math.Sqrt(clusterVar(uSa, of, k, order))
-		rr := math.Sqrt(clusterVar(uRa, of, k, order))
+		rs, rr := math.Sqrt(v[qS0+a]), math.Sqrt(v[qR0+a])
 		out.Surv[a] = Measure{Value: sh[a], Greenwood: interval(sh[a], math.Sqrt(varS[a]), false), Robust: interval(sh[a], rs, false)}
 		out.Risk[a] = Measure{Value: 1 - sh[a], Greenwood: interval(1-sh[a], math.Sqrt(varS[a]), false), Robust: interval(1-sh[a], rs, false)}
 		out.RMST[a] = Measure{Value: rm[a], Greenwood: interval(rm[a], math.Sqrt(varR[a]), false), Robust: interval(rm[a], rr, false)}
 	}
-	// Contrasts: treated rows carry +u, control rows −u (diff), so a
-	// cluster's sum holds both arms' influence.
-	uD, uDR, uL := make([]float64, n), make([]float64, n), make([]float64, n)
-	for i := 0; i < n; i++ {
-		if d.Treated[i] {
-			uD[i], uDR[i], uL[i] = uS[i], uR[i], -uS[i]/(1-sh[1])
-		} else {
-			uD[i], uDR[i], uL[i] = -uS[i], -uR[i], uS[i]/(1-sh[0])
-		}
-	}
 	sd := sh[1] - sh[0]
 	seD := math.Sqrt(varS[0] + varS[1])
-	rseD := math.Sqrt(clusterVar(uD, of, k, order))
+	rseD := math.Sqrt(v[qD])
 	out.SurvDiff = Measure{Value: sd, Greenwood: interval(sd, seD, false), Robust: interval(sd, rseD, false)}
 	out.RiskDiff = Measure{Value: -sd, Greenwood: interval(-sd, seD, false), Robust: interval(-sd, rseD, false)}
 	rd := rm[1] - rm[0]
 	out.RMSTDiff = Measure{Value: rd, Greenwood: interval(rd, math.Sqrt(varR[0]+varR[1]), false),
-		Robust: interval(rd, math.Sqrt(clusterVar(uDR, of, k, order)), false)}
+		Robust: interval(rd, math.Sqrt(v[qDR]), false)}
 	r1, r0 := 1-sh[1], 1-sh[0]
 	ratio := r1 / r0
 	seL := math.Sqrt(varS[1]/(r1*r1) + varS[0]/(r0*r0))
 	out.RiskRatio = Measure{Value: ratio, Ratio: true, Greenwood: interval(ratio, seL, true),
-		Robust: interval(ratio, math.Sqrt(clusterVar(uL, of, k, order)), true)}
-	return out
-}
-
-// armOnly returns u with the other arm's rows set to 0.
-func armOnly(d Data, u []float64, a int) []float64 {
-	out := make([]float64, len(u))
-	for i, v := range u {
-		if b2i(d.Treated[i]) == a {
-			out[i] = v
-		}
-	}
+		Robust: interval(ratio, math.Sqrt(v[qL]), true)}
 	return out
 }
 

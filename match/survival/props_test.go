@@ -165,4 +165,241 @@ func TestBadInput(t *testing.T) {
 	if _, err := Cox(Data{Time: []float64{1, 2}, Event: []bool{false, false}, Treated: []bool{true, false}}, Efron); err == nil || !strings.Contains(err.Error(), "0 units have an event") {
 		t.Errorf("Cox without events: %v", err)
 	}
+	noTreatedEvents := Data{Time: []float64{1, 2, 3, 4}, Event: []bool{false, false, true, true}, Treated: []bool{true, true, false, false}}
+	if _, err := Cox(noTreatedEvents, Breslow); err == nil || !strings.Contains(err.Error(), "treated arm's 2 units have 0 weighted events") {
+		t.Errorf("Cox with an event-free arm: %v", err)
+	}
+}
+
+// When every unit still at risk has the event, S drops to 0 and stays
+// there: the Greenwood increment is taken as 0 (R survmean's rule), and the
+// robust SE of S at later horizons is 0 because no weight can move it
+// (definition of the product-limit estimator).
+func TestCurveReachesZero(t *testing.T) {
+	d := Data{
+		Time:    []float64{1, 2, 3, 3, 1, 2, 4},
+		Event:   []bool{true, false, true, true, true, true, false},
+		Treated: []bool{true, true, true, true, false, false, false},
+		Weight:  []float64{1, 2, 1.5, 0.5, 1, 1, 1},
+	}
+	res, err := KaplanMeier(d, []float64{3})
+	if err != nil {
+		t.Fatal(err)
+	}
+	last := res.Curves[1].Steps[len(res.Curves[1].Steps)-1]
+	if last.Surv != 0 || last.SE != 0 || math.IsNaN(last.SE) {
+		t.Errorf("last treated step %+v, want S = 0 and SE = 0", last)
+	}
+	h := res.Horizons[0]
+	if h.Surv[1].Value != 0 || h.Surv[1].Robust.SE != 0 {
+		t.Errorf("treated S(3) = %v, robust SE %v; want 0, 0", h.Surv[1].Value, h.Surv[1].Robust.SE)
+	}
+	for _, m := range []Measure{h.RMST[1], h.RMSTDiff, h.SurvDiff} {
+		if math.IsNaN(m.Value) || math.IsNaN(m.Greenwood.SE) || math.IsNaN(m.Robust.SE) {
+			t.Errorf("NaN in %+v", m)
+		}
+	}
+	// S₁ = (1 − 1/5)·(1 − 2/2) on the weighted counts; RMST₁(3) = 1 + 0.8·2.
+	if math.Abs(h.RMST[1].Value-2.6) > 1e-12 {
+		t.Errorf("treated RMST(3) = %v, want 2.6 (by hand)", h.RMST[1].Value)
+	}
+}
+
+// randomData draws a small cohort with heavy ties (integer times), weights
+// (some 0) and clusters that span both arms.
+func randomData(rng *rand.Rand, n int, ties bool) Data {
+	d := Data{Time: make([]float64, n), Event: make([]bool, n), Treated: make([]bool, n), Weight: make([]float64, n), Cluster: make([]int, n)}
+	for i := 0; i < n; i++ {
+		z := rng.IntN(2) == 1
+		lam := 0.2
+		if z {
+			lam = 0.12
+		}
+		te, tc := rng.ExpFloat64()/lam, rng.ExpFloat64()/0.1
+		if ties {
+			te, tc = math.Ceil(te), math.Ceil(tc)
+		}
+		d.Time[i], d.Event[i], d.Treated[i] = math.Min(te, tc), te <= tc, z
+		d.Weight[i] = float64(rng.IntN(5)) / 2 // 0, 0.5, …, 2
+		d.Cluster[i] = rng.IntN(n / 3)
+	}
+	d.Weight[0], d.Weight[1] = 1, 1
+	d.Treated[0], d.Treated[1], d.Event[0], d.Event[1] = true, false, true, true
+	return d
+}
+
+// Two independent computations of the same infinitesimal-jackknife
+// variance must agree: the per-step sweep (Step.RobustSE) and the horizon
+// pass (Horizon.Surv[a].Robust) evaluated at a step's time (definition;
+// both match R on the reference data, this covers random ties, zero
+// weights and clusters spanning arms).
+func TestStepAndHorizonRobustAgree(t *testing.T) {
+	rng := rand.New(rand.NewPCG(3, 4))
+	for rep := 0; rep < 30; rep++ {
+		d := randomData(rng, 60, true)
+		for _, clustered := range []bool{false, true} {
+			dd := d
+			if !clustered {
+				dd.Cluster = nil
+			}
+			res, err := KaplanMeier(dd, nil)
+			if err != nil {
+				t.Fatal(err)
+			}
+			last := math.Min(res.Curves[0].Steps[len(res.Curves[0].Steps)-1].Time, res.Curves[1].Steps[len(res.Curves[1].Steps)-1].Time)
+			var hs []float64
+			for _, st := range res.Curves[1].Steps {
+				if st.Time <= last {
+					hs = append(hs, st.Time)
+				}
+			}
+			hr, err := KaplanMeier(dd, hs)
+			if err != nil {
+				t.Fatal(err)
+			}
+			for j, h := range hr.Horizons {
+				st := res.Curves[1].Steps[j]
+				if relDiff(h.Surv[1].Robust.SE, st.RobustSE, 1e-9) > 1e-9 {
+					t.Errorf("rep %d clustered=%v t=%v: horizon robust SE %v, step %v", rep, clustered, st.Time, h.Surv[1].Robust.SE, st.RobustSE)
+				}
+			}
+		}
+	}
+}
+
+// Without tied event times Efron's and Breslow's partial likelihoods are
+// the same function, so every output must coincide (Efron 1977, JASA
+// 72:557; common practice).
+func TestEfronEqualsBreslowWithoutTies(t *testing.T) {
+	rng := rand.New(rand.NewPCG(5, 6))
+	for rep := 0; rep < 20; rep++ {
+		d := randomData(rng, 80, false)
+		e, err := Cox(d, Efron)
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := Cox(d, Breslow)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, p := range [][2]float64{{e.LogHR, b.LogHR}, {e.Model.SE, b.Model.SE}, {e.Robust.SE, b.Robust.SE}, {e.Cluster.SE, b.Cluster.SE}, {e.PH.ChiSq, b.PH.ChiSq}} {
+			if relDiff(p[0], p[1], 1e-9) > 1e-9 {
+				t.Errorf("rep %d: Efron %v, Breslow %v", rep, p[0], p[1])
+			}
+		}
+	}
+}
+
+// naiveScore is the weighted partial-likelihood score written directly
+// from the textbook formulas, row by row, without the package's per-time
+// aggregation (Breslow 1974; Efron 1977, JASA 72:557; the mean-weight rule
+// for weighted Efron ties as in R coxph, from its documentation).
+func naiveScore(d Data, beta float64, ties Ties) float64 {
+	u := 0.0
+	seen := map[float64]bool{}
+	for _, t := range d.Time {
+		if seen[t] {
+			continue
+		}
+		seen[t] = true
+		var dw, dz, nd float64
+		var s0, s1, e0, e1 float64
+		for i, ti := range d.Time {
+			if d.Weight[i] == 0 { // a weight-0 unit is not in the comparison
+				continue
+			}
+			z := 0.0
+			if d.Treated[i] {
+				z = 1
+			}
+			r := d.Weight[i] * math.Exp(beta*z)
+			if ti >= t {
+				s0 += r
+				s1 += r * z
+			}
+			if ti == t && d.Event[i] {
+				dw += d.Weight[i]
+				dz += d.Weight[i] * z
+				nd++
+				e0 += r
+				e1 += r * z
+			}
+		}
+		if nd == 0 {
+			continue
+		}
+		u += dz
+		if ties == Breslow {
+			u -= dw * s1 / s0
+			continue
+		}
+		for k := 0.0; k < nd; k++ {
+			u -= dw / nd * (s1 - k/nd*e1) / (s0 - k/nd*e0)
+		}
+	}
+	return u
+}
+
+// The fitted log HR must be the root of the score: found here by bisection
+// on the naive score to 1e-13 and compared to 1e-9 (definition of the
+// maximum partial-likelihood estimate).
+func TestCoxSolvesScore(t *testing.T) {
+	rng := rand.New(rand.NewPCG(7, 8))
+	for rep := 0; rep < 10; rep++ {
+		d := randomData(rng, 70, true)
+		for _, ties := range []Ties{Efron, Breslow} {
+			f, err := Cox(d, ties)
+			if err != nil {
+				t.Fatal(err)
+			}
+			lo, hi := f.LogHR-1, f.LogHR+1
+			if naiveScore(d, lo, ties) <= 0 || naiveScore(d, hi, ties) >= 0 {
+				t.Fatalf("rep %d %v: score does not bracket the fit", rep, ties)
+			}
+			for hi-lo > 1e-13 {
+				mid := (lo + hi) / 2
+				if naiveScore(d, mid, ties) > 0 {
+					lo = mid
+				} else {
+					hi = mid
+				}
+			}
+			if math.Abs(f.LogHR-lo) > 1e-9 {
+				t.Errorf("rep %d %v: log HR %.15g, root of the score %.15g", rep, ties, f.LogHR, lo)
+			}
+		}
+	}
+}
+
+// A weight-0 row is outside the weighted comparison: adding one changes
+// nothing (R survfit gives the same estimates; R coxph refuses weight 0, so
+// the package drops such rows itself).
+func TestZeroWeightRowsAreAbsent(t *testing.T) {
+	rng := rand.New(rand.NewPCG(9, 10))
+	d := randomData(rng, 90, true)
+	var kept Data
+	for i, w := range d.Weight {
+		if w > 0 {
+			kept.Time = append(kept.Time, d.Time[i])
+			kept.Event = append(kept.Event, d.Event[i])
+			kept.Treated = append(kept.Treated, d.Treated[i])
+			kept.Weight = append(kept.Weight, w)
+			kept.Cluster = append(kept.Cluster, d.Cluster[i])
+		}
+	}
+	if len(kept.Time) == len(d.Time) {
+		t.Fatal("no weight-0 rows drawn")
+	}
+	a, errA := KaplanMeier(d, []float64{2, 5})
+	b, errB := KaplanMeier(kept, []float64{2, 5})
+	if errA != nil || errB != nil || !reflect.DeepEqual(a, b) {
+		t.Errorf("Kaplan–Meier with weight-0 rows differs from without (%v, %v)", errA, errB)
+	}
+	for _, ties := range []Ties{Efron, Breslow} {
+		ca, errA := Cox(d, ties)
+		cb, errB := Cox(kept, ties)
+		if errA != nil || errB != nil || !reflect.DeepEqual(ca, cb) {
+			t.Errorf("%v: Cox with weight-0 rows differs from without (%v, %v)", ties, errA, errB)
+		}
+	}
 }

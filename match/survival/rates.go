@@ -25,10 +25,12 @@ type RateFit struct {
 	// exposure unit.
 	Rate [2]float64
 	// RateRatio = Rate[1]/Rate[0]; HC0 and Cluster are on the log scale.
-	RateRatio            float64
-	HC0, Cluster         Interval
-	Per                  float64
-	Diff                 float64
+	RateRatio    float64
+	HC0, Cluster Interval
+	// Diff is (Rate[1] − Rate[0])·Per: the rate difference per Per
+	// exposure units (Per = 1000 reads "per 1,000 member-months"), with
+	// its HC0 and cluster intervals on the same scale.
+	Per, Diff            float64
 	DiffHC0, DiffCluster Interval
 	// Groups is the number of clusters (0 without clusters).
 	Groups int

@@ -29,7 +29,15 @@ do_dataset <- function(name, d, horizons) {
   g <- survfit(S ~ z, data = d, weights = w, robust = FALSE)
   km <- data.frame(arm = rep(c(0, 1), g$strata), time = g$time, n_risk = g$n.risk,
                    n_event = g$n.event, n_censor = g$n.censor, surv = g$surv,
-                   se_surv = g$std.err * g$surv)
+                   se_surv = summary(g, censored = TRUE)$std.err)
+  # Robust (infinitesimal-jackknife) SE of S at every row of the table,
+  # per row and by cluster.
+  r1 <- survfit(S ~ z, data = d, weights = w, robust = TRUE)
+  r2 <- survfit(S ~ z, data = d, weights = w, robust = TRUE, cluster = cl)
+  stopifnot(all(r1$time == g$time), all(r2$time == g$time))
+  # summary() puts std.err on the scale of S whatever the fit's logse.
+  km$se_row <- summary(r1, censored = TRUE)$std.err
+  km$se_cluster <- summary(r2, censored = TRUE)$std.err
   write.csv(km, file.path(out, paste0(name, "_km.csv")), row.names = FALSE)
   sg <- summary(g, times = horizons, extend = FALSE)
   arm <- ifelse(grepl("z=1", as.character(sg$strata)), 1, 0)
@@ -92,6 +100,9 @@ do_dataset <- function(name, d, horizons) {
     zp <- cox.zph(f, transform = "km")
     put(paste0(p, "zph_chisq"), zp$table[1, "chisq"]); put(paste0(p, "zph_p"), zp$table[1, "p"])
   }
+  # Unweighted Efron fit by cluster: the reference for PHReg's comparison.
+  fu <- coxph(S ~ z, data = d, cluster = cl, ties = "efron")
+  put("cox/efron_unweighted/coef", unname(coef(fu))); put("cox/efron_unweighted/se_cluster", sqrt(fu$var[1, 1]))
   kv <- data.frame(key = names(ref), value = sprintf("%.17g", unlist(ref)))
   write.csv(kv, file.path(out, paste0(name, "_ref.csv")), row.names = FALSE, quote = FALSE)
   ref <<- list()

@@ -48,4 +48,28 @@ for name in ["cgd", "insurance"]:
         f.write("key,value\n")
         for k, v in out.items():
             f.write(f"{k},{float(v):.17g}\n")
+# Cox model without weights (PHReg takes none): statsmodels PHReg with
+# Breslow and Efron ties, model-based SE and the robust SE by cluster
+# (fit(groups=cl)). A second reference beside R's coxph.
+from statsmodels.duration.hazard_regression import PHReg
+
+for name in ["veteran", "lung", "colon"]:
+    rows = list(csv.DictReader(open(f"testdata/survival/{name}_data.csv")))
+    t = np.array([float(r["t"]) for r in rows])
+    ev = np.array([float(r["e"]) for r in rows])
+    z = np.array([float(r["z"]) for r in rows])
+    cl = np.array([int(r["cl"]) for r in rows])
+    out = {}
+    for ties in ["breslow", "efron"]:
+        m = PHReg(t, z[:, None], status=ev, ties=ties)
+        f = m.fit()
+        g = m.fit(groups=cl)
+        out[f"phreg_{ties}/coef"] = f.params[0]
+        out[f"phreg_{ties}/se_model"] = f.bse[0]
+        out[f"phreg_{ties}/se_cluster"] = g.bse[0]
+    with open(f"testdata/survival/{name}_phreg.csv", "w") as fh:
+        fh.write("key,value\n")
+        for k, v in out.items():
+            fh.write(f"{k},{float(v):.17g}\n")
+
 print("statsmodels", statsmodels.__version__)

@@ -151,7 +151,7 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 					eventRow(spec.Name, a, effect.ContrastRiskRatio, what, &hz, h.RiskRatio.Value, pick(h.RiskRatio), nT, nC),
 					eventRow(spec.Name, a, ContrastRMSTDifference, what, &hz, h.RMSTDiff.Value, pick(h.RMSTDiff), nT, nC))
 			}
-			sum.Survival = append(sum.Survival, curves(spec, a.name, km, spec.Horizons[len(spec.Horizons)-1])...)
+			sum.Survival = append(sum.Survival, curves(spec, a.name, km, spec.Horizons[len(spec.Horizons)-1], rows.dependent || a.w != nil)...)
 			steps = append(steps, stepsOf(spec.Name, a.name, km)...)
 		}
 	}
@@ -244,8 +244,9 @@ func rateEValue(rr float64, iv survival.Interval) ([2]float64, bool) {
 }
 
 // SurvivalCurve is one arm's survival curve under one adjustment as the
-// summary keeps it: S(t) and its 95% band (Greenwood-type, log-free
-// S ± 1.96·SE clipped to [0, 1]) on curveGrid equally spaced times from 0
+// summary keeps it: S(t) and its pointwise 95% band S ± 1.96·SE clipped
+// to [0, 1] (Greenwood SE unadjusted, the robust one under weights or
+// matched sets) on curveGrid equally spaced times from 0
 // to the last horizon, and the unweighted numbers at risk at atRiskTicks
 // of them. A grid, not the event times, so no one's follow-up shows.
 type SurvivalCurve struct {
@@ -261,7 +262,7 @@ type SurvivalCurve struct {
 }
 
 // curves samples both arms' Kaplan–Meier curves on the summary's grid.
-func curves(spec TimeToEventSpec, adj string, km survival.KMResult, last float64) []SurvivalCurve {
+func curves(spec TimeToEventSpec, adj string, km survival.KMResult, last float64, robust bool) []SurvivalCurve {
 	out := make([]SurvivalCurve, 0, 2)
 	for _, arm := range []int{1, 0} {
 		steps := km.Curves[arm].Steps
@@ -274,6 +275,9 @@ func curves(spec TimeToEventSpec, adj string, km survival.KMResult, last float64
 					break
 				}
 				sv, se = st.Surv, st.SE
+				if robust {
+					se = st.RobustSE
+				}
 			}
 			sc.Time = append(sc.Time, Num(t))
 			sc.Survival = append(sc.Survival, Num(sv))

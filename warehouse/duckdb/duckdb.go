@@ -14,6 +14,7 @@ import (
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/filelock"
 	"counterpart/warehouse/sqlcore"
 )
 
@@ -309,3 +310,11 @@ type dbError struct {
 
 func (e *dbError) Error() string   { return e.msg }
 func (e *dbError) Unwrap() []error { return e.errs }
+
+// Lock takes the study's lock on a sidecar file next to the database
+// (filelock.Study). DuckDB's own file lock already keeps other processes
+// out while this one has the database open read-write; the sidecar lock
+// holds per study, and also against tools that open the file in turn.
+func (a *adapter) Lock(_ context.Context, out warehouse.Output) (func() error, error) {
+	return filelock.Study(a.path, out)
+}

@@ -27,27 +27,7 @@ func queryRows(t *testing.T, w *Warehouse, query string) [][]any {
 	if err != nil {
 		t.Fatalf("%s: %v", query, err)
 	}
-	defer rows.Close()
-	cols, err := rows.Columns()
-	if err != nil {
-		t.Fatal(err)
-	}
-	var out [][]any
-	for rows.Next() {
-		vals := make([]any, len(cols))
-		ptrs := make([]any, len(cols))
-		for i := range vals {
-			ptrs[i] = &vals[i]
-		}
-		if err := rows.Scan(ptrs...); err != nil {
-			t.Fatal(err)
-		}
-		out = append(out, vals)
-	}
-	if err := rows.Err(); err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-	return out
+	return warehousetest.SQLRows(t, rows)
 }
 
 func execSQL(t *testing.T, w *Warehouse, query string) {

@@ -25,8 +25,8 @@ type Conn interface {
 	// Exec runs a statement and returns the rows it affected.
 	Exec(ctx context.Context, query string, args ...any) (int64, error)
 	Query(ctx context.Context, query string, args ...any) (Rows, error)
-	// Bulk writes n rows of cols, plus run_id = runID, into the quoted
-	// table, inside the open transaction.
+	// Bulk writes n rows of cols, plus run_id = runID unless runID is ""
+	// (LoadTable), into the quoted table, inside the open transaction.
 	Bulk(ctx context.Context, table, runID string, cols []BulkCol, n int) error
 }
 

@@ -68,7 +68,7 @@ var dialect = &sqlcore.Dialect{
 	},
 	// DuckDB's hash() of the unit id is the same on every run.
 	SampleKeep: func(unit string, modulus int) string { return fmt.Sprintf("hash(%s) %% %d = 0", unit, modulus) },
-	Err:        func(err error) error { return &dbError{oneLine(err), []error{err}} },
+	Err:        func(err error) error { return sqlcore.Flat(sqlcore.OneLine(err), err) },
 	QueryErr:   queryError,
 	// DuckDB cannot alter or drop a constraint, so a runs table from
 	// before the abandoned status is rebuilt in the open transaction:
@@ -158,11 +158,11 @@ func open(ctx context.Context, path, dsn string, readOnly bool) (*Warehouse, err
 // openError maps DuckDB's own file lock (another process has the file open
 // for writing) to warehouse.ErrLocked.
 func openError(err error) error {
-	msg := oneLine(err)
+	msg := sqlcore.OneLine(err)
 	if strings.Contains(msg, "Could not set lock on file") {
-		return &dbError{"the file is open in another process: " + msg, []error{warehouse.ErrLocked, err}}
+		return sqlcore.Flat("the file is open in another process: "+msg, warehouse.ErrLocked, err)
 	}
-	return &dbError{msg, []error{err}}
+	return sqlcore.Flat(msg, err)
 }
 
 // User returns "": DuckDB has no database users (its current_user is the
@@ -265,20 +265,6 @@ func (w *Warehouse) TuneForScale(ctx context.Context, units int) error {
 	return nil
 }
 
-// oneLine flattens a DuckDB error message to one line: DuckDB appends the
-// query text and a caret on lines of their own ("LINE 1: ..."), which carry
-// no information once the query is named and break single-line logs.
-func oneLine(err error) string {
-	var parts []string
-	for _, l := range strings.Split(err.Error(), "\n") {
-		l = strings.TrimSpace(l)
-		if l != "" && !strings.HasPrefix(l, "LINE ") && strings.Trim(l, "^ ") != "" {
-			parts = append(parts, l)
-		}
-	}
-	return strings.Join(parts, " ")
-}
-
 // queryError classes an error DuckDB raised for the analyst's query: parse,
 // bind, catalog, conversion and similar errors are the study's fault and
 // wrap warehouse.ErrBadInput; I/O, memory, interrupts and internal errors
@@ -295,21 +281,11 @@ func queryError(err error) error {
 			duckdb.ErrorTypeParameterNotAllowed, duckdb.ErrorTypeNotImplemented,
 			duckdb.ErrorTypeTransaction, duckdb.ErrorTypePermission,
 			duckdb.ErrorTypeMissingExtension, duckdb.ErrorTypeAutoLoad:
-			return &dbError{"bad input: " + oneLine(err), []error{warehouse.ErrBadInput, err}}
+			return sqlcore.Flat("bad input: "+sqlcore.OneLine(err), warehouse.ErrBadInput, err)
 		}
 	}
-	return &dbError{oneLine(err), []error{err}}
+	return sqlcore.Flat(sqlcore.OneLine(err), err)
 }
-
-// dbError carries a DuckDB error flattened to one line while keeping the
-// original (and the error class) for errors.Is and errors.As.
-type dbError struct {
-	msg  string
-	errs []error
-}
-
-func (e *dbError) Error() string   { return e.msg }
-func (e *dbError) Unwrap() []error { return e.errs }
 
 // Lock takes the study's lock on a sidecar file next to the database
 // (filelock.Study). DuckDB's own file lock already keeps other processes

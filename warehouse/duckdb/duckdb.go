@@ -71,9 +71,7 @@ var dialect = &sqlcore.Dialect{
 	Err:        func(err error) error { return sqlcore.Flat(sqlcore.OneLine(err), err) },
 	QueryErr:   queryError,
 	// DuckDB cannot alter or drop a constraint, so a runs table from
-	// before the abandoned status is rebuilt in the open transaction:
-	// created under a new name, filled, the old one dropped and the new
-	// one renamed (views bind by name when queried).
+	// before the abandoned status is rebuilt (Core.RebuildRuns).
 	StatusCheck: func(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 		var expr *string
 		found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &expr)
@@ -83,23 +81,7 @@ var dialect = &sqlcore.Dialect{
 		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusAbandoned)) {
 			return nil
 		}
-		tmp := o.C.Runs
-		tmp.Name += "_migrating"
-		if err := c.EnsureTable(ctx, o.C.Schema, &tmp, true); err != nil {
-			return err
-		}
-		cols := make([]string, len(o.C.Runs.Columns))
-		for i, col := range o.C.Runs.Columns {
-			cols[i] = warehouse.Quote(col.Name)
-		}
-		qtmp, list := warehouse.QuoteQualified(o.C.Schema, tmp.Name), strings.Join(cols, ", ")
-		for _, stmt := range []string{"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
-			"DROP TABLE " + o.Runs, "ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name)} {
-			if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the abandoned status", stmt); err != nil {
-				return err
-			}
-		}
-		return nil
+		return c.RebuildRuns(ctx, o)
 	},
 }
 

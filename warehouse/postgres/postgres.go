@@ -23,7 +23,7 @@ func init() {
 	sqlcore.Register(warehouse.Engine{
 		Name: "postgres", DefaultSchema: "public", DSNHint: "a postgres:// URL",
 		Open: func(ctx context.Context, dsn string, o warehouse.OpenOptions) (warehouse.Warehouse, error) {
-			return open(ctx, dsn, o.ReadOnly, []Option{WithStudy(o.Study)})
+			return open(ctx, dsn, o)
 		},
 	}, sqlFiles)
 }
@@ -84,37 +84,27 @@ func statusCheck(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) err
 	return err
 }
 
-// Option adjusts how Open connects.
-type Option func(*options)
-
-type options struct{ study string }
-
-// WithStudy names the study on the connection: application_name becomes
-// "counterpart <study>", so that pg_stat_activity (and a refused second
-// run) shows which study a session runs.
-func WithStudy(study string) Option { return func(o *options) { o.study = study } }
-
 // Open connects for a run. dsn is a libpq connection string (URL or
 // key=value); what it leaves out comes from the libpq environment variables
 // (PGHOST, PGPORT, PGUSER, PGPASSWORD, PGDATABASE, PGSSLMODE, ...) and the
 // password file (~/.pgpass or PGPASSFILE), as pgconn.ParseConfig does. An
 // error never contains the password.
-func Open(ctx context.Context, dsn string, opts ...Option) (*Warehouse, error) {
-	return open(ctx, dsn, false, opts)
+func Open(ctx context.Context, dsn string) (*Warehouse, error) {
+	return open(ctx, dsn, warehouse.OpenOptions{})
 }
 
 // OpenReadOnly connects for a dry run: the session's
 // default_transaction_read_only is on, so nothing done through it can
 // write, and the write methods refuse to start.
-func OpenReadOnly(ctx context.Context, dsn string, opts ...Option) (*Warehouse, error) {
-	return open(ctx, dsn, true, opts)
+func OpenReadOnly(ctx context.Context, dsn string) (*Warehouse, error) {
+	return open(ctx, dsn, warehouse.OpenOptions{ReadOnly: true})
 }
 
-func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Warehouse, error) {
-	var o options
-	for _, f := range opts {
-		f(&o)
-	}
+// open connects with o. A study named in o names the session:
+// application_name becomes "counterpart <study>", so that
+// pg_stat_activity (and a refused second run) shows which study a
+// session runs.
+func open(ctx context.Context, dsn string, o warehouse.OpenOptions) (*Warehouse, error) {
 	secrets := sqlcore.DSNSecrets(dsn)
 	cfg, err := pgx.ParseConfig(dsn)
 	if err != nil {
@@ -126,11 +116,11 @@ func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Wareh
 		secrets = append(secrets, cfg.Password)
 	}
 	app := "counterpart"
-	if o.study != "" {
-		app += " " + o.study
+	if o.Study != "" {
+		app += " " + o.Study
 	}
 	cfg.RuntimeParams["application_name"] = app
-	if readOnly {
+	if o.ReadOnly {
 		cfg.RuntimeParams["default_transaction_read_only"] = "on"
 	}
 	// A cancelled context sends the server a cancel request and keeps the
@@ -147,7 +137,7 @@ func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Wareh
 		return nil, fmt.Errorf("postgres %s: %w", describe(cfg), sqlcore.Flat(sqlcore.Scrub(sqlcore.OneLine(err), secrets), err))
 	}
 	w := &Warehouse{conn: conn, cfg: cfg, secrets: secrets}
-	w.Core = &sqlcore.Core{A: (*adapter)(w), D: w.dialect(), Place: "in database " + cfg.Database, ReadOnly: readOnly}
+	w.Core = &sqlcore.Core{A: (*adapter)(w), D: w.dialect(), Place: "in database " + cfg.Database, ReadOnly: o.ReadOnly}
 	return w, nil
 }
 

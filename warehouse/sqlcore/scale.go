@@ -194,14 +194,13 @@ func (c *Core) ScoreInto(ctx context.Context, out warehouse.Output, runID string
 	if err != nil {
 		return err
 	}
-	stmts, args, err := warehouse.ScoreInsertSQL(ct, q.SQL, d, coef, sup, schemes, c.D.Inlines)
+	stmts, err := warehouse.ScoreInsertSQL(ct, runID, q.SQL, d, coef, sup, schemes, c.D.Inlines)
 	if err != nil {
 		return err
 	}
-	for i, s := range stmts {
-		args[i][0] = runID
-		if _, err := c.A.Exec(ctx, s, args[i]...); err != nil {
-			return fmt.Errorf("score into %s: %w", strings.Fields(s)[2], c.queryErr(err))
+	for _, s := range stmts {
+		if _, err := c.A.Exec(ctx, s.SQL, s.Args...); err != nil {
+			return fmt.Errorf("score into %s: %w", strings.Fields(s.SQL)[2], c.queryErr(err))
 		}
 	}
 	return nil

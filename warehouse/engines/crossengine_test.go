@@ -166,7 +166,7 @@ func TestCrossEngine(t *testing.T) {
 	defer db.Close()
 
 	for _, q := range crossQueries {
-		want := duckRows(t, db, q)
+		want := warehousetest.SQLRows(t, db, q)
 		got := pgtest.Query(t, dsn, q)
 		if len(got) != len(want) || len(got) == 0 {
 			t.Fatalf("%s: postgres %d rows, duckdb %d", q, len(got), len(want))
@@ -209,13 +209,4 @@ func asFloat(v any) (float64, bool) {
 		return f.Float64, err == nil
 	}
 	return 0, false
-}
-
-func duckRows(t *testing.T, db *sql.DB, query string) [][]any {
-	t.Helper()
-	rows, err := db.Query(query)
-	if err != nil {
-		t.Fatalf("duckdb %s: %v", query, err)
-	}
-	return warehousetest.SQLRows(t, rows)
 }

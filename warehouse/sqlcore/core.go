@@ -147,7 +147,12 @@ func (c *Core) Exec(ctx context.Context, what, query string, args ...any) (int64
 // QueryRow scans the first row of one of counterpart's own queries;
 // found is false when there is none.
 func (c *Core) QueryRow(ctx context.Context, query string, args []any, dest ...any) (found bool, err error) {
-	err = c.Each(ctx, query, args, dest, func() error {
+	return c.first(ctx, c.err, query, args, dest)
+}
+
+// first scans the first row of query; qerr classes the query's errors.
+func (c *Core) first(ctx context.Context, qerr func(error) error, query string, args, dest []any) (found bool, err error) {
+	err = c.each(ctx, qerr, query, args, dest, func() error {
 		found = true
 		return errStop
 	})
@@ -158,9 +163,15 @@ var errStop = errors.New("stop")
 
 // Each runs query and calls fn after scanning each row into dest.
 func (c *Core) Each(ctx context.Context, query string, args, dest []any, fn func() error) error {
+	return c.each(ctx, c.err, query, args, dest, fn)
+}
+
+// each is Each with qerr classing the query's errors (scanning errors
+// are never the study's).
+func (c *Core) each(ctx context.Context, qerr func(error) error, query string, args, dest []any, fn func() error) error {
 	rows, err := c.A.Query(ctx, query, args...)
 	if err != nil {
-		return c.err(err)
+		return qerr(err)
 	}
 	defer rows.Close()
 	for rows.Next() {
@@ -174,7 +185,7 @@ func (c *Core) Each(ctx context.Context, query string, args, dest []any, fn func
 		}
 	}
 	if err := rows.Err(); err != nil {
-		return c.err(err)
+		return qerr(err)
 	}
 	return nil
 }

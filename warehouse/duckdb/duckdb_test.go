@@ -21,6 +21,7 @@ import (
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/warehousetest"
 )
 
 func read(t *testing.T, w *Warehouse, q warehouse.CohortQuery) (*warehouse.Cohort, error) {
@@ -137,23 +138,7 @@ type readCase struct {
 	want []string
 }
 
-func checkBadInput(t *testing.T, err error, want ...string) {
-	t.Helper()
-	if err == nil {
-		t.Fatalf("no error, want one mentioning %q", want)
-	}
-	if !errors.Is(err, warehouse.ErrBadInput) {
-		t.Errorf("error %q does not wrap ErrBadInput", err)
-	}
-	if strings.Contains(err.Error(), "\n") {
-		t.Errorf("error spans lines: %q", err)
-	}
-	for _, s := range want {
-		if !strings.Contains(err.Error(), s) {
-			t.Errorf("error %q does not mention %q", err, s)
-		}
-	}
-}
+var checkBadInput = warehousetest.CheckBadInput
 
 // TestRefuseDuckDBStatements: DuckDB statements that write files, attach
 // databases, change settings or split into several statements are refused

@@ -265,7 +265,7 @@ func testReadErrors(t *testing.T, e Engine) {
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			_, err := w.ReadCohort(ctx, tt.q)
-			checkBadInput(t, err, tt.want...)
+			CheckBadInput(t, err, tt.want...)
 		})
 	}
 	// After all those failures the connection still reads.
@@ -274,9 +274,9 @@ func testReadErrors(t *testing.T, e Engine) {
 	}
 }
 
-// checkBadInput fails unless err wraps ErrBadInput, is one line and
+// CheckBadInput fails unless err wraps ErrBadInput, is one line and
 // contains every want.
-func checkBadInput(t *testing.T, err error, want ...string) {
+func CheckBadInput(t *testing.T, err error, want ...string) {
 	t.Helper()
 	if err == nil {
 		t.Fatalf("no error, want one mentioning %q", want)
@@ -315,7 +315,7 @@ func testRefuseWrites(t *testing.T, e Engine) {
 	before := fmt.Sprint(e.Query(t, w, state))
 	for _, stmt := range WriteStatements {
 		_, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: stmt, Unit: "id", Treatment: "t_bool"})
-		checkBadInput(t, err, "cohort.sql")
+		CheckBadInput(t, err, "cohort.sql")
 		if after := fmt.Sprint(e.Query(t, w, state)); after != before {
 			t.Fatalf("after %q src changed: %s, was %s", stmt, after, before)
 		}
@@ -697,7 +697,7 @@ func testEvolve(t *testing.T, e Engine) {
 	out3 := output(e, c2, handSchemes, 0)
 	out3.Covariates[0].Kind = warehouse.Categorical // age: DOUBLE → text
 	err := w.StartRun(ctx, out3, warehouse.RunRecord{RunID: "r3", Study: "st", StartedAt: t0.Add(2 * time.Hour)})
-	checkBadInput(t, err, "age", "st_cohort")
+	CheckBadInput(t, err, "age", "st_cohort")
 	if s := status(t, e, w, "r3"); s != "0 rows" {
 		t.Errorf("refused StartRun left a runs row: %s", s)
 	}
@@ -754,7 +754,7 @@ func testBadOutput(t *testing.T, e Engine) {
 		t.Run(tt.name, func(t *testing.T) {
 			out := output(e, c, handSchemes, 0)
 			tt.edit(&out)
-			checkBadInput(t, w.StartRun(ctx, out, rec), tt.want...)
+			CheckBadInput(t, w.StartRun(ctx, out, rec), tt.want...)
 		})
 	}
 }

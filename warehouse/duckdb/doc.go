@@ -8,9 +8,9 @@
 // straight from the result into the columnar warehouse.Cohort. Publish
 // writes every table through a table function over the columnar slices
 // (bulk.go) inside one explicit transaction (a test checks that appended
-// rows disappear on ROLLBACK). The per-study lock is warehouse/filelock's flock on a
-// sidecar file next to the database; DuckDB's own file lock keeps other
-// processes out of the file while it is open read-write.
+// rows disappear on ROLLBACK). The per-study lock is warehouse/filelock's
+// flock on a sidecar file next to the database; DuckDB's own file lock
+// keeps other processes out of the file while it is open read-write.
 //
 // The package must not write anything outside the output schema of the
 // study (apart from the lock file), must not create schemas, and must not

@@ -548,35 +548,33 @@ func (b *ScaleSQL) InSupport(eta string, sup Support) string {
 // ScoreInsertSQL returns the INSERT … SELECT statements of ScoreInto for
 // the contract's scores and (when schemes is not empty) weights tables.
 // $1 is the run id in both.
-func ScoreInsertSQL(c *Contract, cohortSQL string, d *DesignSQL, coef []float64, sup Support, schemes []string, fence bool) (stmts []string, args [][]any, err error) {
+func ScoreInsertSQL(c *Contract, runID, cohortSQL string, d *DesignSQL, coef []float64, sup Support, schemes []string, fence bool) ([]Statement, error) {
 	unit := Quote(c.Unit)
-	b := &ScaleSQL{args: []any{nil}}
+	b := &ScaleSQL{args: []any{runID}}
 	scored := ScoredSQL(b, cohortSQL, d, coef, sup, fence)
-	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (run_id, %s, treated, ps, logit_ps, in_support)\nSELECT CAST($1 AS VARCHAR), unit, z = 1, e, eta, ins FROM (%s %s) AS f",
-		QuoteQualified(c.Schema, c.Scores.Name), unit, scored, fenceText(fence)))
-	args = append(args, b.args)
+	stmts := []Statement{{fmt.Sprintf("INSERT INTO %s (run_id, %s, treated, ps, logit_ps, in_support)\nSELECT CAST($1 AS VARCHAR), unit, z = 1, e, eta, ins FROM (%s %s) AS f",
+		QuoteQualified(c.Schema, c.Scores.Name), unit, scored, fenceText(fence)), b.args}}
 	if len(schemes) == 0 {
-		return stmts, args, nil
+		return stmts, nil
 	}
-	b = &ScaleSQL{args: []any{nil}}
+	b = &ScaleSQL{args: []any{runID}}
 	scored = ScoredSQL(b, cohortSQL, d, coef, sup, fence)
 	names := []string{"run_id", unit, "treated"}
 	exprs := []string{"CAST($1 AS VARCHAR)", "unit", "z = 1"}
 	for _, s := range schemes {
 		if err := ValidIdent(s); err != nil {
-			return nil, nil, fmt.Errorf("weighting scheme: %w", err)
+			return nil, fmt.Errorf("weighting scheme: %w", err)
 		}
 		w, err := WeightSQL(s)
 		if err != nil {
-			return nil, nil, err
+			return nil, err
 		}
 		names = append(names, Quote(s))
 		exprs = append(exprs, w)
 	}
-	stmts = append(stmts, fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM (%s %s) AS f",
-		QuoteQualified(c.Schema, c.Weights.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), scored, fenceText(fence)))
-	args = append(args, b.args)
-	return stmts, args, nil
+	stmts = append(stmts, Statement{fmt.Sprintf("INSERT INTO %s (%s)\nSELECT %s FROM (%s %s) AS f",
+		QuoteQualified(c.Schema, c.Weights.Name), strings.Join(names, ", "), strings.Join(exprs, ", "), scored, fenceText(fence)), b.args})
+	return stmts, nil
 }
 
 // LogitRangeSQL returns min and max of η per arm: one row with

@@ -6,6 +6,13 @@ import (
 	"strings"
 )
 
+// Statement is one SQL statement and the values bound to its
+// parameters, in order.
+type Statement struct {
+	SQL  string
+	Args []any
+}
+
 // ScalePublisher is the optional engine interface of warehouse-scale
 // publishing (score.fit_in: warehouse): BeginScale opens the publish
 // transaction as a ScaleTx, which the caller drives in order.

@@ -8,7 +8,7 @@ import (
 	"os"
 	"path/filepath"
 
-	"counterpart/warehouse/duckdb"
+	"counterpart/warehouse"
 )
 
 // The demo scenario (ours, synthetic): a regional health plan offers home
@@ -257,9 +257,9 @@ func WriteDemo(ctx context.Context, dir string, n int, seed uint64) (string, *De
 		}
 	}
 	d := GenerateDemo(n, seed)
-	err := duckdb.LoadTable(ctx, db, "marts", "hf_members",
+	err := warehouse.LoadTable(ctx, "duckdb", db, "marts", "hf_members",
 		"Synthetic heart-failure members of a fictional health plan (counterpart demo); no real people.",
-		[]duckdb.LoadColumn{
+		[]warehouse.LoadColumn{
 			{Name: "member_id", Type: "BIGINT", Values: d.MemberID, Comment: "synthetic member id"},
 			{Name: "coached", Type: "BOOLEAN", Values: d.Coached, Comment: "enrolled in home heart-coaching"},
 			{Name: "age", Type: "INTEGER", Values: d.Age, Comment: "age in years at index"},

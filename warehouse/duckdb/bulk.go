@@ -14,7 +14,6 @@ import (
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	sqltext "counterpart/sql"
-	"counterpart/warehouse"
 	"counterpart/warehouse/sqlcore"
 )
 
@@ -127,15 +126,18 @@ func registerBulk(w *Warehouse) error {
 }
 
 // Bulk runs INSERT INTO table (run_id, names) SELECT $1, exprs FROM the
-// bulk function, with $1 the run id; categorical codes become their level
-// text inside DuckDB.
+// bulk function, with $1 the run id (neither without one); categorical
+// codes become their level text inside DuckDB.
 func (a *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.BulkCol, n int) error {
 	if a.bulk == nil {
 		return fmt.Errorf("bulk writes need a read-write warehouse")
 	}
 	src := &bulkSource{n: n, cols: cols}
-	names := []string{warehouse.Quote("run_id")}
-	exprs := []string{"$1"}
+	var exprs []string
+	var args []any
+	if runID != "" {
+		exprs, args = []string{"$1"}, []any{runID}
+	}
 	for i, c := range cols {
 		kind, expr := duckdb.TYPE_DOUBLE, fmt.Sprintf("c%d", i)
 		switch {
@@ -157,7 +159,6 @@ func (a *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.
 			return err
 		}
 		src.infos = append(src.infos, duckdb.ColumnInfo{Name: fmt.Sprintf("c%d", i), T: info})
-		names = append(names, warehouse.Quote(c.Name))
 		exprs = append(exprs, expr)
 	}
 	b := a.bulk
@@ -171,7 +172,7 @@ func (a *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.
 		delete(b.pending, key)
 		b.mu.Unlock()
 	}()
-	q := fmt.Sprintf("INSERT INTO %s (%s) SELECT %s FROM %s(%d)", table, strings.Join(names, ", "), strings.Join(exprs, ", "), b.name, key)
-	_, err := a.conn.ExecContext(ctx, q, runID)
+	q := fmt.Sprintf("INSERT INTO %s (%s) SELECT %s FROM %s(%d)", table, sqlcore.BulkNames(runID, cols), strings.Join(exprs, ", "), b.name, key)
+	_, err := a.conn.ExecContext(ctx, q, args...)
 	return err
 }

@@ -2,6 +2,7 @@ package duckdb
 
 import (
 	"context"
+	"fmt"
 	"path/filepath"
 	"testing"
 
@@ -10,70 +11,38 @@ import (
 )
 
 // openTemp opens a new DuckDB file in the test's temporary directory.
-func openTemp(t *testing.T) *Warehouse {
+func openTemp(t testing.TB) *Warehouse {
 	t.Helper()
 	w, err := Open(context.Background(), filepath.Join(t.TempDir(), "w.duckdb"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { w.Close() })
-	return w
+	return warehousetest.Keep(t, w, err)
 }
 
 // queryRows runs a query on w's dedicated connection and returns all rows.
-func queryRows(t *testing.T, w *Warehouse, query string) [][]any {
+func queryRows(t testing.TB, w warehouse.Warehouse, query string) [][]any {
 	t.Helper()
-	rows, err := w.conn.QueryContext(context.Background(), query)
-	if err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-	defer rows.Close()
-	cols, err := rows.Columns()
-	if err != nil {
-		t.Fatal(err)
-	}
-	var out [][]any
-	for rows.Next() {
-		vals := make([]any, len(cols))
-		ptrs := make([]any, len(cols))
-		for i := range vals {
-			ptrs[i] = &vals[i]
-		}
-		if err := rows.Scan(ptrs...); err != nil {
-			t.Fatal(err)
-		}
-		out = append(out, vals)
-	}
-	if err := rows.Err(); err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-	return out
+	return warehousetest.SQLRows(t, w.(*Warehouse).conn, query)
 }
 
-func execSQL(t *testing.T, w *Warehouse, query string) {
-	t.Helper()
-	if _, err := w.conn.ExecContext(context.Background(), query); err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-}
+var execSQL = warehousetest.Exec
 
-// engine adapts this package to the conformance suite.
+// engine adapts this package to the conformance suite. flock conflicts
+// between two open files even in one process, so the same handle stands
+// for another session.
 var engine = warehousetest.Engine{
-	Schema: "main",
-	Open:   func(t *testing.T) warehouse.Warehouse { return openTemp(t) },
-	Exec: func(t *testing.T, w warehouse.Warehouse, query string) {
-		execSQL(t, w.(*Warehouse), query)
-	},
-	Query: func(t *testing.T, w warehouse.Warehouse, query string) [][]any {
-		return queryRows(t, w.(*Warehouse), query)
-	},
-	// flock conflicts between two open files even in one process, so the
-	// same handle stands for another session.
-	Other:      func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
-	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).Fault = f },
-	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
+	Schema: "main", Query: queryRows,
+	Open:  func(t *testing.T) warehouse.Warehouse { return openTemp(t) },
+	Other: func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse { return w },
 }
 
 func TestConformance(t *testing.T) {
 	warehousetest.RunConformance(t, engine)
+}
+
+// TestUpgradeRunsTable: the suite's upgrade check; the rebuilt runs table
+// keeps its comment.
+func TestUpgradeRunsTable(t *testing.T) {
+	w := warehousetest.UpgradeRunsTable(t, engine)
+	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE 'st_runs%' AND comment <> ''")); got != "[[1]]" {
+		t.Errorf("runs tables with a comment after the upgrade: %s", got)
+	}
 }

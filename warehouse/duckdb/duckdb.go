@@ -14,6 +14,7 @@ import (
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/filelock"
 	"counterpart/warehouse/sqlcore"
 )
 
@@ -67,12 +68,10 @@ var dialect = &sqlcore.Dialect{
 	},
 	// DuckDB's hash() of the unit id is the same on every run.
 	SampleKeep: func(unit string, modulus int) string { return fmt.Sprintf("hash(%s) %% %d = 0", unit, modulus) },
-	Err:        func(err error) error { return &dbError{oneLine(err), []error{err}} },
+	Err:        func(err error) error { return sqlcore.Flat(sqlcore.OneLine(err), err) },
 	QueryErr:   queryError,
 	// DuckDB cannot alter or drop a constraint, so a runs table from
-	// before the abandoned status is rebuilt in the open transaction:
-	// created under a new name, filled, the old one dropped and the new
-	// one renamed (views bind by name when queried).
+	// before the abandoned status is rebuilt (Core.RebuildRuns).
 	StatusCheck: func(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 		var expr *string
 		found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &expr)
@@ -82,23 +81,7 @@ var dialect = &sqlcore.Dialect{
 		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusAbandoned)) {
 			return nil
 		}
-		tmp := o.C.Runs
-		tmp.Name += "_migrating"
-		if err := c.EnsureTable(ctx, o.C.Schema, &tmp, true); err != nil {
-			return err
-		}
-		cols := make([]string, len(o.C.Runs.Columns))
-		for i, col := range o.C.Runs.Columns {
-			cols[i] = warehouse.Quote(col.Name)
-		}
-		qtmp, list := warehouse.QuoteQualified(o.C.Schema, tmp.Name), strings.Join(cols, ", ")
-		for _, stmt := range []string{"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
-			"DROP TABLE " + o.Runs, "ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name)} {
-			if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the abandoned status", stmt); err != nil {
-				return err
-			}
-		}
-		return nil
+		return c.RebuildRuns(ctx, o)
 	},
 }
 
@@ -157,11 +140,11 @@ func open(ctx context.Context, path, dsn string, readOnly bool) (*Warehouse, err
 // openError maps DuckDB's own file lock (another process has the file open
 // for writing) to warehouse.ErrLocked.
 func openError(err error) error {
-	msg := oneLine(err)
+	msg := sqlcore.OneLine(err)
 	if strings.Contains(msg, "Could not set lock on file") {
-		return &dbError{"the file is open in another process: " + msg, []error{warehouse.ErrLocked, err}}
+		return sqlcore.Flat("the file is open in another process: "+msg, warehouse.ErrLocked, err)
 	}
-	return &dbError{msg, []error{err}}
+	return sqlcore.Flat(msg, err)
 }
 
 // User returns "": DuckDB has no database users (its current_user is the
@@ -264,20 +247,6 @@ func (w *Warehouse) TuneForScale(ctx context.Context, units int) error {
 	return nil
 }
 
-// oneLine flattens a DuckDB error message to one line: DuckDB appends the
-// query text and a caret on lines of their own ("LINE 1: ..."), which carry
-// no information once the query is named and break single-line logs.
-func oneLine(err error) string {
-	var parts []string
-	for _, l := range strings.Split(err.Error(), "\n") {
-		l = strings.TrimSpace(l)
-		if l != "" && !strings.HasPrefix(l, "LINE ") && strings.Trim(l, "^ ") != "" {
-			parts = append(parts, l)
-		}
-	}
-	return strings.Join(parts, " ")
-}
-
 // queryError classes an error DuckDB raised for the analyst's query: parse,
 // bind, catalog, conversion and similar errors are the study's fault and
 // wrap warehouse.ErrBadInput; I/O, memory, interrupts and internal errors
@@ -294,18 +263,16 @@ func queryError(err error) error {
 			duckdb.ErrorTypeParameterNotAllowed, duckdb.ErrorTypeNotImplemented,
 			duckdb.ErrorTypeTransaction, duckdb.ErrorTypePermission,
 			duckdb.ErrorTypeMissingExtension, duckdb.ErrorTypeAutoLoad:
-			return &dbError{"bad input: " + oneLine(err), []error{warehouse.ErrBadInput, err}}
+			return sqlcore.Flat("bad input: "+sqlcore.OneLine(err), warehouse.ErrBadInput, err)
 		}
 	}
-	return &dbError{oneLine(err), []error{err}}
+	return sqlcore.Flat(sqlcore.OneLine(err), err)
 }
 
-// dbError carries a DuckDB error flattened to one line while keeping the
-// original (and the error class) for errors.Is and errors.As.
-type dbError struct {
-	msg  string
-	errs []error
+// Lock takes the study's lock on a sidecar file next to the database
+// (filelock.Study). DuckDB's own file lock already keeps other processes
+// out while this one has the database open read-write; the sidecar lock
+// holds per study, and also against tools that open the file in turn.
+func (a *adapter) Lock(_ context.Context, out warehouse.Output) (func() error, error) {
+	return filelock.Study(a.path, out)
 }
-
-func (e *dbError) Error() string   { return e.msg }
-func (e *dbError) Unwrap() []error { return e.errs }

@@ -21,6 +21,7 @@ import (
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/warehousetest"
 )
 
 func read(t *testing.T, w *Warehouse, q warehouse.CohortQuery) (*warehouse.Cohort, error) {
@@ -137,23 +138,7 @@ type readCase struct {
 	want []string
 }
 
-func checkBadInput(t *testing.T, err error, want ...string) {
-	t.Helper()
-	if err == nil {
-		t.Fatalf("no error, want one mentioning %q", want)
-	}
-	if !errors.Is(err, warehouse.ErrBadInput) {
-		t.Errorf("error %q does not wrap ErrBadInput", err)
-	}
-	if strings.Contains(err.Error(), "\n") {
-		t.Errorf("error spans lines: %q", err)
-	}
-	for _, s := range want {
-		if !strings.Contains(err.Error(), s) {
-			t.Errorf("error %q does not mention %q", err, s)
-		}
-	}
-}
+var checkBadInput = warehousetest.CheckBadInput
 
 // TestRefuseDuckDBStatements: DuckDB statements that write files, attach
 // databases, change settings or split into several statements are refused
@@ -484,52 +469,5 @@ func TestDecimalFloat(t *testing.T) {
 	}
 	if got := decimalFloat(duckdb.Decimal{Scale: 2, Value: new(big.Int).Lsh(big.NewInt(1), 80)}); math.Abs(got-math.Ldexp(1, 80)/100) > 1e-3*math.Ldexp(1, 80)/100 {
 		t.Errorf("wide decimal %v", got)
-	}
-}
-
-// TestPublishChecks: a publication that does not fit its output is refused
-// before anything is written.
-func TestPublishChecks(t *testing.T) {
-	w := openTemp(t)
-	ctx := context.Background()
-	execSQL(t, w, "CREATE TABLE src AS SELECT range AS id, range % 2 = 0 AS tr, range * 1.0 AS x FROM range(4)")
-	c, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: "SELECT * FROM src ORDER BY id", Unit: "id", Treatment: "tr", Covariates: []string{"x"}})
-	if err != nil {
-		t.Fatal(err)
-	}
-	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr",
-		Covariates: []warehouse.CovariateMeta{{Name: "x"}}, Schemes: []string{"att"}}
-	good := func() *warehouse.Publication {
-		return &warehouse.Publication{Run: warehouse.RunRecord{RunID: "r1", Status: warehouse.StatusSucceeded}, Cohort: c,
-			PS: make([]float64, 4), LogitPS: make([]float64, 4), InSupport: make([]bool, 4), Weights: [][]float64{make([]float64, 4)}}
-	}
-	if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
-		t.Fatal(err)
-	}
-	tests := []struct {
-		name string
-		edit func(*warehouse.Publication)
-		want string
-	}{
-		{"running status", func(p *warehouse.Publication) { p.Run.Status = warehouse.StatusRunning }, "final status"},
-		{"short scores", func(p *warehouse.Publication) { p.PS = p.PS[:3] }, "ps has 3 values for 4 units"},
-		{"weights columns", func(p *warehouse.Publication) { p.Weights = nil }, "0 columns for 1 schemes"},
-		{"match unit", func(p *warehouse.Publication) {
-			p.Matches = warehouse.MatchRows{SetID: []int64{1}, Unit: []int{9}, Treated: []bool{true}, SetWeight: []float64{1}, Distance: []float64{0}}
-		}, "unit index 9 of 4"},
-		{"rows without cohort", func(p *warehouse.Publication) { p.Cohort = nil }, "without their cohort"},
-	}
-	for _, tt := range tests {
-		p := good()
-		tt.edit(p)
-		if err := w.Publish(ctx, out, p); err == nil || !strings.Contains(err.Error(), tt.want) {
-			t.Errorf("%s: %v, want an error mentioning %q", tt.name, err, tt.want)
-		}
-	}
-	if got := fmt.Sprint(queryRows(t, w, "SELECT status FROM st_runs")); got != "[[running]]" {
-		t.Errorf("runs after refused publications: %s", got)
-	}
-	if err := w.Publish(ctx, out, good()); err != nil {
-		t.Fatalf("the good publication: %v", err)
 	}
 }

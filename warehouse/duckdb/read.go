@@ -2,15 +2,10 @@ package duckdb
 
 import (
 	"context"
-	"database/sql"
 	"database/sql/driver"
 	"encoding/json"
 	"fmt"
-	"math"
-	"math/big"
-	"strconv"
 	"strings"
-	"time"
 
 	duckdb "github.com/duckdb/duckdb-go/v2"
 
@@ -126,120 +121,26 @@ func classOf(dbType string) sqlcore.Class {
 	return sqlcore.ClassOther
 }
 
-// Columns describes text's result from a LIMIT 0 query (nothing is read).
-func (a *adapter) Columns(ctx context.Context, text string) ([]sqlcore.Column, error) {
-	rows, err := a.conn.QueryContext(ctx, "SELECT * FROM "+warehouse.From(text)+" LIMIT 0")
-	if err != nil {
-		return nil, fmt.Errorf("cohort.sql: %w", queryError(err))
-	}
-	defer rows.Close()
-	return columns(rows.ColumnTypes())
-}
-
-func columns(cts []*sql.ColumnType, err error) ([]sqlcore.Column, error) {
-	if err != nil {
-		return nil, fmt.Errorf("cohort.sql: column types: %w", dialect.Err(err))
-	}
-	cols := make([]sqlcore.Column, len(cts))
-	for i, ct := range cts {
-		cols[i] = sqlcore.Column{Name: ct.Name(), Type: ct.DatabaseTypeName(), Class: classOf(ct.DatabaseTypeName())}
-	}
-	return cols, nil
-}
-
-// Stream runs text on the dedicated connection and hands each used
-// column's values to its sink through a sql.Scanner, so a row costs no
-// allocation beyond the driver's own. DuckDB-specific decoding: DATE
+// decoder reads the analyst's query. DuckDB-specific decoding: DATE
 // becomes days since 1970-01-01 (ISO text when categorical); DECIMAL and
 // HUGEINT become the nearest float64.
-func (a *adapter) Stream(ctx context.Context, text string, open func([]sqlcore.Column) ([]sqlcore.Sink, error)) error {
-	rows, err := a.conn.QueryContext(ctx, text)
-	if err != nil {
-		return fmt.Errorf("cohort.sql: %w", queryError(err))
-	}
-	defer rows.Close()
-	cols, err := columns(rows.ColumnTypes())
-	if err != nil {
-		return err
-	}
-	sinks, err := open(cols)
-	if err != nil {
-		return err
-	}
-	dest := make([]any, len(sinks))
-	for i, s := range sinks {
-		dest[i] = scanner{s}
-	}
-	for n := 1; rows.Next(); n++ {
-		if err := rows.Scan(dest...); err != nil {
-			return fmt.Errorf("cohort.sql: row %d: %w", n, err)
+var decoder = &sqlcore.SQLDecoder{Class: classOf, Err: dialect.Err, QueryErr: queryError,
+	Value: func(s sqlcore.Sink, v any) bool {
+		d, ok := v.(duckdb.Decimal)
+		if ok {
+			s.Exact(decimalFloat(d), d.String(), false)
 		}
-	}
-	if err := rows.Err(); err != nil {
-		return fmt.Errorf("cohort.sql: %w", queryError(err))
-	}
-	return nil
+		return ok
+	}}
+
+// Columns describes text's result without reading rows.
+func (a *adapter) Columns(ctx context.Context, text string) ([]sqlcore.Column, error) {
+	return decoder.Columns(ctx, a.conn, text)
 }
 
-// scanner feeds a driver value to a sink (nil: column unused).
-type scanner struct{ s sqlcore.Sink }
-
-func (c scanner) Scan(v any) error {
-	s := c.s
-	if s == nil {
-		return nil
-	}
-	switch t := v.(type) {
-	case nil:
-		s.Null()
-	case bool:
-		s.Bool(t)
-	case int64:
-		s.Int(t)
-	case int32:
-		s.Int(int64(t))
-	case int16:
-		s.Int(int64(t))
-	case int8:
-		s.Int(int64(t))
-	case uint8:
-		s.Int(int64(t))
-	case uint16:
-		s.Int(int64(t))
-	case uint32:
-		s.Int(int64(t))
-	case uint64:
-		if t > math.MaxInt64 {
-			s.Exact(float64(t), strconv.FormatUint(t, 10), true)
-		} else {
-			s.Int(int64(t))
-		}
-	case *big.Int:
-		if t.IsInt64() {
-			s.Int(t.Int64())
-		} else {
-			f, _ := new(big.Float).SetInt(t).Float64()
-			s.Exact(f, t.String(), true)
-		}
-	case float64:
-		s.Float(t)
-	case float32:
-		s.Float(float64(t))
-	case string:
-		s.Text(t)
-	case duckdb.Decimal:
-		s.Exact(decimalFloat(t), t.String(), false)
-	case time.Time:
-		// DuckDB returns a DATE as midnight UTC.
-		days := t.Unix() / 86400
-		if t.Unix()%86400 < 0 {
-			days--
-		}
-		s.Date(float64(days))
-	default:
-		return fmt.Errorf("unexpected %T", v)
-	}
-	return nil
+// Stream runs text on the dedicated connection.
+func (a *adapter) Stream(ctx context.Context, text string, open func([]sqlcore.Column) ([]sqlcore.Sink, error)) error {
+	return decoder.Stream(ctx, a.conn, text, open)
 }
 
 // pow10 holds the exactly representable powers of ten.

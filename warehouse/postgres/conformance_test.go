@@ -21,18 +21,14 @@ func openScratch(t testing.TB) *Warehouse {
 func openDSN(t testing.TB, dsn string) *Warehouse {
 	t.Helper()
 	w, err := Open(context.Background(), dsn)
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Cleanup(func() { w.Close() })
-	return w
+	return warehousetest.Keep(t, w, err)
 }
 
 // queryRows runs a query on w's connection and returns all rows; numeric
 // values come back as float64 so that the suite can compare them.
-func queryRows(t testing.TB, w *Warehouse, query string) [][]any {
+func queryRows(t testing.TB, w warehouse.Warehouse, query string) [][]any {
 	t.Helper()
-	rows, err := w.conn.Query(context.Background(), query)
+	rows, err := w.(*Warehouse).conn.Query(context.Background(), query)
 	if err != nil {
 		t.Fatalf("%s: %v", query, err)
 	}
@@ -60,33 +56,24 @@ func queryRows(t testing.TB, w *Warehouse, query string) [][]any {
 	return out
 }
 
-func execSQL(t testing.TB, w *Warehouse, query string) {
-	t.Helper()
-	if _, err := w.conn.Exec(context.Background(), query); err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-}
+var execSQL = warehousetest.Exec
 
 // engine adapts this package to the conformance suite. Each Open is a new
 // database, so the suite's unqualified names resolve in its public schema.
+// The advisory lock belongs to the session: another session is another
+// connection to the same database.
 var engine = warehousetest.Engine{
-	Schema: "public",
-	Open:   func(t *testing.T) warehouse.Warehouse { return openScratch(t) },
-	Exec: func(t *testing.T, w warehouse.Warehouse, query string) {
-		execSQL(t, w.(*Warehouse), query)
-	},
-	Query: func(t *testing.T, w warehouse.Warehouse, query string) [][]any {
-		return queryRows(t, w.(*Warehouse), query)
-	},
-	// The advisory lock belongs to the session: another session is another
-	// connection to the same database.
+	Schema: "public", Query: queryRows,
+	Open: func(t *testing.T) warehouse.Warehouse { return openScratch(t) },
 	Other: func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse {
 		return openDSN(t, w.(*Warehouse).cfg.ConnString())
 	},
-	Fault:      func(w warehouse.Warehouse, f func(string) error) { w.(*Warehouse).Fault = f },
-	FaultSteps: []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"},
 }
 
 func TestConformance(t *testing.T) {
 	warehousetest.RunConformance(t, engine)
+}
+
+func TestUpgradeRunsTable(t *testing.T) {
+	warehousetest.UpgradeRunsTable(t, engine)
 }

@@ -6,9 +6,7 @@ import (
 	"fmt"
 	"io"
 	"math"
-	"strings"
 
-	"counterpart/warehouse"
 	"counterpart/warehouse/sqlcore"
 )
 
@@ -104,10 +102,11 @@ func (r *copyReader) Read(p []byte) (int, error) {
 // the listed columns are written; a table's other columns (those of
 // covariates or schemes a study no longer uses) get NULL.
 func (w *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.BulkCol, n int) error {
-	names := []string{"run_id"}
-	puts := []field{textField(func(int) string { return runID })}
+	var puts []field
+	if runID != "" {
+		puts = append(puts, textField(func(int) string { return runID }))
+	}
 	for _, c := range cols {
-		names = append(names, warehouse.Quote(c.Name))
 		switch {
 		case c.F64 != nil:
 			puts = append(puts, floatField(c.F64, c.At))
@@ -121,7 +120,7 @@ func (w *adapter) Bulk(ctx context.Context, table, runID string, cols []sqlcore.
 			puts = append(puts, textField(func(i int) string { return c.S[c.At(i)] }))
 		}
 	}
-	q := fmt.Sprintf("COPY %s (%s) FROM STDIN (FORMAT binary)", table, strings.Join(names, ", "))
+	q := fmt.Sprintf("COPY %s (%s) FROM STDIN (FORMAT binary)", table, sqlcore.BulkNames(runID, cols))
 	r := &copyReader{ctx: ctx, cols: puts, n: n, buf: make([]byte, 0, copyChunk+4096)}
 	tag, err := w.conn.PgConn().CopyFrom(ctx, r, q)
 	if err != nil {

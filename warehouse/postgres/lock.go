@@ -41,8 +41,7 @@ func (w *adapter) Lock(ctx context.Context, out warehouse.Output) (func() error,
 		return nil, fmt.Errorf("advisory lock: %w", w.dbErr(err))
 	}
 	if !got {
-		return nil, fmt.Errorf("%w: study %s in schema %s is locked by %s; wait for that run to finish",
-			warehouse.ErrLocked, out.Study, out.Schema, w.holder(ctx, key))
+		return nil, warehouse.LockedError(out, w.holder(ctx, key))
 	}
 	return func() error {
 		ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)

@@ -5,8 +5,6 @@ import (
 	"embed"
 	"errors"
 	"fmt"
-	"net/url"
-	"regexp"
 	"strings"
 	"time"
 
@@ -25,7 +23,7 @@ func init() {
 	sqlcore.Register(warehouse.Engine{
 		Name: "postgres", DefaultSchema: "public", DSNHint: "a postgres:// URL",
 		Open: func(ctx context.Context, dsn string, o warehouse.OpenOptions) (warehouse.Warehouse, error) {
-			return open(ctx, dsn, o.ReadOnly, []Option{WithStudy(o.Study)})
+			return open(ctx, dsn, o)
 		},
 	}, sqlFiles)
 }
@@ -64,7 +62,7 @@ func (w *Warehouse) dialect() *sqlcore.Dialect {
 		},
 		Err:         a.dbErr,
 		QueryErr:    a.queryError,
-		Scrub:       func(s string) string { return scrub(s, w.secrets) },
+		Scrub:       func(s string) string { return sqlcore.Scrub(s, w.secrets) },
 		StatusCheck: statusCheck,
 	}
 }
@@ -86,53 +84,43 @@ func statusCheck(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) err
 	return err
 }
 
-// Option adjusts how Open connects.
-type Option func(*options)
-
-type options struct{ study string }
-
-// WithStudy names the study on the connection: application_name becomes
-// "counterpart <study>", so that pg_stat_activity (and a refused second
-// run) shows which study a session runs.
-func WithStudy(study string) Option { return func(o *options) { o.study = study } }
-
 // Open connects for a run. dsn is a libpq connection string (URL or
 // key=value); what it leaves out comes from the libpq environment variables
 // (PGHOST, PGPORT, PGUSER, PGPASSWORD, PGDATABASE, PGSSLMODE, ...) and the
 // password file (~/.pgpass or PGPASSFILE), as pgconn.ParseConfig does. An
 // error never contains the password.
-func Open(ctx context.Context, dsn string, opts ...Option) (*Warehouse, error) {
-	return open(ctx, dsn, false, opts)
+func Open(ctx context.Context, dsn string) (*Warehouse, error) {
+	return open(ctx, dsn, warehouse.OpenOptions{})
 }
 
 // OpenReadOnly connects for a dry run: the session's
 // default_transaction_read_only is on, so nothing done through it can
 // write, and the write methods refuse to start.
-func OpenReadOnly(ctx context.Context, dsn string, opts ...Option) (*Warehouse, error) {
-	return open(ctx, dsn, true, opts)
+func OpenReadOnly(ctx context.Context, dsn string) (*Warehouse, error) {
+	return open(ctx, dsn, warehouse.OpenOptions{ReadOnly: true})
 }
 
-func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Warehouse, error) {
-	var o options
-	for _, f := range opts {
-		f(&o)
-	}
-	secrets := dsnSecrets(dsn)
+// open connects with o. A study named in o names the session:
+// application_name becomes "counterpart <study>", so that
+// pg_stat_activity (and a refused second run) shows which study a
+// session runs.
+func open(ctx context.Context, dsn string, o warehouse.OpenOptions) (*Warehouse, error) {
+	secrets := sqlcore.DSNSecrets(dsn)
 	cfg, err := pgx.ParseConfig(dsn)
 	if err != nil {
 		// pgconn redacts what it recognises; scrub again with what we found.
 		return nil, fmt.Errorf("postgres: %w: warehouse.dsn is not a valid connection string: %s",
-			warehouse.ErrBadInput, scrub(err.Error(), secrets))
+			warehouse.ErrBadInput, sqlcore.Scrub(err.Error(), secrets))
 	}
 	if cfg.Password != "" {
 		secrets = append(secrets, cfg.Password)
 	}
 	app := "counterpart"
-	if o.study != "" {
-		app += " " + o.study
+	if o.Study != "" {
+		app += " " + o.Study
 	}
 	cfg.RuntimeParams["application_name"] = app
-	if readOnly {
+	if o.ReadOnly {
 		cfg.RuntimeParams["default_transaction_read_only"] = "on"
 	}
 	// A cancelled context sends the server a cancel request and keeps the
@@ -146,10 +134,10 @@ func open(ctx context.Context, dsn string, readOnly bool, opts []Option) (*Wareh
 	cfg.DefaultQueryExecMode = pgx.QueryExecModeDescribeExec
 	conn, err := pgx.ConnectConfig(ctx, cfg)
 	if err != nil {
-		return nil, fmt.Errorf("postgres %s: %w", describe(cfg), &scrubbed{scrub(oneLine(err), secrets), err})
+		return nil, fmt.Errorf("postgres %s: %w", describe(cfg), sqlcore.Flat(sqlcore.Scrub(sqlcore.OneLine(err), secrets), err))
 	}
 	w := &Warehouse{conn: conn, cfg: cfg, secrets: secrets}
-	w.Core = &sqlcore.Core{A: (*adapter)(w), D: w.dialect(), Place: "in database " + cfg.Database, ReadOnly: readOnly}
+	w.Core = &sqlcore.Core{A: (*adapter)(w), D: w.dialect(), Place: "in database " + cfg.Database, ReadOnly: o.ReadOnly}
 	return w, nil
 }
 
@@ -184,80 +172,11 @@ func (w *adapter) Query(ctx context.Context, query string, args ...any) (sqlcore
 	return w.conn.Query(ctx, query, args...)
 }
 
-// dsnSecrets finds the password a connection string carries (URL user
-// info, a password query parameter, or a key=value password) before
-// parsing, so that even an unparsable string cannot leak it.
-func dsnSecrets(dsn string) []string {
-	var out []string
-	if u, err := url.Parse(dsn); err == nil && u.User != nil {
-		if p, ok := u.User.Password(); ok && p != "" {
-			out = append(out, p, url.QueryEscape(p), url.PathEscape(p))
-		}
-		for k, vs := range u.Query() {
-			if strings.EqualFold(k, "password") {
-				out = append(out, vs...)
-			}
-		}
-	} else if i := strings.Index(dsn, "://"); i >= 0 {
-		// A URL that does not parse: take what lies between user: and @.
-		rest := dsn[i+3:]
-		if at := strings.LastIndex(rest, "@"); at >= 0 {
-			if c := strings.Index(rest[:at], ":"); c >= 0 && c+1 < at {
-				out = append(out, rest[c+1:at])
-			}
-		}
-	}
-	for _, m := range kvPassword.FindAllStringSubmatch(dsn, -1) {
-		out = append(out, strings.Trim(m[2], "'"), m[2])
-	}
-	return out
-}
-
-var (
-	kvPassword  = regexp.MustCompile(`(?i)(password\s*=\s*)('[^']*'|[^\s&]+)`)
-	urlPassword = regexp.MustCompile(`(://[^:/@\s]*:)[^@\s]*@`)
-)
-
-// scrub removes every known secret and any URL or key=value password from
-// msg.
-func scrub(msg string, secrets []string) string {
-	for _, s := range secrets {
-		if len(s) > 0 {
-			msg = strings.ReplaceAll(msg, s, "xxxxx")
-		}
-	}
-	msg = urlPassword.ReplaceAllString(msg, "${1}xxxxx@")
-	return kvPassword.ReplaceAllString(msg, "${1}xxxxx")
-}
-
-// scrubbed is an error whose message was scrubbed of secrets; the original
-// stays reachable for errors.As (a *pgconn.PgError, say) but Error never
-// shows it.
-type scrubbed struct {
-	msg string
-	err error
-}
-
-func (e *scrubbed) Error() string { return e.msg }
-func (e *scrubbed) Unwrap() error { return e.err }
-
-// oneLine flattens a message to one line: server errors may carry DETAIL
-// and HINT lines, pgconn's connect errors a tab-indented list.
-func oneLine(err error) string {
-	var parts []string
-	for _, l := range strings.Split(err.Error(), "\n") {
-		if l = strings.TrimSpace(l); l != "" {
-			parts = append(parts, l)
-		}
-	}
-	return strings.Join(parts, " ")
-}
-
 // pgMessage is a server error in one line with its detail and hint.
 func pgMessage(err error) string {
 	var pe *pgconn.PgError
 	if !errors.As(err, &pe) {
-		return oneLine(err)
+		return sqlcore.OneLine(err)
 	}
 	msg := pe.Message
 	if pe.Detail != "" {
@@ -276,7 +195,7 @@ func pgMessage(err error) string {
 // the analyst's fault by themselves: where the study is at fault (a missing
 // schema, a type conflict) the caller checks first and says so.
 func (w *adapter) dbErr(err error) error {
-	return &dbError{scrub(pgMessage(err), w.secrets), []error{err}}
+	return sqlcore.Flat(sqlcore.Scrub(pgMessage(err), w.secrets), err)
 }
 
 // badInputClasses are the SQLSTATE classes (PostgreSQL manual, Appendix A)
@@ -293,27 +212,16 @@ var badInputClasses = map[string]bool{"0A": true, "21": true, "22": true, "25": 
 func (w *adapter) queryError(err error) error {
 	var pe *pgconn.PgError
 	if errors.As(err, &pe) && len(pe.Code) == 5 {
-		msg := scrub(pgMessage(err), w.secrets)
+		msg := sqlcore.Scrub(pgMessage(err), w.secrets)
 		switch {
 		case pe.Code == "25006":
-			return &dbError{"the query writes (" + msg + "); the cohort query must be a single SELECT that only reads — move writes to your ETL",
-				[]error{warehouse.ErrBadInput, err}}
+			return sqlcore.Flat("the query writes ("+msg+"); the cohort query must be a single SELECT that only reads — move writes to your ETL",
+				warehouse.ErrBadInput, err)
 		case pe.Code == "42601" && strings.Contains(pe.Message, "multiple commands"):
-			return &dbError{"cohort.sql holds more than one statement; write a single SELECT",
-				[]error{warehouse.ErrBadInput, err}}
+			return sqlcore.Flat("cohort.sql holds more than one statement; write a single SELECT", warehouse.ErrBadInput, err)
 		case badInputClasses[pe.Code[:2]]:
-			return &dbError{msg, []error{warehouse.ErrBadInput, err}}
+			return sqlcore.Flat(msg, warehouse.ErrBadInput, err)
 		}
 	}
 	return w.dbErr(err)
 }
-
-// dbError carries a server error flattened to one line while keeping the
-// original (and the error class) for errors.Is and errors.As.
-type dbError struct {
-	msg  string
-	errs []error
-}
-
-func (e *dbError) Error() string   { return e.msg }
-func (e *dbError) Unwrap() []error { return e.errs }

@@ -3,6 +3,7 @@ package sqlcore
 import (
 	"context"
 	"fmt"
+	"strings"
 
 	"counterpart/warehouse"
 )
@@ -28,6 +29,19 @@ func (c *BulkCol) At(r int) int {
 		return c.Idx[r]
 	}
 	return r
+}
+
+// BulkNames is the quoted column list of a bulk write: run_id first
+// unless runID is "", then the columns of cols in order.
+func BulkNames(runID string, cols []BulkCol) string {
+	var names []string
+	if runID != "" {
+		names = append(names, "run_id")
+	}
+	for _, c := range cols {
+		names = append(names, warehouse.Quote(c.Name))
+	}
+	return strings.Join(names, ", ")
 }
 
 // unitCol is the unit id column of cohort c, indexed by idx when set.

@@ -25,8 +25,8 @@ type Conn interface {
 	// Exec runs a statement and returns the rows it affected.
 	Exec(ctx context.Context, query string, args ...any) (int64, error)
 	Query(ctx context.Context, query string, args ...any) (Rows, error)
-	// Bulk writes n rows of cols, plus run_id = runID, into the quoted
-	// table, inside the open transaction.
+	// Bulk writes n rows of cols, plus run_id = runID unless runID is ""
+	// (LoadTable), into the quoted table, inside the open transaction.
 	Bulk(ctx context.Context, table, runID string, cols []BulkCol, n int) error
 }
 
@@ -89,6 +89,11 @@ var (
 	_ warehouse.ScalePublisher = (*Core)(nil)
 )
 
+// SQLCore returns c: an engine's Warehouse, which embeds its Core, shows
+// it through this method, so that the conformance suite reaches the
+// adapter and the fault hook of any engine.
+func (c *Core) SQLCore() *Core { return c }
+
 // Engine names the engine.
 func (c *Core) Engine() string { return c.D.Name }
 
@@ -142,7 +147,12 @@ func (c *Core) Exec(ctx context.Context, what, query string, args ...any) (int64
 // QueryRow scans the first row of one of counterpart's own queries;
 // found is false when there is none.
 func (c *Core) QueryRow(ctx context.Context, query string, args []any, dest ...any) (found bool, err error) {
-	err = c.Each(ctx, query, args, dest, func() error {
+	return c.first(ctx, c.err, query, args, dest)
+}
+
+// first scans the first row of query; qerr classes the query's errors.
+func (c *Core) first(ctx context.Context, qerr func(error) error, query string, args, dest []any) (found bool, err error) {
+	err = c.each(ctx, qerr, query, args, dest, func() error {
 		found = true
 		return errStop
 	})
@@ -153,9 +163,15 @@ var errStop = errors.New("stop")
 
 // Each runs query and calls fn after scanning each row into dest.
 func (c *Core) Each(ctx context.Context, query string, args, dest []any, fn func() error) error {
+	return c.each(ctx, c.err, query, args, dest, fn)
+}
+
+// each is Each with qerr classing the query's errors (scanning errors
+// are never the study's).
+func (c *Core) each(ctx context.Context, qerr func(error) error, query string, args, dest []any, fn func() error) error {
 	rows, err := c.A.Query(ctx, query, args...)
 	if err != nil {
-		return c.err(err)
+		return qerr(err)
 	}
 	defer rows.Close()
 	for rows.Next() {
@@ -169,7 +185,7 @@ func (c *Core) Each(ctx context.Context, query string, args, dest []any, fn func
 		}
 	}
 	if err := rows.Err(); err != nil {
-		return c.err(err)
+		return qerr(err)
 	}
 	return nil
 }

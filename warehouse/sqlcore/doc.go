@@ -4,21 +4,28 @@
 // engine supplies an Adapter (its connection, dialect, value decoding and
 // lock) and gets a *Core that is the whole Warehouse.
 //
-// Adding an engine is writing that adapter in warehouse/<engine>:
+// Adding an engine is writing that adapter in warehouse/<engine>, about
+// five files and nothing outside the folder but a blank import in
+// warehouse/engines:
 //
 //  1. Conn: Exec, Query with typed row scanning (*string, *int64, *int32,
 //     *bool, *float64, *[]float64, *time.Time and pointers to them for
 //     NULL) and Bulk, which streams columnar BulkCols into a table inside
-//     the open transaction.
-//  2. Dialect: type names, planner quirks, error classes, the hash of the
-//     seed sample and the status-check migration.
+//     the open transaction (BulkNames gives its column list).
+//  2. Dialect: type names, planner quirks, error classes (Flat keeps a
+//     one-line message over the driver's error; OneLine, Scrub and
+//     DSNSecrets are shared), the hash of the seed sample and the
+//     status-check migration (Core.RebuildRuns where a constraint cannot
+//     be altered).
 //  3. Columns and Stream: the analyst's query's result columns classed as
 //     Class values, and its rows fed value by value into the Sinks of the
-//     shared Collector, which holds every decoding rule.
-//  4. CheckSelect, Lock, User, Close.
-//  5. Register the engine with warehouse.Register in init, embed its
-//     dialect SQL with sqltext.RegisterDialect, and run
-//     warehouse/warehousetest against it.
+//     shared Collector, which holds every decoding rule. A database/sql
+//     driver gets both from an SQLDecoder and decodes only its own types.
+//  4. CheckSelect, Lock (warehouse/filelock for a file-backed engine),
+//     User, Close.
+//  5. Register the engine and its embedded dialect SQL with Register in
+//     init, and run warehouse/warehousetest's RunConformance against it;
+//     LoadTable (the demo's and tests' loader) then works unchanged.
 //
 // The package must not import an engine's driver: every engine-specific
 // byte lives behind the Adapter.

@@ -114,34 +114,11 @@ func (c *Core) Describe(ctx context.Context, q warehouse.CohortQuery) (*warehous
 // query and eachQuery are QueryRow and Each for queries over the
 // analyst's SQL, whose errors may be the study's fault.
 func (c *Core) query(ctx context.Context, text string, args []any, dest ...any) (bool, error) {
-	found := false
-	err := c.eachQuery(ctx, text, args, dest, func() error {
-		found = true
-		return errStop
-	})
-	return found, err
+	return c.first(ctx, c.queryErr, text, args, dest)
 }
 
 func (c *Core) eachQuery(ctx context.Context, text string, args, dest []any, fn func() error) error {
-	rows, err := c.A.Query(ctx, text, args...)
-	if err != nil {
-		return c.queryErr(err)
-	}
-	defer rows.Close()
-	for rows.Next() {
-		if err := rows.Scan(dest...); err != nil {
-			return c.err(err)
-		}
-		if err := fn(); err == errStop {
-			return nil
-		} else if err != nil {
-			return err
-		}
-	}
-	if err := rows.Err(); err != nil {
-		return c.queryErr(err)
-	}
-	return nil
+	return c.each(ctx, c.queryErr, text, args, dest, fn)
 }
 
 // Moments implements warehouse.InWarehouse with warehouse.MomentsSQL.
@@ -194,14 +171,13 @@ func (c *Core) ScoreInto(ctx context.Context, out warehouse.Output, runID string
 	if err != nil {
 		return err
 	}
-	stmts, args, err := warehouse.ScoreInsertSQL(ct, q.SQL, d, coef, sup, schemes, c.D.Inlines)
+	stmts, err := warehouse.ScoreInsertSQL(ct, runID, q.SQL, d, coef, sup, schemes, c.D.Inlines)
 	if err != nil {
 		return err
 	}
-	for i, s := range stmts {
-		args[i][0] = runID
-		if _, err := c.A.Exec(ctx, s, args[i]...); err != nil {
-			return fmt.Errorf("score into %s: %w", strings.Fields(s)[2], c.queryErr(err))
+	for _, s := range stmts {
+		if _, err := c.A.Exec(ctx, s.SQL, s.Args...); err != nil {
+			return fmt.Errorf("score into %s: %w", strings.Fields(s.SQL)[2], c.queryErr(err))
 		}
 	}
 	return nil

@@ -164,6 +164,31 @@ func StatusCheckExpr() string {
 	return "CHECK (status IN (" + strings.Join(lits, ", ") + "))"
 }
 
+// RebuildRuns brings the runs table's status check up to date on an
+// engine that cannot alter or drop a constraint: in the open
+// transaction, a new table is created under another name, filled, the
+// old one dropped and the new one renamed (views bind by name when
+// queried).
+func (c *Core) RebuildRuns(ctx context.Context, o *warehouse.Objects) error {
+	tmp := o.C.Runs
+	tmp.Name += "_migrating"
+	if err := c.EnsureTable(ctx, o.C.Schema, &tmp, true); err != nil {
+		return err
+	}
+	cols := make([]string, len(o.C.Runs.Columns))
+	for i, col := range o.C.Runs.Columns {
+		cols[i] = warehouse.Quote(col.Name)
+	}
+	qtmp, list := warehouse.QuoteQualified(o.C.Schema, tmp.Name), strings.Join(cols, ", ")
+	for _, stmt := range []string{"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
+		"DROP TABLE " + o.Runs, "ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name)} {
+		if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the abandoned status", stmt); err != nil {
+			return err
+		}
+	}
+	return nil
+}
+
 // tableColumns returns name → type of an existing table's columns; empty
 // when the table does not exist.
 func (c *Core) tableColumns(ctx context.Context, schema, table string) (map[string]string, error) {

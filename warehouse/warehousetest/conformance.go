@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"counterpart/warehouse"
+	"counterpart/warehouse/sqlcore"
 )
 
 // Engine adapts one engine to the suite.
@@ -19,25 +20,47 @@ type Engine struct {
 	// Schema is an output schema that exists in a new database ("main"
 	// for DuckDB, "public" for Postgres).
 	Schema string
-	// Open returns a warehouse on a new, empty database; the engine's
+	// Open returns a warehouse on a new, empty database, built on
+	// sqlcore (fixtures and faults go through its Core); the engine's
 	// adapter closes it when the test ends.
 	Open func(t *testing.T) warehouse.Warehouse
-	// Exec runs fixture statements (CREATE TABLE, INSERT) on w's database
-	// outside any run.
-	Exec func(t *testing.T, w warehouse.Warehouse, query string)
 	// Query runs a read query on w's database and returns every row;
-	// NULL is nil.
-	Query func(t *testing.T, w warehouse.Warehouse, query string) [][]any
+	// NULL is nil, numbers are Go numbers.
+	Query func(t testing.TB, w warehouse.Warehouse, query string) [][]any
 	// Other returns a handle on the same database in another session, for
 	// the lock test. It may return w itself when the engine's lock does not
 	// depend on the session.
 	Other func(t *testing.T, w warehouse.Warehouse) warehouse.Warehouse
-	// Fault makes w's Publish call f at each of its steps; an error from f
-	// fails the publish there. Fault(w, nil) removes the hook. FaultSteps
-	// lists the steps to try, at least one of them after rows were written.
-	Fault      func(w warehouse.Warehouse, f func(step string) error)
-	FaultSteps []string
 }
+
+// core is the sqlcore.Core behind a warehouse of the suite.
+func core(t testing.TB, w warehouse.Warehouse) *sqlcore.Core {
+	t.Helper()
+	c, ok := w.(interface{ SQLCore() *sqlcore.Core })
+	if !ok {
+		t.Fatalf("%T is not built on sqlcore.Core", w)
+	}
+	return c.SQLCore()
+}
+
+// Exec runs fixture statements (CREATE TABLE, INSERT; several may be
+// given) on w's session outside any run.
+func Exec(t testing.TB, w warehouse.Warehouse, query string) {
+	t.Helper()
+	if _, err := core(t, w).A.Exec(context.Background(), query); err != nil {
+		t.Fatalf("%s: %v", query, err)
+	}
+}
+
+// Exec is the package's Exec, for the suite's checks.
+func (e Engine) Exec(t testing.TB, w warehouse.Warehouse, query string) {
+	t.Helper()
+	Exec(t, w, query)
+}
+
+// faultSteps are the steps of Publish the rollback check fails at, most
+// of them after rows were written.
+var faultSteps = []string{"runs", "cohort", "scores", "matches", "weights", "effects", "retention", "views", "commit"}
 
 // RunConformance runs every check of the suite against e.
 func RunConformance(t *testing.T, e Engine) {
@@ -45,6 +68,7 @@ func RunConformance(t *testing.T, e Engine) {
 	t.Run("ReadErrors", func(t *testing.T) { testReadErrors(t, e) })
 	t.Run("RefuseWrites", func(t *testing.T) { testRefuseWrites(t, e) })
 	t.Run("Publish", func(t *testing.T) { testPublish(t, e) })
+	t.Run("PublishChecks", func(t *testing.T) { testPublishChecks(t, e) })
 	t.Run("Rollback", func(t *testing.T) { testRollback(t, e) })
 	t.Run("Retention", func(t *testing.T) { testRetention(t, e) })
 	t.Run("Evolve", func(t *testing.T) { testEvolve(t, e) })
@@ -241,7 +265,7 @@ func testReadErrors(t *testing.T, e Engine) {
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			_, err := w.ReadCohort(ctx, tt.q)
-			checkBadInput(t, err, tt.want...)
+			CheckBadInput(t, err, tt.want...)
 		})
 	}
 	// After all those failures the connection still reads.
@@ -250,9 +274,9 @@ func testReadErrors(t *testing.T, e Engine) {
 	}
 }
 
-// checkBadInput fails unless err wraps ErrBadInput, is one line and
+// CheckBadInput fails unless err wraps ErrBadInput, is one line and
 // contains every want.
-func checkBadInput(t *testing.T, err error, want ...string) {
+func CheckBadInput(t *testing.T, err error, want ...string) {
 	t.Helper()
 	if err == nil {
 		t.Fatalf("no error, want one mentioning %q", want)
@@ -291,7 +315,7 @@ func testRefuseWrites(t *testing.T, e Engine) {
 	before := fmt.Sprint(e.Query(t, w, state))
 	for _, stmt := range WriteStatements {
 		_, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: stmt, Unit: "id", Treatment: "t_bool"})
-		checkBadInput(t, err, "cohort.sql")
+		CheckBadInput(t, err, "cohort.sql")
 		if after := fmt.Sprint(e.Query(t, w, state)); after != before {
 			t.Fatalf("after %q src changed: %s, was %s", stmt, after, before)
 		}
@@ -561,7 +585,7 @@ func testPublish(t *testing.T, e Engine) {
 
 func testRollback(t *testing.T, e Engine) {
 	injected := errors.New("injected failure")
-	steps := append([]string{"cancelled context"}, e.FaultSteps...)
+	steps := append([]string{"cancelled context"}, faultSteps...)
 	for _, step := range steps {
 		t.Run(step, func(t *testing.T) {
 			w := e.Open(t)
@@ -581,17 +605,15 @@ func testRollback(t *testing.T, e Engine) {
 				cancel()
 				ctx = cctx
 			} else {
-				e.Fault(w, func(s string) error {
+				core(t, w).Fault = func(s string) error {
 					if s == step {
 						return injected
 					}
 					return nil
-				})
+				}
 			}
 			err := w.Publish(ctx, out, p2)
-			if e.Fault != nil {
-				e.Fault(w, nil)
-			}
+			core(t, w).Fault = nil
 			if err == nil {
 				t.Fatal("publish succeeded")
 			}
@@ -675,7 +697,7 @@ func testEvolve(t *testing.T, e Engine) {
 	out3 := output(e, c2, handSchemes, 0)
 	out3.Covariates[0].Kind = warehouse.Categorical // age: DOUBLE → text
 	err := w.StartRun(ctx, out3, warehouse.RunRecord{RunID: "r3", Study: "st", StartedAt: t0.Add(2 * time.Hour)})
-	checkBadInput(t, err, "age", "st_cohort")
+	CheckBadInput(t, err, "age", "st_cohort")
 	if s := status(t, e, w, "r3"); s != "0 rows" {
 		t.Errorf("refused StartRun left a runs row: %s", s)
 	}
@@ -732,7 +754,7 @@ func testBadOutput(t *testing.T, e Engine) {
 		t.Run(tt.name, func(t *testing.T) {
 			out := output(e, c, handSchemes, 0)
 			tt.edit(&out)
-			checkBadInput(t, w.StartRun(ctx, out, rec), tt.want...)
+			CheckBadInput(t, w.StartRun(ctx, out, rec), tt.want...)
 		})
 	}
 }

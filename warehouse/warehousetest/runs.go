@@ -176,7 +176,7 @@ func testRunQueries(t *testing.T, e Engine) {
 		}
 	}
 	_, err = w.Run(ctx, out, "no-such-run")
-	checkBadInput(t, err, `"no-such-run"`, "st_runs")
+	CheckBadInput(t, err, `"no-such-run"`, "st_runs")
 
 	latest, ok, err := w.LatestSucceeded(ctx, out)
 	if err != nil || !ok || latest.RunID != "r2" {
@@ -251,7 +251,7 @@ func testPriorSets(t *testing.T, e Engine) {
 		t.Errorf("prior sets\n got %+v\nwant %+v", ps, want)
 	}
 	_, err = w.PriorSets(ctx, out, "r9")
-	checkBadInput(t, err, `"r9"`)
+	CheckBadInput(t, err, `"r9"`)
 
 	// Text ids stay text.
 	tc := textCohort(c)
@@ -381,7 +381,7 @@ func testDiffRuns(t *testing.T, e Engine) {
 		}
 	}
 	_, err := w.DiffRuns(ctx, out, "a", "zz")
-	checkBadInput(t, err, `"zz"`)
+	CheckBadInput(t, err, `"zz"`)
 }
 
 // testDiffRunsRandom: on random matchings of a larger cohort (pairs, 1:k,

@@ -1,4 +1,4 @@
-package postgres
+package engines
 
 import (
 	"context"
@@ -10,10 +10,11 @@ import (
 	"testing"
 	"time"
 
-	"github.com/jackc/pgx/v5"
+	"github.com/jackc/pgx/v5/pgtype"
 
 	"counterpart/warehouse"
-	"counterpart/warehouse/duckdb"
+	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/warehousetest"
 )
 
 // crossData is one table loaded into both engines from the same Go values
@@ -107,34 +108,27 @@ var crossQueries = []string{
 // because the engines add in different orders.
 func TestCrossEngine(t *testing.T) {
 	ctx := context.Background()
-	pg := openScratch(t)
+	dsn := pgtest.NewDatabase(t)
 	d := makeCrossData(400)
-
-	// DuckDB.
 	path := filepath.Join(t.TempDir(), "x.duckdb")
-	err := duckdb.LoadTable(ctx, path, "main", "cross_src", "", []duckdb.LoadColumn{
+	cols := []warehouse.LoadColumn{
 		{Name: "id", Type: "BIGINT", Values: d.id}, {Name: "treat", Type: "BOOLEAN", Values: d.treat},
-		{Name: "age", Type: "DOUBLE", Values: d.age}, {Name: "bmi", Type: "DOUBLE", Values: d.bmi},
+		{Name: "age", Type: "DOUBLE PRECISION", Values: d.age}, {Name: "bmi", Type: "DOUBLE PRECISION", Values: d.bmi},
 		{Name: "region", Type: "VARCHAR", Values: d.region}, {Name: "smoker", Type: "BOOLEAN", Values: d.smoker},
-		{Name: "y", Type: "DOUBLE", Values: d.y},
-	})
-	if err != nil {
-		t.Fatal(err)
+		{Name: "y", Type: "DOUBLE PRECISION", Values: d.y},
 	}
-	// Postgres.
-	execSQL(t, pg, "CREATE TABLE cross_src (id bigint, treat boolean, age double precision, bmi double precision, region text, smoker boolean, y double precision)")
-	rows := make([][]any, len(d.id))
-	for i := range rows {
-		rows[i] = []any{d.id[i], d.treat[i], d.age[i], d.bmi[i], d.region[i], d.smoker[i], d.y[i]}
+	open := func(engine, dsn, schema string) warehouse.Warehouse {
+		if err := warehouse.LoadTable(ctx, engine, dsn, schema, "cross_src", "", cols); err != nil {
+			t.Fatal(err)
+		}
+		w, err := warehouse.Open(ctx, engine, dsn, warehouse.OpenOptions{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		return w
 	}
-	if _, err := pg.conn.CopyFrom(ctx, pgx.Identifier{"cross_src"}, []string{"id", "treat", "age", "bmi", "region", "smoker", "y"}, pgx.CopyFromRows(rows)); err != nil {
-		t.Fatal(err)
-	}
-
-	dw, err := duckdb.Open(ctx, path)
-	if err != nil {
-		t.Fatal(err)
-	}
+	dw, pg := open("duckdb", path, "main"), open("postgres", dsn, "public")
+	defer pg.Close()
 	cd, err := dw.ReadCohort(ctx, crossQuery)
 	if err != nil {
 		t.Fatal(err)
@@ -172,8 +166,8 @@ func TestCrossEngine(t *testing.T) {
 	defer db.Close()
 
 	for _, q := range crossQueries {
-		want := duckRows(t, db, q)
-		got := queryRows(t, pg, q)
+		want := warehousetest.SQLRows(t, db, q)
+		got := pgtest.Query(t, dsn, q)
 		if len(got) != len(want) || len(got) == 0 {
 			t.Fatalf("%s: postgres %d rows, duckdb %d", q, len(got), len(want))
 		}
@@ -210,29 +204,9 @@ func asFloat(v any) (float64, bool) {
 		return float64(x), true
 	case int32:
 		return float64(x), true
+	case pgtype.Numeric:
+		f, err := x.Float64Value()
+		return f.Float64, err == nil
 	}
 	return 0, false
-}
-
-func duckRows(t *testing.T, db *sql.DB, query string) [][]any {
-	t.Helper()
-	rows, err := db.Query(query)
-	if err != nil {
-		t.Fatalf("duckdb %s: %v", query, err)
-	}
-	defer rows.Close()
-	cols, _ := rows.Columns()
-	var out [][]any
-	for rows.Next() {
-		vals := make([]any, len(cols))
-		ptrs := make([]any, len(cols))
-		for i := range vals {
-			ptrs[i] = &vals[i]
-		}
-		if err := rows.Scan(ptrs...); err != nil {
-			t.Fatal(err)
-		}
-		out = append(out, vals)
-	}
-	return out
 }

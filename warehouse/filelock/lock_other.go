@@ -1,6 +1,6 @@
 //go:build !unix
 
-package duckdb
+package filelock
 
 import (
 	"errors"

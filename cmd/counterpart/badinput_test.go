@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"counterpart/match/demo"
 	"crypto/sha256"
 	"encoding/hex"
 	"io"
@@ -10,8 +11,6 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
-
-	"counterpart/match/study"
 )
 
 // baseStudy is a valid study over the demo table; each bad-input case
@@ -84,7 +83,7 @@ func badCases() []badCase {
 func TestBadInputs(t *testing.T) {
 	dir := t.TempDir()
 	ctx := context.Background()
-	path, _, err := study.WriteDemo(ctx, dir, 600, 11)
+	path, _, err := demo.Write(ctx, dir, 600, 11)
 	if err != nil {
 		t.Fatal(err)
 	}

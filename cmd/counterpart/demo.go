@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"counterpart/match/demo"
 	"fmt"
 	"io"
 	"sort"
@@ -12,7 +13,7 @@ import (
 // runDemo writes the synthetic warehouse, runs its study and sets the
 // estimates beside the planted truth.
 func runDemo(ctx context.Context, dir string, units int, seed uint64, stdout, stderr io.Writer) int {
-	path, data, err := study.WriteDemo(ctx, dir, units, seed)
+	path, data, err := demo.Write(ctx, dir, units, seed)
 	if err != nil {
 		fmt.Fprintln(stderr, "counterpart: "+oneLine(err.Error()))
 		return exitRuntime

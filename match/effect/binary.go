@@ -11,7 +11,17 @@ const (
 	ContrastDifference = "difference"
 	ContrastRiskRatio  = "risk_ratio"
 	ContrastOddsRatio  = "odds_ratio"
+	// Time-to-event and rate outcomes (match/survival).
+	ContrastHazardRatio        = "hazard_ratio"
+	ContrastSurvivalDifference = "survival_difference"
+	ContrastRMSTDifference     = "rmst_difference"
+	ContrastRateRatio          = "rate_ratio"
+	ContrastRateDifference     = "rate_difference"
 )
+
+// RatePer is the exposure a rate difference is expressed per: events per
+// 1,000 exposure units (member-months, days).
+const RatePer = 1000
 
 // Method names of the ratio contrasts.
 const (

@@ -3,6 +3,7 @@ package report
 import (
 	"bytes"
 	"context"
+	"counterpart/match/demo"
 	"database/sql"
 	"encoding/xml"
 	"errors"
@@ -32,13 +33,13 @@ const demoUnits = 1500
 var (
 	demoOnce sync.Once
 	demoSum  *study.Summary
-	demoData *study.DemoData
+	demoData *demo.Data
 	demoErr  error
 )
 
 // demoSummary runs the demo study once per test binary and returns its
 // summary with diagnostics.
-func demoSummary(t *testing.T) (*study.Summary, *study.DemoData) {
+func demoSummary(t *testing.T) (*study.Summary, *demo.Data) {
 	t.Helper()
 	demoOnce.Do(func() {
 		dir, err := os.MkdirTemp("", "counterpart-report-")
@@ -55,9 +56,9 @@ func demoSummary(t *testing.T) (*study.Summary, *study.DemoData) {
 	return demoSum, demoData
 }
 
-func runDemo(dir string) (*study.Summary, *study.DemoData, error) {
+func runDemo(dir string) (*study.Summary, *demo.Data, error) {
 	ctx := context.Background()
-	path, data, err := study.WriteDemo(ctx, dir, demoUnits, 11)
+	path, data, err := demo.Write(ctx, dir, demoUnits, 11)
 	if err != nil {
 		return nil, nil, err
 	}
@@ -90,7 +91,7 @@ func runDemo(dir string) (*study.Summary, *study.DemoData, error) {
 
 // diagnosticsFromWarehouse reads the run's scores, weights and matches
 // back and calls balance.Diagnose with the demo's balance variables.
-func diagnosticsFromWarehouse(ctx context.Context, db, runID string, data *study.DemoData) (study.Diagnostics, error) {
+func diagnosticsFromWarehouse(ctx context.Context, db, runID string, data *demo.Data) (study.Diagnostics, error) {
 	conn, err := sql.Open("duckdb", db+"?access_mode=read_only")
 	if err != nil {
 		return study.Diagnostics{}, err

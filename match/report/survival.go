@@ -5,6 +5,7 @@ import (
 	"math"
 	"strings"
 
+	"counterpart/match/effect"
 	"counterpart/match/study"
 )
 
@@ -60,7 +61,7 @@ func (p *page) survival() {
 	}
 	p.f("<div class=\"wide\"><table>\n<tr><th>outcome</th><th>adjustment</th><th class=\"n\">hazard ratio</th><th class=\"n\">PH check χ² (1 df)</th><th class=\"n\">p</th><th>transform</th></tr>\n")
 	for _, e := range s.Effects {
-		if e.Contrast != study.ContrastHazardRatio || e.PH == nil {
+		if e.Contrast != effect.ContrastHazardRatio || e.PH == nil {
 			continue
 		}
 		p.f("<tr><td>%s</td><td>%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td><td class=\"n\">%s</td><td>%s</td></tr>\n",

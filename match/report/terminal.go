@@ -6,6 +6,7 @@ import (
 	"math"
 	"strings"
 
+	"counterpart/match/effect"
 	"counterpart/match/study"
 )
 
@@ -239,25 +240,25 @@ func terminalEvents(p printer, s *study.Summary, outcomes []string) {
 				head = "*"
 			}
 			switch e.Contrast {
-			case study.ContrastHazardRatio:
+			case effect.ContrastHazardRatio:
 				ph := ""
 				if e.PH != nil {
 					ph = "PH check p " + optional(float64(e.PH.P), "%.2f")
 				}
 				p.line(" %s%-13s %-9s hazard ratio %-24s %7s  %s", head, e.Adjustment, e.Estimand, interval(e, "%.3f"), optional(float64(e.EValue), "%.2f"), ph)
-			case study.ContrastSurvivalDifference:
+			case effect.ContrastSurvivalDifference:
 				rmst := ""
 				for _, r := range rows {
-					if r.Adjustment == e.Adjustment && r.Contrast == study.ContrastRMSTDifference && r.Horizon != nil && *r.Horizon == *e.Horizon {
+					if r.Adjustment == e.Adjustment && r.Contrast == effect.ContrastRMSTDifference && r.Horizon != nil && *r.Horizon == *e.Horizon {
 						rmst = "restricted mean " + fmt.Sprintf("%s [%s, %s]", signed(float64(r.Estimate)), signed(float64(r.CILow)), signed(float64(r.CIHigh)))
 					}
 				}
 				p.line("   %-22s at %-7g survival %s  %s", "", float64(*e.Horizon),
 					fmt.Sprintf("%s [%s, %s]", signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh))), rmst)
-			case study.ContrastRateRatio:
+			case effect.ContrastRateRatio:
 				p.line(" %s%-13s %-9s rate ratio   %-24s %7s", head, e.Adjustment, e.Estimand, interval(e, "%.3f"), optional(float64(e.EValue), "%.2f"))
-			case study.ContrastRateDifference:
-				p.line("   %-22s per %s exposure units %s [%s, %s]", "", thousands(study.RatePer),
+			case effect.ContrastRateDifference:
+				p.line("   %-22s per %s exposure units %s [%s, %s]", "", thousands(effect.RatePer),
 					signed(float64(e.Estimate)), signed(float64(e.CILow)), signed(float64(e.CIHigh)))
 			}
 		}

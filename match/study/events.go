@@ -10,19 +10,6 @@ import (
 	"counterpart/warehouse"
 )
 
-// Contrast names of the time-to-event and rate outcomes' effects rows.
-const (
-	ContrastHazardRatio        = "hazard_ratio"
-	ContrastSurvivalDifference = "survival_difference"
-	ContrastRMSTDifference     = "rmst_difference"
-	ContrastRateRatio          = "rate_ratio"
-	ContrastRateDifference     = "rate_difference"
-)
-
-// RatePer is the exposure the rate difference is expressed per: events
-// per 1,000 exposure units (member-months, days).
-const RatePer = 1000
-
 // curveGrid is the number of equally spaced times at which the summary
 // keeps each survival curve: enough for a smooth picture, and a grid (not
 // the event times) so the summary shows no individual's follow-up.
@@ -125,7 +112,7 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 			case a.w != nil:
 				hr, method = cox.Robust, "weighted Cox PH (Efron ties), robust sandwich SE (Lin & Wei 1989)"
 			}
-			r := eventRow(spec.Name, a, ContrastHazardRatio, method, nil, cox.HR, hr, nT, nC)
+			r := eventRow(spec.Name, a, effect.ContrastHazardRatio, method, nil, cox.HR, hr, nT, nC)
 			if e, ok := hazardEValue(cox.HR, hr, prevalence); ok {
 				r.EValue, r.EValueCI = Num(e[0]), Num(e[1])
 			}
@@ -147,9 +134,9 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 					}
 				}
 				sum.Effects = append(sum.Effects,
-					eventRow(spec.Name, a, ContrastSurvivalDifference, what, &hz, h.SurvDiff.Value, pick(h.SurvDiff), nT, nC),
+					eventRow(spec.Name, a, effect.ContrastSurvivalDifference, what, &hz, h.SurvDiff.Value, pick(h.SurvDiff), nT, nC),
 					eventRow(spec.Name, a, effect.ContrastRiskRatio, what, &hz, h.RiskRatio.Value, pick(h.RiskRatio), nT, nC),
-					eventRow(spec.Name, a, ContrastRMSTDifference, what, &hz, h.RMSTDiff.Value, pick(h.RMSTDiff), nT, nC))
+					eventRow(spec.Name, a, effect.ContrastRMSTDifference, what, &hz, h.RMSTDiff.Value, pick(h.RMSTDiff), nT, nC))
 			}
 			sum.Survival = append(sum.Survival, curves(spec, a.name, km, spec.Horizons[len(spec.Horizons)-1], rows.dependent || a.w != nil)...)
 			steps = append(steps, stepsOf(spec.Name, a.name, km)...)
@@ -167,7 +154,7 @@ func estimateRates(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matchedR
 		for _, a := range adjs {
 			rows := adjustmentRows(c.Treated, a, mr)
 			d := survival.RateData{Count: rows.pick(count), Exposure: rows.pick(exposure), Treated: rows.z, Weight: rows.w, Cluster: rows.cluster}
-			fit, err := survival.Rates(d, RatePer)
+			fit, err := survival.Rates(d, effect.RatePer)
 			if err != nil {
 				return badInput(fmt.Sprintf("outcome %s (%s): columns %s, %s", spec.Name, a.name, spec.Count, spec.Exposure), err)
 			}
@@ -178,12 +165,12 @@ func estimateRates(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matchedR
 				rr, rd = fit.Cluster, fit.DiffCluster
 				method = "weighted Poisson with log-exposure offset, cluster-robust SE by matched set"
 			}
-			r := eventRow(spec.Name, a, ContrastRateRatio, method, nil, fit.RateRatio, rr, nT, nC)
+			r := eventRow(spec.Name, a, effect.ContrastRateRatio, method, nil, fit.RateRatio, rr, nT, nC)
 			if e, ok := rateEValue(fit.RateRatio, rr); ok {
 				r.EValue, r.EValueCI = Num(e[0]), Num(e[1])
 			}
 			sum.Effects = append(sum.Effects, r,
-				eventRow(spec.Name, a, ContrastRateDifference, fmt.Sprintf("weighted rate difference per %d exposure units, sandwich SE", RatePer), nil, fit.Diff, rd, nT, nC))
+				eventRow(spec.Name, a, effect.ContrastRateDifference, fmt.Sprintf("weighted rate difference per %d exposure units, sandwich SE", effect.RatePer), nil, fit.Diff, rd, nT, nC))
 		}
 	}
 	return nil

@@ -1,6 +1,7 @@
 package study
 
 import (
+	"counterpart/match/effect"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -95,9 +96,9 @@ func TestCoverageTimeToEvent(t *testing.T) {
 		for _, e := range sum.Effects {
 			truth := 0.0
 			switch e.Contrast {
-			case ContrastHazardRatio, ContrastRateRatio:
+			case effect.ContrastHazardRatio, effect.ContrastRateRatio:
 				truth = 1
-			case ContrastSurvivalDifference:
+			case effect.ContrastSurvivalDifference:
 				if float64(*e.Horizon) != 120 {
 					continue
 				}
@@ -111,7 +112,7 @@ func TestCoverageTimeToEvent(t *testing.T) {
 			}
 		}
 	}
-	for _, contrast := range []string{ContrastHazardRatio, ContrastSurvivalDifference, ContrastRateRatio} {
+	for _, contrast := range []string{effect.ContrastHazardRatio, effect.ContrastSurvivalDifference, effect.ContrastRateRatio} {
 		for _, adj := range []string{"unadjusted", "matched", "att", "ate", "overlap"} {
 			key := contrast + " " + adj
 			if seen[key] != reps {
@@ -124,7 +125,7 @@ func TestCoverageTimeToEvent(t *testing.T) {
 			switch {
 			case adj == "unadjusted":
 				lo, hi = 0, 0.5
-			case contrast == ContrastRateRatio:
+			case contrast == effect.ContrastRateRatio:
 				lo, hi = 0.90, 0.985
 			case adj == "ate" || adj == "overlap":
 				hi = 0.985
@@ -158,7 +159,7 @@ func TestEventRowsShape(t *testing.T) {
 			h = fmt.Sprint(float64(*e.Horizon))
 		}
 		count[e.Outcome+" "+e.Contrast+" "+h]++
-		if e.Contrast == ContrastHazardRatio && (e.PH == nil || !(float64(e.PH.P) >= 0)) {
+		if e.Contrast == effect.ContrastHazardRatio && (e.PH == nil || !(float64(e.PH.P) >= 0)) {
 			t.Errorf("%s: hazard-ratio row without a PH check", e.Adjustment)
 		}
 	}

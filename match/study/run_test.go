@@ -2,6 +2,7 @@ package study
 
 import (
 	"context"
+	"counterpart/match/demo"
 	"database/sql"
 	"fmt"
 	"math"
@@ -16,10 +17,10 @@ import (
 )
 
 // runDemo writes a demo warehouse of n members and runs its study.
-func runDemo(t *testing.T, dir string, n int, edit func(*Spec)) (*Spec, *Summary, *DemoData, error) {
+func runDemo(t *testing.T, dir string, n int, edit func(*Spec)) (*Spec, *Summary, *demo.Data, error) {
 	t.Helper()
 	ctx := context.Background()
-	path, data, err := WriteDemo(ctx, dir, n, 3)
+	path, data, err := demo.Write(ctx, dir, n, 3)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -107,8 +107,8 @@ type ScoreSpec struct {
 	// FitIn says where the model is fitted and the per-unit rows are
 	// computed: "memory" (the default) reads the cohort into the
 	// process; "warehouse" fits with one aggregate query per Newton step
-	// and writes scores, weights and the cohort snapshot with INSERT …
-	// SELECT, so the covariate matrix never leaves the engine (the engine
+	// and has the engine write scores, weights and the cohort snapshot
+	// itself, so the covariate matrix never leaves the engine (the engine
 	// must implement warehouse.InWarehouse).
 	FitIn string `yaml:"fit_in" json:"fit_in"`
 }

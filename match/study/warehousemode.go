@@ -31,8 +31,8 @@ const ScaleGoMemoryLimit = 160 << 20
 //   - match: MatchInput brings id, treatment, stratum, logit and support
 //     flag per unit, and the existing greedy or optimal code matches in
 //     memory on those slices;
-//   - publish, one transaction: the runs row, the cohort snapshot by
-//     INSERT … SELECT from cohort.sql, scores and weights by ScoreInto,
+//   - publish, one transaction: the runs row, the cohort snapshot copied
+//     by the engine from cohort.sql, scores and weights (WriteScores),
 //     the matches from memory; then, inside the same transaction, one
 //     aggregate pass over the snapshot just written gives the balance (the
 //     balance_history view's definitions), the effective sample sizes and

@@ -1,7 +1,11 @@
-package study
+// Package demo is the demo scenario (ours, synthetic): a fictional
+// health plan's heart-failure members, a home-coaching programme and the
+// effects planted in the data, written as a warehouse and a study file.
+package demo
 
 import (
 	"context"
+	"counterpart/match/effect"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -17,32 +21,32 @@ import (
 // also readmit more and cost more, so the naive comparison makes coaching
 // look harmful. The generator plants a known effect on both outcomes.
 const (
-	// DemoCostEffect is the planted change in 90-day cost for every
+	// CostEffect is the planted change in 90-day cost for every
 	// coached member (currency units).
-	DemoCostEffect = -1500.0
-	// DemoReadmitShift is the planted change in each coached member's
+	CostEffect = -1500.0
+	// ReadmitShift is the planted change in each coached member's
 	// 30-day readmission probability (before clipping to [0.01, 0.99]).
-	DemoReadmitShift = -0.06
-	// DemoReadmissionHR is the planted hazard ratio of coaching on the
+	ReadmitShift = -0.06
+	// ReadmissionHR is the planted hazard ratio of coaching on the
 	// time to first readmission over a year of follow-up.
-	DemoReadmissionHR = 0.75
-	// DemoERRateRatio is the planted ratio of emergency-visit rates.
-	DemoERRateRatio = 0.8
-	// DemoHorizon is the follow-up day at which the demo compares risks.
-	DemoHorizon = 180.0
+	ReadmissionHR = 0.75
+	// ERRateRatio is the planted ratio of emergency-visit rates.
+	ERRateRatio = 0.8
+	// Horizon is the follow-up day at which the demo compares risks.
+	Horizon = 180.0
 )
 
-// DemoTruth is one planted effect among the coached members, for the
+// Truth is one planted effect among the coached members, for the
 // demo's check of its estimates: the contrast it is read from and, for a
 // time-to-event outcome, the horizon.
-type DemoTruth struct {
+type Truth struct {
 	Outcome, Contrast string
 	Horizon           float64
 	Value             float64
 }
 
-// DemoData is the synthetic cohort plus the truth it was built from.
-type DemoData struct {
+// Data is the synthetic cohort plus the truth it was built from.
+type Data struct {
 	MemberID    []int64
 	Age         []int64
 	Sex         []string
@@ -65,17 +69,17 @@ type DemoData struct {
 	// the mean over coached members of E[Y(1) − Y(0)].
 	TrueATT map[string]float64
 	// TrueEvents holds the planted effects of the time-to-event and rate
-	// outcomes: the survival difference at DemoHorizon among the coached
+	// outcomes: the survival difference at Horizon among the coached
 	// (exact, from the hazards) and the emergency-visit rate ratio.
-	TrueEvents []DemoTruth
+	TrueEvents []Truth
 }
 
 var demoRegions = []string{"coast", "hills", "metro", "plains", "valley"}
 
-// GenerateDemo draws n synthetic members with a fixed seed.
-func GenerateDemo(n int, seed uint64) *DemoData {
+// Generate draws n synthetic members with a fixed seed.
+func Generate(n int, seed uint64) *Data {
 	r := rand.New(rand.NewPCG(seed, 0x5eed))
-	d := &DemoData{TrueATT: map[string]float64{}}
+	d := &Data{TrueATT: map[string]float64{}}
 	expit := func(x float64) float64 { return 1 / (1 + math.Exp(-x)) }
 	poisson := func(mean float64) int64 {
 		l, k, p := math.Exp(-mean), int64(0), 1.0
@@ -118,7 +122,7 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 		coached := r.Float64() < expit(lp)
 
 		p0 := expit(-1.5 + 0.2*a + 0.38*(float64(prior)-1) + 0.12*(float64(charlson)-3) + 0.25*b2f(alone) + 0.3*b2f(ef))
-		p1 := math.Min(0.99, math.Max(0.01, p0+DemoReadmitShift))
+		p1 := math.Min(0.99, math.Max(0.01, p0+ReadmitShift))
 		u := r.Float64()
 		var readmit int64
 		p := p0
@@ -131,17 +135,17 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 		cost := 6000 + 2100*float64(prior) + 850*float64(charlson) + 400*a + 1400*b2f(alone) + 900*b2f(ef)
 		cost *= math.Exp(0.35*r.NormFloat64() - 0.35*0.35/2)
 		if coached {
-			cost += DemoCostEffect
+			cost += CostEffect
 			sumRD += p1 - p0
 			nCoached++
 		}
 		// Readmission hazard per day (exponential), confounded like the
-		// other outcomes; coaching multiplies it by DemoReadmissionHR.
+		// other outcomes; coaching multiplies it by ReadmissionHR.
 		haz := 0.0022 * math.Exp(0.25*a+0.3*(float64(prior)-1)+0.1*(float64(charlson)-3)+0.25*b2f(alone)+0.2*b2f(ef))
 		h := haz
 		if coached {
-			h *= DemoReadmissionHR
-			sumSurvDiff += math.Exp(-haz*DemoReadmissionHR*DemoHorizon) - math.Exp(-haz*DemoHorizon)
+			h *= ReadmissionHR
+			sumSurvDiff += math.Exp(-haz*ReadmissionHR*Horizon) - math.Exp(-haz*Horizon)
 		}
 		tEvent := r2.ExpFloat64() / h
 		tLeave := r2.ExpFloat64() / 0.0012 // leaving the plan, about a third a year
@@ -151,7 +155,7 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 		months := 1 + r2.IntN(12)
 		erRate := 0.12 * math.Exp(0.2*a+0.25*(float64(prior)-1)+0.08*(float64(charlson)-3)+0.2*b2f(alone))
 		if coached {
-			erRate *= DemoERRateRatio
+			erRate *= ERRateRatio
 		}
 		d.EnrolledMonths = append(d.EnrolledMonths, int64(months))
 		d.ERVisits = append(d.ERVisits, pois2(erRate*float64(months)))
@@ -167,14 +171,14 @@ func GenerateDemo(n int, seed uint64) *DemoData {
 		d.Readmit30d = append(d.Readmit30d, readmit)
 		d.Cost90d = append(d.Cost90d, math.Round(cost*100)/100)
 	}
-	d.TrueATT["cost_90d"] = DemoCostEffect
+	d.TrueATT["cost_90d"] = CostEffect
 	if nCoached > 0 {
 		d.TrueATT["readmit_30d"] = sumRD / nCoached
 		// Survival difference S₁ − S₀ at the horizon is minus the risk
 		// difference; the rate ratio holds in every population.
-		d.TrueEvents = []DemoTruth{
-			{Outcome: "readmission", Contrast: ContrastSurvivalDifference, Horizon: DemoHorizon, Value: sumSurvDiff / nCoached},
-			{Outcome: "er_visits", Contrast: ContrastRateRatio, Value: DemoERRateRatio},
+		d.TrueEvents = []Truth{
+			{Outcome: "readmission", Contrast: effect.ContrastSurvivalDifference, Horizon: Horizon, Value: sumSurvDiff / nCoached},
+			{Outcome: "er_visits", Contrast: effect.ContrastRateRatio, Value: ERRateRatio},
 		}
 	}
 	return d
@@ -187,9 +191,9 @@ func b2f(b bool) float64 {
 	return 0
 }
 
-// DemoStudy is the commented study file the demo writes beside its
+// StudyFile is the commented study file the demo writes beside its
 // warehouse.
-const DemoStudy = `# counterpart study: home heart-coaching (synthetic demo data)
+const StudyFile = `# counterpart study: home heart-coaching (synthetic demo data)
 #
 # Question: among members with heart failure who were coached at home,
 # what did coaching change in 30-day readmission and 90-day cost?
@@ -241,9 +245,9 @@ output:
   keep_runs: 30
 `
 
-// WriteDemo writes the synthetic warehouse and study file into dir and
+// Write writes the synthetic warehouse and study file into dir and
 // returns the study file's path and the data (for the truth).
-func WriteDemo(ctx context.Context, dir string, n int, seed uint64) (string, *DemoData, error) {
+func Write(ctx context.Context, dir string, n int, seed uint64) (string, *Data, error) {
 	if n < 200 {
 		return "", nil, fmt.Errorf("demo: --units %d is too small; use at least 200", n)
 	}
@@ -256,7 +260,7 @@ func WriteDemo(ctx context.Context, dir string, n int, seed uint64) (string, *De
 			return "", nil, fmt.Errorf("demo: remove old %s: %w", f, err)
 		}
 	}
-	d := GenerateDemo(n, seed)
+	d := Generate(n, seed)
 	err := warehouse.LoadTable(ctx, "duckdb", db, "marts", "hf_members",
 		"Synthetic heart-failure members of a fictional health plan (counterpart demo); no real people.",
 		[]warehouse.LoadColumn{
@@ -276,7 +280,7 @@ func WriteDemo(ctx context.Context, dir string, n int, seed uint64) (string, *De
 		return "", nil, fmt.Errorf("demo: %w", err)
 	}
 	path := filepath.Join(dir, "hf_coaching.yaml")
-	if err := os.WriteFile(path, []byte(DemoStudy), 0o644); err != nil {
+	if err := os.WriteFile(path, []byte(StudyFile), 0o644); err != nil {
 		return "", nil, fmt.Errorf("demo: %w", err)
 	}
 	return path, d, nil

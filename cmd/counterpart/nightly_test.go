@@ -3,6 +3,7 @@ package main
 import (
 	"bytes"
 	"context"
+	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"encoding/json"
 	"fmt"
@@ -113,25 +114,7 @@ func TestNightlyPostgres(t *testing.T) {
 
 func sqlRows(t *testing.T, db *sql.DB, query string) [][]any {
 	t.Helper()
-	rows, err := db.Query(query)
-	if err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-	defer rows.Close()
-	cols, _ := rows.Columns()
-	var out [][]any
-	for rows.Next() {
-		vals := make([]any, len(cols))
-		ptrs := make([]any, len(cols))
-		for i := range vals {
-			ptrs[i] = &vals[i]
-		}
-		if err := rows.Scan(ptrs...); err != nil {
-			t.Fatal(err)
-		}
-		out = append(out, vals)
-	}
-	return out
+	return warehousetest.SQLRows(t, db, query)
 }
 
 func num(v any) float64 {

@@ -173,20 +173,10 @@ func RatesGroups(g []RateGroup, per float64, clustered bool) (RateFit, error) {
 		units[a] += x.N
 		n += x.N
 	}
-	for a, name := range []string{"control", "treated"} {
-		if !(we[a] > 0) {
-			return RateFit{}, fmt.Errorf("rates: the %s arm has %d units with positive weight; both arms need exposure", name, units[a])
-		}
-		if !(wy[a] > 0) {
-			return RateFit{}, fmt.Errorf("rates: the %s arm has 0 weighted events over %d units; a rate ratio needs events in both arms", name, units[a])
-		}
+	f, err := armRates(wy, we, units, per)
+	if err != nil {
+		return RateFit{}, err
 	}
-	f := RateFit{Per: per}
-	for a := range f.Rate {
-		f.Rate[a] = wy[a] / we[a]
-	}
-	f.RateRatio = f.Rate[1] / f.Rate[0]
-	f.Diff = (f.Rate[1] - f.Rate[0]) * per
 	// HC0: Σ_rows w²(y − rE)² = Σw²y² − 2r·Σw²yE + r²·Σw²E², per arm.
 	var vL, vD float64
 	for _, x := range m {

@@ -105,20 +105,10 @@ func Rates(d RateData, per float64) (RateFit, error) {
 		we[a] += w * d.Exposure[i]
 		units[a]++
 	}
-	for a, name := range []string{"control", "treated"} {
-		if units[a] == 0 || !(we[a] > 0) {
-			return RateFit{}, fmt.Errorf("rates: the %s arm has %d units with positive weight; both arms need exposure", name, units[a])
-		}
-		if !(wy[a] > 0) {
-			return RateFit{}, fmt.Errorf("rates: the %s arm has 0 weighted events over %d units; a rate ratio needs events in both arms", name, units[a])
-		}
+	f, err := armRates(wy, we, units, per)
+	if err != nil {
+		return RateFit{}, err
 	}
-	f := RateFit{Per: per}
-	for a := range f.Rate {
-		f.Rate[a] = wy[a] / we[a]
-	}
-	f.RateRatio = f.Rate[1] / f.Rate[0]
-	f.Diff = (f.Rate[1] - f.Rate[0]) * per
 	uL, uD := make([]float64, n), make([]float64, n)
 	for i := 0; i < n; i++ {
 		a := b2i(d.Treated[i])
@@ -145,5 +135,25 @@ func Rates(d RateData, per float64) (RateFit, error) {
 		f.Cluster = interval(f.RateRatio, math.Sqrt(c*clusterVar(uL, of, k, order)), true)
 		f.DiffCluster = interval(f.Diff, math.Sqrt(c*clusterVar(uD, of, k, order)), false)
 	}
+	return f, nil
+}
+
+// armRates checks that both arms have exposure and events and returns
+// the fit's rates, rate ratio and rate difference (SEs to be filled).
+func armRates(wy, we [2]float64, units [2]int, per float64) (RateFit, error) {
+	for a, name := range []string{"control", "treated"} {
+		if units[a] == 0 || !(we[a] > 0) {
+			return RateFit{}, fmt.Errorf("rates: the %s arm has %d units with positive weight; both arms need exposure", name, units[a])
+		}
+		if !(wy[a] > 0) {
+			return RateFit{}, fmt.Errorf("rates: the %s arm has 0 weighted events over %d units; a rate ratio needs events in both arms", name, units[a])
+		}
+	}
+	f := RateFit{Per: per}
+	for a := range f.Rate {
+		f.Rate[a] = wy[a] / we[a]
+	}
+	f.RateRatio = f.Rate[1] / f.Rate[0]
+	f.Diff = (f.Rate[1] - f.Rate[0]) * per
 	return f, nil
 }

@@ -45,7 +45,11 @@ type Contract struct {
 	// Views over the latest succeeded run, and the balance views.
 	CurrentCohort, CurrentScores, CurrentMatches, CurrentWeights string
 	CurrentEffects                                               string
-	Balance, BalanceHistory                                      string
+	// Survival and CurrentSurvival exist for studies with time-to-event
+	// outcomes (Output.TimeToEvent); otherwise Survival.Name is "".
+	Survival                Table
+	CurrentSurvival         string
+	Balance, BalanceHistory string
 	// Analysis is the view of the latest succeeded run's units with their
 	// scores, matching weight and scheme weights (AnalysisColumns).
 	Analysis string
@@ -59,7 +63,11 @@ type Contract struct {
 
 // Tables lists the contract's tables in creation order.
 func (c *Contract) Tables() []*Table {
-	return []*Table{&c.Runs, &c.Cohort, &c.Scores, &c.Matches, &c.Weights, &c.Effects}
+	t := []*Table{&c.Runs, &c.Cohort, &c.Scores, &c.Matches, &c.Weights, &c.Effects}
+	if c.Survival.Name != "" {
+		t = append(t, &c.Survival)
+	}
+	return t
 }
 
 // NewContract validates every name in out (schema, prefix, columns, schemes)
@@ -84,6 +92,15 @@ func NewContract(out Output) (*Contract, error) {
 		{&c.CurrentMatches, "current_matches"}, {&c.CurrentWeights, "current_weights"},
 		{&c.CurrentEffects, "current_effects"},
 		{&c.Balance, "balance"}, {&c.BalanceHistory, "balance_history"}, {&c.Analysis, "analysis"},
+	}
+	if out.TimeToEvent {
+		names = append(names, struct {
+			p    *string
+			base string
+		}{&c.Survival.Name, "survival"}, struct {
+			p    *string
+			base string
+		}{&c.CurrentSurvival, "current_survival"})
 	}
 	for _, n := range names {
 		*n.p = out.Prefix + n.base
@@ -176,6 +193,21 @@ func NewContract(out Output) (*Contract, error) {
 		effDouble("e_value", "E-value of the estimate: the risk-ratio association an unmeasured confounder would need with treatment and outcome to explain it away (VanderWeele & Ding 2017)"),
 		effDouble("e_value_ci", "E-value of the confidence limit closer to no effect"),
 		effDouble("rosenbaum_gamma", "Rosenbaum sensitivity: the gamma at which the one-sided upper-bound p-value first exceeds 0.05 (matched pairs)"),
+		effDouble("horizon", "follow-up time a time-to-event row is read at (survival and risk contrasts, RMST)"),
+	}
+	if c.Survival.Name != "" {
+		c.Survival.Comment = "Weighted Kaplan–Meier steps of every run: one row per time-to-event outcome, adjustment, arm and follow-up time."
+		c.Survival.Columns = []Column{runID,
+			{"outcome", TypeText, "time-to-event outcome as named in the study"},
+			{"adjustment", TypeText, "unadjusted, matched, or a weighting scheme"},
+			{"treated", TypeBool, "arm: true for the treated"},
+			{"time", TypeDouble, "a follow-up time of the arm (an event or censoring time)"},
+			{"at_risk", TypeDouble, "weighted number at risk just before the time"},
+			{"events", TypeDouble, "weighted events at the time"},
+			{"censored", TypeDouble, "weighted censorings at the time"},
+			{"survival", TypeDouble, "Kaplan–Meier survival just after the time"},
+			{"std_error", TypeDouble, "Greenwood-type standard error of the survival"},
+		}
 	}
 
 	// The analysis view: the snapshot's columns (run_id, unit, treatment,
@@ -214,6 +246,8 @@ var Statuses = []string{StatusRunning, StatusSucceeded, StatusRejected, StatusFa
 type Objects struct {
 	C                                               *Contract
 	Runs, Cohort, Scores, Matches, Weights, Effects string
+	// Survival is "" without time-to-event outcomes.
+	Survival string
 }
 
 // NewObjects builds the contract of out and quotes its table names.
@@ -223,13 +257,20 @@ func NewObjects(out Output) (*Objects, error) {
 		return nil, err
 	}
 	q := func(name string) string { return QuoteQualified(c.Schema, name) }
-	return &Objects{C: c, Runs: q(c.Runs.Name), Cohort: q(c.Cohort.Name), Scores: q(c.Scores.Name),
-		Matches: q(c.Matches.Name), Weights: q(c.Weights.Name), Effects: q(c.Effects.Name)}, nil
+	o := &Objects{C: c, Runs: q(c.Runs.Name), Cohort: q(c.Cohort.Name), Scores: q(c.Scores.Name),
+		Matches: q(c.Matches.Name), Weights: q(c.Weights.Name), Effects: q(c.Effects.Name)}
+	if c.Survival.Name != "" {
+		o.Survival = q(c.Survival.Name)
+	}
+	return o, nil
 }
 
 // RetentionTables lists the quoted tables retention deletes from, in
 // order: the run's child tables first, the runs table last, so that no
 // child row outlives its run.
 func (o *Objects) RetentionTables() []string {
+	if o.Survival != "" {
+		return []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Survival, o.Runs}
+	}
 	return []string{o.Cohort, o.Scores, o.Matches, o.Weights, o.Effects, o.Runs}
 }

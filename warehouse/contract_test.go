@@ -20,6 +20,34 @@ func names(cols []Column) string {
 	return strings.Join(s, ",")
 }
 
+// TestSurvivalTableOnlyWithTimeToEvent: the survival table and its view
+// exist exactly when the study has time-to-event outcomes, and retention
+// deletes from it before the runs table.
+func TestSurvivalTableOnlyWithTimeToEvent(t *testing.T) {
+	out := contractOutput()
+	c, err := NewContract(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c.Survival.Name != "" || len(c.Tables()) != 6 {
+		t.Errorf("without time-to-event outcomes: survival table %q, %d tables", c.Survival.Name, len(c.Tables()))
+	}
+	out.TimeToEvent = true
+	o, err := NewObjects(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c = o.C
+	if c.Survival.Name != "hf_survival" || c.CurrentSurvival != "hf_current_survival" ||
+		names(c.Survival.Columns) != "run_id,outcome,adjustment,treated,time,at_risk,events,censored,survival,std_error" {
+		t.Errorf("survival table %s(%s), view %s", c.Survival.Name, names(c.Survival.Columns), c.CurrentSurvival)
+	}
+	rt := o.RetentionTables()
+	if rt[len(rt)-2] != o.Survival || rt[len(rt)-1] != o.Runs {
+		t.Errorf("retention order %v", rt)
+	}
+}
+
 func TestNewContract(t *testing.T) {
 	c, err := NewContract(contractOutput())
 	if err != nil {
@@ -35,7 +63,7 @@ func TestNewContract(t *testing.T) {
 		{&c.Scores, "hf_scores", "run_id,member_id,treated,ps,logit_ps,in_support"},
 		{&c.Matches, "hf_matches", "run_id,set_id,member_id,treated,set_weight,match_distance"},
 		{&c.Weights, "hf_weights", "run_id,member_id,treated,att,overlap"},
-		{&c.Effects, "hf_effects", "run_id,outcome,adjustment,estimand,contrast,method,estimate,std_error,ci_low,ci_high,p_value,n_treated,n_control,n_missing,e_value,e_value_ci,rosenbaum_gamma"},
+		{&c.Effects, "hf_effects", "run_id,outcome,adjustment,estimand,contrast,method,estimate,std_error,ci_low,ci_high,p_value,n_treated,n_control,n_missing,e_value,e_value_ci,rosenbaum_gamma,horizon"},
 		{&Table{Name: c.Analysis, Comment: "view", Columns: c.AnalysisColumns}, "hf_analysis",
 			"run_id,member_id,coached,age,sex,readmit_30d,ps,logit_ps,in_support,set_id,set_count,matched_weight,att,overlap"},
 	}

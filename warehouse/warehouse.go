@@ -212,6 +212,9 @@ type Output struct {
 	Outcomes   []string
 	// Schemes lists the weights table's scheme columns in order.
 	Schemes []string
+	// TimeToEvent says the study has time-to-event outcomes: the
+	// survival table and its current view exist.
+	TimeToEvent bool
 	// KeepRuns, when > 0, is how many runs to keep (retention).
 	KeepRuns int
 }
@@ -273,11 +276,11 @@ type Publication struct {
 	// Effects, one row per outcome × adjustment × contrast; written to
 	// {prefix}effects.
 	Effects []EffectRecord
+	// Survival holds the Kaplan–Meier steps of the time-to-event
+	// outcomes, written to {prefix}survival (Output.TimeToEvent).
+	Survival []SurvivalStep
 }
 
-// EffectRecord is one row of {prefix}effects: one effect estimate of one
-// outcome under one adjustment and contrast. NaN floats are stored as
-// NULL (an undefined standard error, a ratio with a zero denominator).
 // SurvivalStep is one row of the survival table: one arm's weighted
 // Kaplan–Meier step at a follow-up time of one time-to-event outcome
 // under one adjustment.
@@ -290,6 +293,9 @@ type SurvivalStep struct {
 	Survival, StdError       float64
 }
 
+// EffectRecord is one row of {prefix}effects: one effect estimate of one
+// outcome under one adjustment and contrast. NaN floats are stored as
+// NULL (an undefined standard error, a ratio with a zero denominator).
 type EffectRecord struct {
 	Outcome    string
 	Adjustment string // unadjusted, matched or a weighting scheme
@@ -312,6 +318,8 @@ type EffectRecord struct {
 	// upper-bound p-value first exceeds 0.05 (matched pairs); NaN when not
 	// computed.
 	RosenbaumGamma float64
+	// Horizon is the follow-up time of a time-to-event row; NaN otherwise.
+	Horizon float64
 }
 
 // PriorSets are the matched sets of one run, one entry per (set, unit)

@@ -3,6 +3,7 @@ package main
 import (
 	"context"
 	"counterpart/match/demo"
+	"counterpart/match/effect"
 	"fmt"
 	"io"
 	"sort"
@@ -64,6 +65,46 @@ func runDemo(ctx context.Context, dir string, units int, seed uint64, stdout, st
 			fmt.Fprintf(stdout, "  %-12s %-17s %+.4g  [%+.4g, %+.4g]  %s (bias %+.3g)\n", "", label, float64(e.Estimate), lo, hi, verdict, float64(e.Estimate)-truth)
 		}
 	}
+	for _, tr := range data.TrueEvents {
+		what := contrastWords(tr.Contrast)
+		if tr.Horizon > 0 {
+			what += fmt.Sprintf(" at day %g", tr.Horizon)
+		}
+		format := "%+.4g"
+		if tr.Contrast == effect.ContrastRateRatio {
+			format = "%.4g"
+		}
+		fmt.Fprintf(stdout, "  %-12s planted %s "+format+"\n", tr.Outcome, what, tr.Value)
+		for _, e := range sum.Effects {
+			if e.Outcome != tr.Outcome || e.Contrast != tr.Contrast || (e.Adjustment != "unadjusted" && e.Adjustment != sum.Primary) {
+				continue
+			}
+			if tr.Horizon > 0 && (e.Horizon == nil || float64(*e.Horizon) != tr.Horizon) {
+				continue
+			}
+			lo, hi := float64(e.CILow), float64(e.CIHigh)
+			verdict := "misses the planted effect"
+			if lo <= tr.Value && tr.Value <= hi {
+				verdict = "covers the planted effect"
+			}
+			label := "naive comparison"
+			if e.Adjustment != "unadjusted" {
+				label = e.Adjustment + " estimate"
+			}
+			fmt.Fprintf(stdout, "  %-12s %-17s "+format+"  ["+format+", "+format+"]  %s\n", "", label, float64(e.Estimate), lo, hi, verdict)
+		}
+	}
 	fmt.Fprintf(stdout, "\nresults are in %s (tables and views prefixed %s)\n", spec.Warehouse.DSN, spec.Output.Prefix)
 	return exitOK
+}
+
+// contrastWords names a contrast for the demo's truth lines.
+func contrastWords(c string) string {
+	switch c {
+	case effect.ContrastSurvivalDifference:
+		return "survival difference"
+	case effect.ContrastRateRatio:
+		return "rate ratio"
+	}
+	return c
 }

@@ -178,7 +178,7 @@ func Generate(n int, seed uint64) *Data {
 		// difference; the rate ratio holds in every population.
 		d.TrueEvents = []Truth{
 			{Outcome: "readmission", Contrast: effect.ContrastSurvivalDifference, Horizon: Horizon, Value: sumSurvDiff / nCoached},
-			{Outcome: "er_visits", Contrast: effect.ContrastRateRatio, Value: ERRateRatio},
+			{Outcome: "emergency_visits", Contrast: effect.ContrastRateRatio, Value: ERRateRatio},
 		}
 	}
 	return d
@@ -208,12 +208,22 @@ cohort:
   # bands, interactions) belong here, in SQL.
   sql: |
     select member_id, coached, age, sex, region, prior_admits, charlson,
-           lives_alone, ef_reduced, readmit_30d, cost_90d
+           lives_alone, ef_reduced, readmit_30d, cost_90d,
+           followup_days, readmitted, er_visits, enrolled_months
     from marts.hf_members
   unit: member_id
   treatment: coached
   outcomes: [readmit_30d, cost_90d]
   covariates: [age, sex, region, prior_admits, charlson, lives_alone, ef_reduced]
+  time_to_event:                 # a time to an event under censoring
+    - name: readmission          # the outcome's name in every table
+      time: followup_days        # > 0
+      event: readmitted          # 1 = readmitted, 0 = censored
+      horizons: [180, 365]       # days at which risks and restricted means are read
+  rates:                         # event counts over unequal exposure
+    - name: emergency_visits
+      count: er_visits           # whole numbers >= 0
+      exposure: enrolled_months  # > 0
 
 score:
   model: logistic                # logistic | ridge
@@ -275,6 +285,10 @@ func Write(ctx context.Context, dir string, n int, seed uint64) (string, *Data, 
 			{Name: "ef_reduced", Type: "BOOLEAN", Values: d.EFReduced, Comment: "reduced ejection fraction"},
 			{Name: "readmit_30d", Type: "INTEGER", Values: d.Readmit30d, Comment: "readmitted within 30 days (0/1)"},
 			{Name: "cost_90d", Type: "DOUBLE", Values: d.Cost90d, Comment: "allowed cost over 90 days"},
+			{Name: "followup_days", Type: "BIGINT", Values: d.FollowupDays, Comment: "days from index to first readmission, or to the end of follow-up (a year, or leaving the plan)"},
+			{Name: "readmitted", Type: "BOOLEAN", Values: d.Readmitted, Comment: "followup_days ended in a readmission (false: censored)"},
+			{Name: "er_visits", Type: "BIGINT", Values: d.ERVisits, Comment: "emergency visits while enrolled"},
+			{Name: "enrolled_months", Type: "BIGINT", Values: d.EnrolledMonths, Comment: "months enrolled in the year after index"},
 		})
 	if err != nil {
 		return "", nil, fmt.Errorf("demo: %w", err)

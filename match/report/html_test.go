@@ -183,7 +183,7 @@ func renderHTML(t *testing.T, s *study.Summary) string {
 }
 
 // figures is every chart the report must hold.
-var figures = []string{"fig-flow", "fig-balance", "fig-scores", "fig-ecdf", "fig-effects"}
+var figures = []string{"fig-flow", "fig-balance", "fig-scores", "fig-ecdf", "fig-effects", "fig-survival-readmission"}
 
 // svgInfo is what the XML walk records about one <svg>.
 type svgInfo struct {
@@ -329,8 +329,8 @@ func TestHTMLWithoutDiagnostics(t *testing.T) {
 	s.Diagnostics = nil
 	page := renderHTML(t, &s)
 	svgs, _ := parseReport(t, page)
-	if len(svgs) != 3 {
-		t.Errorf("%d charts without diagnostics, want 3 (flow, balance, effects)", len(svgs))
+	if len(svgs) != 4 {
+		t.Errorf("%d charts without diagnostics, want 4 (flow, balance, effects, survival)", len(svgs))
 	}
 	for _, want := range []string{"Score distributions were not computed", "eCDF diagnostics were not computed"} {
 		if !strings.Contains(page, want) {

@@ -75,8 +75,8 @@ func (p *page) survival() {
 func (p *page) survivalPanel(pn [2]study.SurvivalCurve, x0, y0, w, h float64) {
 	p.f("<rect x=\"%.1f\" y=\"%.1f\" width=\"%.1f\" height=\"%.1f\" fill=\"none\" stroke=\"#bbb\"/>\n", x0, y0, w, h)
 	p.text(x0+8, y0+16, "start", "head", pn[0].Adjustment)
-	left, top := x0+40, y0+26
-	pw, ph := w-52, h-26-62
+	left, top := x0+80, y0+26
+	pw, ph := w-96, h-26-62
 	last := 1.0
 	if t := pn[0].Time; len(t) > 0 && float64(t[len(t)-1]) > 0 {
 		last = float64(t[len(t)-1])
@@ -119,7 +119,7 @@ func (p *page) survivalPanel(pn [2]study.SurvivalCurve, x0, y0, w, h float64) {
 			label = "comparison"
 		}
 		ry := base + 30 + float64(k)*14
-		p.text(left-4, ry, "end", "small", label)
+		p.text(x0+6, ry, "start", "small", label)
 		for i, t := range c.TickTime {
 			if i < len(c.AtRisk) {
 				p.text(xs(float64(t)), ry, "middle", "small", thousands(c.AtRisk[i]))

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 	"slices"
 	"time"
 
@@ -124,6 +125,7 @@ func (r *run) read(ctx context.Context) error {
 		r.out.Outcomes = append(r.out.Outcomes, o.Name)
 	}
 	r.out.Schemes = s.Schemes()
+	r.out.TimeToEvent = len(s.Cohort.TimeToEvent) > 0
 	return nil
 }
 
@@ -181,7 +183,7 @@ func (r *run) publish(ctx context.Context, res *results) error {
 	settleRecord(&rec, s, sum, r.now())
 	pub := &warehouse.Publication{
 		Run: rec, Cohort: r.cohort, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
-		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects),
+		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects), Survival: res.survival,
 	}
 	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
 		return failPublish(r.wh, r.out, sum, err)
@@ -535,6 +537,10 @@ func effectRecords(rows []EffectRow) []warehouse.EffectRecord {
 			Estimate: float64(e.Estimate), StdError: float64(e.SE), CILow: float64(e.CILow), CIHigh: float64(e.CIHigh),
 			PValue: float64(e.P), NTreated: e.NTreated, NControl: e.NControl, NMissing: e.NMissing,
 			EValue: float64(e.EValue), EValueCI: float64(e.EValueCI), RosenbaumGamma: float64(e.RosenbaumGamma),
+			Horizon: math.NaN(),
+		}
+		if e.Horizon != nil {
+			out[i].Horizon = float64(*e.Horizon)
 		}
 	}
 	return out

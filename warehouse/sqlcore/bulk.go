@@ -112,6 +112,34 @@ func (c *Core) writeMatches(ctx context.Context, o *warehouse.Objects, out wareh
 	return c.bulk(ctx, o.Matches, runID, cols, m.Len())
 }
 
+// writeSurvival writes the Kaplan–Meier steps of the time-to-event
+// outcomes, columnar.
+func (c *Core) writeSurvival(ctx context.Context, o *warehouse.Objects, runID string, steps []warehouse.SurvivalStep) error {
+	if len(steps) == 0 {
+		return nil
+	}
+	if o.Survival == "" {
+		return fmt.Errorf("survival rows for a study without time-to-event outcomes (Output.TimeToEvent is false)")
+	}
+	n := len(steps)
+	outcome, adj := make([]string, n), make([]string, n)
+	treated := make([]bool, n)
+	f := make([][]float64, 6)
+	for k := range f {
+		f[k] = make([]float64, n)
+	}
+	for i, s := range steps {
+		outcome[i], adj[i], treated[i] = s.Outcome, s.Adjustment, s.Treated
+		for k, v := range []float64{s.Time, s.AtRisk, s.Events, s.Censored, s.Survival, s.StdError} {
+			f[k][i] = v
+		}
+	}
+	cols := []BulkCol{{Name: "outcome", S: outcome}, {Name: "adjustment", S: adj}, {Name: "treated", B: treated},
+		{Name: "time", F64: f[0]}, {Name: "at_risk", F64: f[1]}, {Name: "events", F64: f[2]},
+		{Name: "censored", F64: f[3]}, {Name: "survival", F64: f[4]}, {Name: "std_error", F64: f[5]}}
+	return c.bulk(ctx, o.Survival, runID, cols, n)
+}
+
 func (c *Core) bulk(ctx context.Context, table, runID string, cols []BulkCol, n int) error {
 	if err := c.A.Bulk(ctx, table, runID, cols, n); err != nil {
 		return fmt.Errorf("write %s: %w", table, c.err(err))

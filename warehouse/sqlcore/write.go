@@ -213,7 +213,11 @@ func (c *Core) currentViews(ctx context.Context, o *warehouse.Objects) error {
 		{o.C.CurrentMatches, o.Matches, "matched sets"},
 		{o.C.CurrentWeights, o.Weights, "weights"},
 		{o.C.CurrentEffects, o.Effects, "effect estimates"},
+		{o.C.CurrentSurvival, o.Survival, "survival curves"},
 	} {
+		if v.table == "" {
+			continue // no time-to-event outcomes
+		}
 		data := map[string]string{
 			"View": warehouse.QuoteQualified(o.C.Schema, v.view), "Table": v.table, "Runs": o.Runs,
 			"Comment": "The " + v.what + " of the latest succeeded run.",
@@ -358,6 +362,9 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 	if err := c.insertEffects(ctx, o, r.RunID, p.Effects); err != nil {
 		return err
 	}
+	if err := c.writeSurvival(ctx, o, r.RunID, p.Survival); err != nil {
+		return err
+	}
 	if err := c.step("effects"); err != nil {
 		return err
 	}
@@ -421,7 +428,7 @@ func (c *Core) insertEffects(ctx context.Context, o *warehouse.Objects, runID st
 		_, err := c.Exec(ctx, "insert into "+o.C.Effects.Name, q, runID, e.Outcome, e.Adjustment, e.Estimand, e.Contrast, e.Method,
 			nullFloat(e.Estimate), nullFloat(e.StdError), nullFloat(e.CILow), nullFloat(e.CIHigh), nullFloat(e.PValue),
 			int64(e.NTreated), int64(e.NControl), int64(e.NMissing),
-			nullFloat(e.EValue), nullFloat(e.EValueCI), nullFloat(e.RosenbaumGamma))
+			nullFloat(e.EValue), nullFloat(e.EValueCI), nullFloat(e.RosenbaumGamma), nullFloat(e.Horizon))
 		if err != nil {
 			return err
 		}

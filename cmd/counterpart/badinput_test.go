@@ -3,14 +3,16 @@ package main
 import (
 	"bytes"
 	"context"
-	"counterpart/match/demo"
 	"crypto/sha256"
 	"encoding/hex"
+	"fmt"
 	"io"
 	"os"
 	"path/filepath"
 	"strings"
 	"testing"
+
+	"counterpart/match/demo"
 )
 
 // baseStudy is a valid study over the demo table; each bad-input case
@@ -74,6 +76,26 @@ func badCases() []badCase {
 		}, want: "ridge"},
 		{name: "unset environment variable", edits: map[string]string{"dsn: WAREHOUSE": "dsn: ${COUNTERPART_TEST_UNSET_DSN}"}, want: "COUNTERPART_TEST_UNSET_DSN"},
 		{name: "missing output schema", edits: map[string]string{"SCHEMA": "reporting"}, want: "reporting"},
+		{name: "zero follow-up time", edits: eventEdits("case when member_id % 30 = 0 then 0 else followup_days end", "readmitted", "er_visits", "enrolled_months", "[180]"), want: "units have a follow-up time"},
+		{name: "NULL follow-up time", edits: eventEdits("case when member_id % 30 = 0 then null else followup_days end", "readmitted", "er_visits", "enrolled_months", "[180]"), want: "columns fu, ev"},
+		{name: "event not 0/1", edits: eventEdits("followup_days", "case when member_id % 30 = 0 then 2 else readmitted::int end", "er_visits", "enrolled_months", "[180]"), want: "event value other than 0 or 1"},
+		{name: "horizon beyond follow-up", edits: eventEdits("followup_days", "readmitted", "er_visits", "enrolled_months", "[180, 400]"), want: "horizon 400"},
+		{name: "non-positive exposure", edits: eventEdits("followup_days", "readmitted", "er_visits", "case when member_id % 30 = 0 then 0 else enrolled_months end", "[180]"), want: "exposure"},
+		{name: "negative count", edits: eventEdits("followup_days", "readmitted", "case when member_id % 30 = 0 then -1 else er_visits end", "enrolled_months", "[180]"), want: "count"},
+		{name: "fractional count", edits: eventEdits("followup_days", "readmitted", "er_visits + 0.5", "enrolled_months", "[180]"), want: "fractional"},
+		{name: "horizons not increasing", edits: eventEdits("followup_days", "readmitted", "er_visits", "enrolled_months", "[365, 180]"), want: "horizons"},
+	}
+}
+
+// eventEdits turns the base study into one with a time-to-event and a
+// rate outcome whose columns are the given SQL expressions.
+func eventEdits(time, event, count, exposure, horizons string) map[string]string {
+	cols := fmt.Sprintf(", %s as fu, %s as ev, %s as n_er, %s as months", time, event, count, exposure)
+	return map[string]string{
+		"SQL": strings.Replace(baseSQL, " from marts.hf_members", cols+" from marts.hf_members", 1),
+		"  outcomes: [readmit_30d, cost_90d]": "  outcomes: [readmit_30d, cost_90d]\n" +
+			"  time_to_event: [{name: readmission, time: fu, event: ev, horizons: " + horizons + "}]\n" +
+			"  rates: [{name: er, count: n_er, exposure: months}]",
 	}
 }
 

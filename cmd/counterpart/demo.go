@@ -2,12 +2,12 @@ package main
 
 import (
 	"context"
-	"counterpart/match/demo"
-	"counterpart/match/effect"
 	"fmt"
 	"io"
 	"sort"
 
+	"counterpart/match/demo"
+	"counterpart/match/effect"
 	"counterpart/match/study"
 )
 

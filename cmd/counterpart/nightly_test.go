@@ -3,7 +3,6 @@ package main
 import (
 	"bytes"
 	"context"
-	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"encoding/json"
 	"fmt"
@@ -16,6 +15,7 @@ import (
 	_ "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/warehousetest"
 )
 
 // membersSQL builds an evolving synthetic membership from deterministic

@@ -5,13 +5,13 @@ package demo
 
 import (
 	"context"
-	"counterpart/match/effect"
 	"fmt"
 	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
 
+	"counterpart/match/effect"
 	"counterpart/warehouse"
 )
 

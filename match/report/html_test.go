@@ -3,7 +3,6 @@ package report
 import (
 	"bytes"
 	"context"
-	"counterpart/match/demo"
 	"database/sql"
 	"encoding/xml"
 	"errors"
@@ -23,6 +22,7 @@ import (
 	_ "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/match/balance"
+	"counterpart/match/demo"
 	"counterpart/match/study"
 )
 

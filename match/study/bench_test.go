@@ -2,13 +2,14 @@ package study
 
 import (
 	"context"
-	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"fmt"
 	"os"
 	"path/filepath"
 	"strconv"
 	"testing"
+
+	"counterpart/warehouse/warehousetest"
 )
 
 // benchUnits is the whole-run benchmark's size: 1,000,000 by default (the

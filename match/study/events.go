@@ -78,7 +78,7 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 		time := column(c, spec.Time)
 		event, err := survival.EventsFromFloat(column(c, spec.Event))
 		if err != nil {
-			return nil, badInput(fmt.Sprintf("outcome %s: column %s", spec.Name, spec.Event), err)
+			return nil, badInput(fmt.Sprintf("outcome %s: column %s", spec.Name, spec.Event), fmt.Errorf("%w; use 1 for an event and 0 for censoring", err))
 		}
 		ev := make([]float64, len(event))
 		for i, e := range event {
@@ -97,7 +97,7 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 			where := fmt.Sprintf("outcome %s (%s)", spec.Name, a.name)
 			km, err := survival.KaplanMeier(d, spec.Horizons)
 			if err != nil {
-				return nil, badInput(where, fmt.Errorf("columns %s, %s: %w", spec.Time, spec.Event, err))
+				return nil, badInput(where, fmt.Errorf("columns %s, %s: %w; fix or exclude them in cohort.sql, or pick horizons within follow-up", spec.Time, spec.Event, err))
 			}
 			cox, err := survival.Cox(d, survival.Efron)
 			if err != nil {
@@ -156,7 +156,7 @@ func estimateRates(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matchedR
 			d := survival.RateData{Count: rows.pick(count), Exposure: rows.pick(exposure), Treated: rows.z, Weight: rows.w, Cluster: rows.cluster}
 			fit, err := survival.Rates(d, effect.RatePer)
 			if err != nil {
-				return badInput(fmt.Sprintf("outcome %s (%s): columns %s, %s", spec.Name, a.name, spec.Count, spec.Exposure), err)
+				return badInput(fmt.Sprintf("outcome %s (%s): columns %s, %s", spec.Name, a.name, spec.Count, spec.Exposure), fmt.Errorf("%w; fix or exclude them in cohort.sql", err))
 			}
 			nT, nC := armCounts(rows)
 			rr, rd := fit.HC0, fit.DiffHC0

@@ -1,12 +1,12 @@
 package study
 
 import (
-	"counterpart/match/effect"
 	"fmt"
 	"math"
 	"math/rand/v2"
 	"testing"
 
+	"counterpart/match/effect"
 	"counterpart/warehouse"
 )
 

@@ -2,7 +2,6 @@ package study
 
 import (
 	"context"
-	"counterpart/match/demo"
 	"database/sql"
 	"fmt"
 	"math"
@@ -13,6 +12,7 @@ import (
 
 	_ "github.com/duckdb/duckdb-go/v2"
 
+	"counterpart/match/demo"
 	"counterpart/warehouse"
 )
 

@@ -2,7 +2,6 @@ package study
 
 import (
 	"context"
-	"counterpart/warehouse/warehousetest"
 	"database/sql"
 	"fmt"
 	"math"
@@ -14,6 +13,7 @@ import (
 	_ "github.com/duckdb/duckdb-go/v2"
 
 	"counterpart/warehouse/duckdb"
+	"counterpart/warehouse/warehousetest"
 )
 
 // TestWarehouseModeMatchesMemory runs the benchmark study (BenchCohortSQL,

@@ -255,6 +255,30 @@ output:
   keep_runs: 30
 `
 
+// TableComment is the demo table's comment.
+const TableComment = "Synthetic heart-failure members of a fictional health plan (counterpart demo); no real people."
+
+// Columns are the demo table's columns, typed as DuckDB spells them.
+func Columns(d *Data) []warehouse.LoadColumn {
+	return []warehouse.LoadColumn{
+		{Name: "member_id", Type: "BIGINT", Values: d.MemberID, Comment: "synthetic member id"},
+		{Name: "coached", Type: "BOOLEAN", Values: d.Coached, Comment: "enrolled in home heart-coaching"},
+		{Name: "age", Type: "INTEGER", Values: d.Age, Comment: "age in years at index"},
+		{Name: "sex", Type: "VARCHAR", Values: d.Sex, Comment: "F or M"},
+		{Name: "region", Type: "VARCHAR", Values: d.Region, Comment: "service region"},
+		{Name: "prior_admits", Type: "INTEGER", Values: d.PriorAdmits, Comment: "admissions in the prior year"},
+		{Name: "charlson", Type: "INTEGER", Values: d.Charlson, Comment: "Charlson comorbidity index"},
+		{Name: "lives_alone", Type: "BOOLEAN", Values: d.LivesAlone, Comment: "lives alone"},
+		{Name: "ef_reduced", Type: "BOOLEAN", Values: d.EFReduced, Comment: "reduced ejection fraction"},
+		{Name: "readmit_30d", Type: "INTEGER", Values: d.Readmit30d, Comment: "readmitted within 30 days (0/1)"},
+		{Name: "cost_90d", Type: "DOUBLE", Values: d.Cost90d, Comment: "allowed cost over 90 days"},
+		{Name: "followup_days", Type: "BIGINT", Values: d.FollowupDays, Comment: "days from index to first readmission, or to the end of follow-up (a year, or leaving the plan)"},
+		{Name: "readmitted", Type: "BOOLEAN", Values: d.Readmitted, Comment: "followup_days ended in a readmission (false: censored)"},
+		{Name: "er_visits", Type: "BIGINT", Values: d.ERVisits, Comment: "emergency visits while enrolled"},
+		{Name: "enrolled_months", Type: "BIGINT", Values: d.EnrolledMonths, Comment: "months enrolled in the year after index"},
+	}
+}
+
 // Write writes the synthetic warehouse and study file into dir and
 // returns the study file's path and the data (for the truth).
 func Write(ctx context.Context, dir string, n int, seed uint64) (string, *Data, error) {
@@ -271,25 +295,7 @@ func Write(ctx context.Context, dir string, n int, seed uint64) (string, *Data, 
 		}
 	}
 	d := Generate(n, seed)
-	err := warehouse.LoadTable(ctx, "duckdb", db, "marts", "hf_members",
-		"Synthetic heart-failure members of a fictional health plan (counterpart demo); no real people.",
-		[]warehouse.LoadColumn{
-			{Name: "member_id", Type: "BIGINT", Values: d.MemberID, Comment: "synthetic member id"},
-			{Name: "coached", Type: "BOOLEAN", Values: d.Coached, Comment: "enrolled in home heart-coaching"},
-			{Name: "age", Type: "INTEGER", Values: d.Age, Comment: "age in years at index"},
-			{Name: "sex", Type: "VARCHAR", Values: d.Sex, Comment: "F or M"},
-			{Name: "region", Type: "VARCHAR", Values: d.Region, Comment: "service region"},
-			{Name: "prior_admits", Type: "INTEGER", Values: d.PriorAdmits, Comment: "admissions in the prior year"},
-			{Name: "charlson", Type: "INTEGER", Values: d.Charlson, Comment: "Charlson comorbidity index"},
-			{Name: "lives_alone", Type: "BOOLEAN", Values: d.LivesAlone, Comment: "lives alone"},
-			{Name: "ef_reduced", Type: "BOOLEAN", Values: d.EFReduced, Comment: "reduced ejection fraction"},
-			{Name: "readmit_30d", Type: "INTEGER", Values: d.Readmit30d, Comment: "readmitted within 30 days (0/1)"},
-			{Name: "cost_90d", Type: "DOUBLE", Values: d.Cost90d, Comment: "allowed cost over 90 days"},
-			{Name: "followup_days", Type: "BIGINT", Values: d.FollowupDays, Comment: "days from index to first readmission, or to the end of follow-up (a year, or leaving the plan)"},
-			{Name: "readmitted", Type: "BOOLEAN", Values: d.Readmitted, Comment: "followup_days ended in a readmission (false: censored)"},
-			{Name: "er_visits", Type: "BIGINT", Values: d.ERVisits, Comment: "emergency visits while enrolled"},
-			{Name: "enrolled_months", Type: "BIGINT", Values: d.EnrolledMonths, Comment: "months enrolled in the year after index"},
-		})
+	err := warehouse.LoadTable(ctx, "duckdb", db, "marts", "hf_members", TableComment, Columns(d))
 	if err != nil {
 		return "", nil, fmt.Errorf("demo: %w", err)
 	}

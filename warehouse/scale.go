@@ -80,6 +80,11 @@ type InWarehouse interface {
 	// treatment, a stratum number per distinct combination of exactOn
 	// (0-based; all 0 without exactOn), the logit and the support flag.
 	MatchInput(ctx context.Context, q CohortQuery, d *DesignSQL, coef []float64, support Support, exactOn []string) (*MatchInput, error)
+	// UnitColumns returns the q.Outcomes columns (numeric or boolean) per
+	// unit, in MatchInput's unit order, as doubles: booleans 0/1, NULL
+	// NaN. The time-to-event and rate outcomes read their few columns
+	// this way, as matching reads the logit: never the covariates.
+	UnitColumns(ctx context.Context, q CohortQuery) ([][]float64, error)
 }
 
 // Description summarises a cohort query without reading its rows.
@@ -606,6 +611,25 @@ func MatchInputSQL(cohortSQL string, d *DesignSQL, coef []float64, sup Support, 
 		stratum = "CAST(dense_rank() OVER (ORDER BY " + strings.Join(q, ", ") + ") - 1 AS INTEGER)"
 	}
 	return "SELECT unit, z = 1, " + stratum + ", eta, ins FROM (" + scored + " " + fenceText(fence) + ") AS f ORDER BY unit", b.args, nil
+}
+
+// UnitColumnsSQL returns the q.Outcomes columns per unit as DOUBLE
+// PRECISION (booleans 0/1, NULL as NaN) in unit order, the order of
+// MatchInputSQL; isBool flags the boolean columns.
+func UnitColumnsSQL(q CohortQuery, isBool []bool) (string, error) {
+	var exprs []string
+	for i, name := range q.Outcomes {
+		if err := ValidIdent(name); err != nil {
+			return "", fmt.Errorf("cohort column: %w", err)
+		}
+		y := "c." + Quote(name)
+		e := "CAST(" + y + " AS DOUBLE PRECISION)"
+		if isBool[i] {
+			e = "CASE WHEN " + y + " THEN 1.0 WHEN NOT " + y + " THEN 0.0 END"
+		}
+		exprs = append(exprs, "COALESCE("+e+", CAST('NaN' AS DOUBLE PRECISION))")
+	}
+	return "SELECT " + strings.Join(exprs, ", ") + " FROM " + From(q.SQL) + " ORDER BY c." + Quote(q.Unit), nil
 }
 
 // ColumnTypes is what an engine learned of the cohort query's result

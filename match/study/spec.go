@@ -912,10 +912,6 @@ func (s *Spec) validateFitIn(doc *yaml.Node) error {
 		return bad("estimate.bootstrap", "the bootstrap")
 	case s.Rules.Stabilize || len(s.Rules.Percentiles) > 0 || len(s.Rules.Bounds) > 0:
 		return bad("weight_rules", "a weight rule")
-	case len(s.Cohort.TimeToEvent) > 0:
-		return bad("cohort.time_to_event", "a time-to-event outcome")
-	case len(s.Cohort.Rates) > 0:
-		return bad("cohort.rates", "a rate outcome")
 	}
 	return nil
 }

@@ -11,6 +11,7 @@ import (
 	"counterpart/match/assign"
 	"counterpart/match/balance"
 	"counterpart/match/score"
+	"counterpart/match/weights"
 	"counterpart/warehouse"
 )
 
@@ -72,8 +73,10 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		defer debug.SetMemoryLimit(prev)
 	}
 	clk := newClock(opt, sum)
+	// The snapshot holds every outcome-like column (the time-to-event and
+	// rate columns too); the sums cover the plain outcomes.
 	q := warehouse.CohortQuery{SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
-		Outcomes: s.Cohort.Outcomes, Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical}
+		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical}
 
 	clk.stage("fit")
 	model, err := score.ParseModel(s.Score.Model)
@@ -123,6 +126,13 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		}
 		clk.timed("match")
 	}
+	// Time-to-event and rate outcomes read their few columns per unit and
+	// are estimated exactly as in memory; bad values stop the run here,
+	// before anything is written.
+	ev, err := eventsInWarehouse(ctx, s, iw, q, mi, rows)
+	if err != nil {
+		return sum, err
+	}
 	if opt.DryRun {
 		sum.Status = "dry-run"
 		return sum, nil
@@ -130,7 +140,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 
 	clk.stage("publish")
 	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
-		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes()}
+		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes(),
+		TimeToEvent: len(s.Cohort.TimeToEvent) > 0}
 	for i, k := range d.CovKinds(q) {
 		out.Covariates = append(out.Covariates, warehouse.CovariateMeta{Name: q.Covariates[i], Kind: k})
 	}
@@ -141,8 +152,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	if err := wh.StartRun(ctx, out, rec); err != nil {
 		return sum, fmt.Errorf("start run: %w", err)
 	}
-	pub := &warehouse.Publication{Run: rec}
-	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, clk.now); err != nil {
+	pub := &warehouse.Publication{Run: rec, Survival: ev.steps}
+	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, ev, clk.now); err != nil {
 		return sum, failPublish(wh, out, sum, err)
 	}
 	clk.timed("publish")
@@ -154,7 +165,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 // settle the balance, the effects and the run's status), the final runs
 // row, commit. Any error rolls all of it back.
 func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out warehouse.Output, s *Spec, q warehouse.CohortQuery, d *warehouse.DesignSQL,
-	coef []float64, sup warehouse.Support, thin *warehouse.Cohort, rows warehouse.MatchRows, sum *Summary, pub *warehouse.Publication, now func() time.Time) error {
+	coef []float64, sup warehouse.Support, thin *warehouse.Cohort, rows warehouse.MatchRows, sum *Summary, pub *warehouse.Publication, ev eventResults, now func() time.Time) error {
 	tx, err := sp.BeginScale(ctx, out, sum.RunID)
 	if err != nil {
 		return err
@@ -171,7 +182,7 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	}
 	rs, err := tx.RunSums(ctx, warehouse.RunSums{
 		Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
-		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: q.Outcomes})
+		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: s.Cohort.Outcomes})
 	if err != nil {
 		return fmt.Errorf("balance: %w", err)
 	}
@@ -179,6 +190,8 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	if err := effectsInWarehouse(s, sum, rs); err != nil {
 		return err
 	}
+	sum.Effects = append(sum.Effects, ev.effects...)
+	sum.Survival = ev.curves
 	settleRecord(&pub.Run, s, sum, now())
 	pub.Effects = effectRecords(sum.Effects)
 	if err := tx.Finish(ctx, pub); err != nil {
@@ -220,6 +233,67 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 		return f.rows, err
 	}
 	return f.rows, nil
+}
+
+// eventResults are the time-to-event and rate outcomes' rows of a
+// warehouse-scale run, computed before publishing.
+type eventResults struct {
+	effects []EffectRow
+	curves  []SurvivalCurve
+	steps   []warehouse.SurvivalStep
+}
+
+// eventsInWarehouse estimates the time-to-event and rate outcomes with the
+// in-memory estimators on their columns read per unit (UnitColumns), the
+// matched sets of this run and each scheme's weights from the warehouse
+// fit's scores (the formulas the engine's weights table holds).
+func eventsInWarehouse(ctx context.Context, s *Spec, iw warehouse.InWarehouse, q warehouse.CohortQuery, mi *warehouse.MatchInput, rows warehouse.MatchRows) (eventResults, error) {
+	if len(s.Cohort.TimeToEvent) == 0 && len(s.Cohort.Rates) == 0 {
+		return eventResults{}, nil
+	}
+	qq := q
+	qq.Outcomes = s.Cohort.ReadColumns()[len(s.Cohort.Outcomes):]
+	vals, err := iw.UnitColumns(ctx, qq)
+	if err != nil {
+		return eventResults{}, err
+	}
+	z := mi.Treated
+	if len(vals) > 0 && len(vals[0]) != len(z) {
+		return eventResults{}, fmt.Errorf("read outcome columns: %d rows, matching read %d: the data changed during the run", len(vals[0]), len(z))
+	}
+	c := &warehouse.Cohort{Treated: z}
+	for j, name := range qq.Outcomes {
+		c.Outcomes = append(c.Outcomes, warehouse.Outcome{Name: name, Values: vals[j]})
+	}
+	adjs := []adjustment{{name: "unadjusted", estimand: "none"}}
+	var mr *matchedRows
+	if s.Matching.Algorithm != "off" {
+		mr = &matchedRows{unit: rows.Unit, z: rows.Treated, w: rows.SetWeight, cluster: make([]int, len(rows.SetID))}
+		for r, id := range rows.SetID {
+			mr.cluster[r] = int(id)
+		}
+		adjs = append(adjs, adjustment{name: "matched", estimand: "att", matched: true})
+	}
+	ps := make([]float64, len(mi.Logit))
+	for i, eta := range mi.Logit {
+		ps[i] = logistic(eta)
+	}
+	for _, scheme := range s.Schemes() {
+		fn, err := weights.ByName(scheme)
+		if err != nil {
+			return eventResults{}, badInput("weights", err)
+		}
+		adjs = append(adjs, adjustment{name: scheme, estimand: weights.Estimand(scheme), w: weights.Restrict(fn(ps, z), mi.InSupport)})
+	}
+	sum := &Summary{}
+	steps, err := estimateEvents(s, c, adjs, mr, sum)
+	if err != nil {
+		return eventResults{}, err
+	}
+	if err := estimateRates(s, c, adjs, mr, sum); err != nil {
+		return eventResults{}, err
+	}
+	return eventResults{effects: sum.Effects, curves: sum.Survival, steps: steps}, nil
 }
 
 // adjustmentNames lists the run's adjustments in the in-memory order.

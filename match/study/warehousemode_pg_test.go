@@ -22,7 +22,11 @@ SELECT i AS unit_id,
        3 * sin(i * 0.37) + cos(i * 2.1) AS x3,
        CASE i % 4 WHEN 0 THEN 'north' WHEN 1 THEN 'south' WHEN 2 THEN 'east' ELSE 'west' END AS region,
        2 * sin(i * 1.3) + cos(i * 0.3) AS y_cont,
-       CASE WHEN cos(i * 0.9) > 0.3 THEN 1 ELSE 0 END AS y_bin
+       CASE WHEN cos(i * 0.9) > 0.3 THEN 1 ELSE 0 END AS y_bin,
+       1 + (i * 37) % 300 + CASE WHEN sin(i * 1.3) > 0.2 THEN 40 ELSE 0 END AS fu,
+       cos(i * 0.57) > -0.2 AS ev,
+       (i * 7) % 5 AS n_ev,
+       1 + i % 12 AS expo
 FROM generate_series(1, 3000) AS g(i)`
 
 // TestWarehouseModeMatchesMemoryPostgres is TestWarehouseModeMatchesMemory
@@ -44,6 +48,8 @@ cohort:
   treatment: treated
   outcomes: [y_cont, y_bin]
   covariates: [x1, x2, x3, region]
+  time_to_event: [{name: event, time: fu, event: ev, horizons: [100, 250]}]
+  rates: [{name: rate, count: n_ev, exposure: expo}]
 score: {fit_in: %s}
 support: minmax
 matching: {algorithm: greedy, caliper: 0.2}

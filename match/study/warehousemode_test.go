@@ -40,6 +40,11 @@ func TestWarehouseModeMatchesMemory(t *testing.T) {
 		{"optimal 1:2 within regions, no weighting", []string{
 			"algorithm: greedy", "algorithm: optimal\n  controls: 2\n  exact_on: [c1]",
 			"weighting: [att, ate, overlap]", "weighting: []"}, nil},
+		{"time-to-event and rate outcomes", []string{
+			"select * from synth.cohort order by unit_id", "select * from synth.cohort_ev order by unit_id",
+			"  outcomes: [y_bin, y_cont]\n", "  outcomes: [y_bin, y_cont]\n" +
+				"  time_to_event: [{name: event, time: fu, event: ev, horizons: [180, 365]}]\n" +
+				"  rates: [{name: rate, count: n_ev, exposure: expo}]\n"}, []string{"att", "ate", "overlap"}},
 	} {
 		t.Run(tc.name, func(t *testing.T) { compareModes(t, tc.edit, tc.schemes) })
 	}
@@ -52,7 +57,7 @@ func compareModes(t *testing.T, edit, schemes []string) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if _, err := db.Exec(warehousetest.BenchCohortSQL(3000)); err != nil {
+	if _, err := db.Exec(warehousetest.BenchCohortSQL(3000) + benchEventsSQL); err != nil {
 		t.Fatal(err)
 	}
 	db.Close()

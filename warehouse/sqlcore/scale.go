@@ -239,6 +239,40 @@ func (c *Core) MatchInput(ctx context.Context, q warehouse.CohortQuery, d *wareh
 	return mi, nil
 }
 
+// UnitColumns implements warehouse.InWarehouse, rows in unit order.
+func (c *Core) UnitColumns(ctx context.Context, q warehouse.CohortQuery) ([][]float64, error) {
+	out := make([][]float64, len(q.Outcomes))
+	err := c.readOnly(ctx, q, func() error {
+		t, err := c.scaleTypes(ctx, q)
+		if err != nil {
+			return err
+		}
+		text, err := warehouse.UnitColumnsSQL(q, t.OutcomeBool)
+		if err != nil {
+			return err
+		}
+		vals := make([]float64, len(q.Outcomes))
+		dest := make([]any, len(vals))
+		for j := range vals {
+			dest[j] = &vals[j]
+		}
+		err = c.eachQuery(ctx, text, nil, dest, func() error {
+			for j, v := range vals {
+				out[j] = append(out[j], v)
+			}
+			return nil
+		})
+		if err != nil {
+			return fmt.Errorf("read outcome columns: %w", err)
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	return out, nil
+}
+
 // SampleDesign implements warehouse.Sampler with the dialect's stable
 // hash of the unit id: the same set of units on every run over the same
 // data.

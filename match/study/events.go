@@ -3,6 +3,8 @@ package study
 import (
 	"fmt"
 	"math"
+	"runtime"
+	"sync"
 
 	"counterpart/match/effect"
 	"counterpart/match/sensitivity"
@@ -87,62 +89,110 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 			}
 		}
 		_, prevalence := eventShare(ev)
-		for _, a := range adjs {
-			rows := adjustmentRows(c.Treated, a, mr)
-			d := survival.Data{Time: rows.pick(time), Treated: rows.z, Weight: rows.w, Cluster: rows.cluster}
-			d.Event = make([]bool, len(d.Time))
-			for k, v := range rows.pick(ev) {
-				d.Event[k] = v == 1
-			}
-			where := fmt.Sprintf("outcome %s (%s)", spec.Name, a.name)
-			km, err := survival.KaplanMeier(d, spec.Horizons)
-			if err != nil {
-				return nil, badInput(where, fmt.Errorf("columns %s, %s: %w; fix or exclude them in cohort.sql, or pick horizons within follow-up", spec.Time, spec.Event, err))
-			}
-			cox, err := survival.Cox(d, survival.Efron)
-			if err != nil {
-				return nil, badInput(where, err)
-			}
-			nT, nC := armCounts(rows)
-			hr := cox.Model
-			method := "weighted Cox PH (Efron ties), model-based SE"
-			switch {
-			case rows.dependent:
-				hr, method = cox.Cluster, "weighted Cox PH (Efron ties), cluster-robust SE by matched set (Lin & Wei 1989)"
-			case a.w != nil:
-				hr, method = cox.Robust, "weighted Cox PH (Efron ties), robust sandwich SE (Lin & Wei 1989)"
-			}
-			r := eventRow(spec.Name, a, effect.ContrastHazardRatio, method, nil, cox.HR, hr, nT, nC)
-			if e, ok := hazardEValue(cox.HR, hr, prevalence); ok {
-				r.EValue, r.EValueCI = Num(e[0]), Num(e[1])
-			}
-			r.PH = &PHCheck{Transform: cox.PH.Transform, ChiSq: Num(cox.PH.ChiSq), P: Num(cox.PH.P)}
-			sum.Effects = append(sum.Effects, r)
-			for _, h := range km.Horizons {
-				hz := Num(h.Time)
-				pick := func(m survival.Measure) survival.Interval {
-					if rows.dependent || a.w != nil {
-						return m.Robust
-					}
-					return m.Greenwood
-				}
-				what := "Kaplan–Meier, Greenwood SE"
-				if rows.dependent || a.w != nil {
-					what = "weighted Kaplan–Meier, influence-function (robust) SE"
-					if rows.dependent {
-						what += " clustered by matched set"
-					}
-				}
-				sum.Effects = append(sum.Effects,
-					eventRow(spec.Name, a, effect.ContrastSurvivalDifference, what, &hz, h.SurvDiff.Value, pick(h.SurvDiff), nT, nC),
-					eventRow(spec.Name, a, effect.ContrastRiskRatio, what, &hz, h.RiskRatio.Value, pick(h.RiskRatio), nT, nC),
-					eventRow(spec.Name, a, effect.ContrastRMSTDifference, what, &hz, h.RMSTDiff.Value, pick(h.RMSTDiff), nT, nC))
-			}
-			sum.Survival = append(sum.Survival, curves(spec, a.name, km, spec.Horizons[len(spec.Horizons)-1], rows.dependent || a.w != nil)...)
-			steps = append(steps, stepsOf(spec.Name, a.name, km)...)
+		parts, err := parallelAdjustments(len(adjs), func(k int) (eventPart, error) {
+			return eventAdjustment(spec, adjs[k], c.Treated, time, ev, prevalence, mr)
+		})
+		if err != nil {
+			return nil, err
+		}
+		for _, p := range parts {
+			sum.Effects = append(sum.Effects, p.effects...)
+			sum.Survival = append(sum.Survival, p.curves...)
+			steps = append(steps, p.steps...)
 		}
 	}
 	return steps, nil
+}
+
+// eventPart is one time-to-event outcome's rows under one adjustment.
+type eventPart struct {
+	effects []EffectRow
+	curves  []SurvivalCurve
+	steps   []warehouse.SurvivalStep
+}
+
+// eventAdjustment estimates one time-to-event outcome under one
+// adjustment: the Cox hazard ratio and the Kaplan–Meier horizon rows.
+func eventAdjustment(spec TimeToEventSpec, a adjustment, z []bool, time, ev []float64, prevalence float64, mr *matchedRows) (eventPart, error) {
+	var p eventPart
+	rows := adjustmentRows(z, a, mr)
+	d := survival.Data{Time: rows.pick(time), Treated: rows.z, Weight: rows.w, Cluster: rows.cluster}
+	d.Event = make([]bool, len(d.Time))
+	for k, v := range rows.pick(ev) {
+		d.Event[k] = v == 1
+	}
+	where := fmt.Sprintf("outcome %s (%s)", spec.Name, a.name)
+	km, err := survival.KaplanMeier(d, spec.Horizons)
+	if err != nil {
+		return eventPart{}, badInput(where, fmt.Errorf("columns %s, %s: %w; fix or exclude them in cohort.sql, or pick horizons within follow-up", spec.Time, spec.Event, err))
+	}
+	cox, err := survival.Cox(d, survival.Efron)
+	if err != nil {
+		return eventPart{}, badInput(where, err)
+	}
+	nT, nC := armCounts(rows)
+	hr := cox.Model
+	method := "weighted Cox PH (Efron ties), model-based SE"
+	switch {
+	case rows.dependent:
+		hr, method = cox.Cluster, "weighted Cox PH (Efron ties), cluster-robust SE by matched set (Lin & Wei 1989)"
+	case a.w != nil:
+		hr, method = cox.Robust, "weighted Cox PH (Efron ties), robust sandwich SE (Lin & Wei 1989)"
+	}
+	r := eventRow(spec.Name, a, effect.ContrastHazardRatio, method, nil, cox.HR, hr, nT, nC)
+	if e, ok := hazardEValue(cox.HR, hr, prevalence); ok {
+		r.EValue, r.EValueCI = Num(e[0]), Num(e[1])
+	}
+	r.PH = &PHCheck{Transform: cox.PH.Transform, ChiSq: Num(cox.PH.ChiSq), P: Num(cox.PH.P)}
+	p.effects = append(p.effects, r)
+	for _, h := range km.Horizons {
+		hz := Num(h.Time)
+		pick := func(m survival.Measure) survival.Interval {
+			if rows.dependent || a.w != nil {
+				return m.Robust
+			}
+			return m.Greenwood
+		}
+		what := "Kaplan–Meier, Greenwood SE"
+		if rows.dependent || a.w != nil {
+			what = "weighted Kaplan–Meier, influence-function (robust) SE"
+			if rows.dependent {
+				what += " clustered by matched set"
+			}
+		}
+		p.effects = append(p.effects,
+			eventRow(spec.Name, a, effect.ContrastSurvivalDifference, what, &hz, h.SurvDiff.Value, pick(h.SurvDiff), nT, nC),
+			eventRow(spec.Name, a, effect.ContrastRiskRatio, what, &hz, h.RiskRatio.Value, pick(h.RiskRatio), nT, nC),
+			eventRow(spec.Name, a, effect.ContrastRMSTDifference, what, &hz, h.RMSTDiff.Value, pick(h.RMSTDiff), nT, nC))
+	}
+	p.curves = append(p.curves, curves(spec, a.name, km, spec.Horizons[len(spec.Horizons)-1], rows.dependent || a.w != nil)...)
+	p.steps = stepsOf(spec.Name, a.name, km)
+	return p, nil
+}
+
+// parallelAdjustments runs f for every adjustment on up to GOMAXPROCS
+// goroutines and returns the results in adjustment order (the first
+// error, in that order, wins), so the rows do not depend on scheduling.
+func parallelAdjustments[T any](n int, f func(k int) (T, error)) ([]T, error) {
+	out := make([]T, n)
+	errs := make([]error, n)
+	sem := make(chan struct{}, runtime.GOMAXPROCS(0))
+	var wg sync.WaitGroup
+	for k := 0; k < n; k++ {
+		wg.Add(1)
+		sem <- struct{}{}
+		go func() {
+			defer func() { <-sem; wg.Done() }()
+			out[k], errs[k] = f(k)
+		}()
+	}
+	wg.Wait()
+	for _, err := range errs {
+		if err != nil {
+			return nil, err
+		}
+	}
+	return out, nil
 }
 
 // estimateRates adds the rate ratio and rate difference of every rate
@@ -151,12 +201,13 @@ func estimateEvents(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matched
 func estimateRates(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, sum *Summary) error {
 	for _, spec := range s.Cohort.Rates {
 		count, exposure := column(c, spec.Count), column(c, spec.Exposure)
-		for _, a := range adjs {
+		parts, err := parallelAdjustments(len(adjs), func(k int) ([]EffectRow, error) {
+			a := adjs[k]
 			rows := adjustmentRows(c.Treated, a, mr)
 			d := survival.RateData{Count: rows.pick(count), Exposure: rows.pick(exposure), Treated: rows.z, Weight: rows.w, Cluster: rows.cluster}
 			fit, err := survival.Rates(d, effect.RatePer)
 			if err != nil {
-				return badInput(fmt.Sprintf("outcome %s (%s): columns %s, %s", spec.Name, a.name, spec.Count, spec.Exposure), fmt.Errorf("%w; fix or exclude them in cohort.sql", err))
+				return nil, badInput(fmt.Sprintf("outcome %s (%s): columns %s, %s", spec.Name, a.name, spec.Count, spec.Exposure), fmt.Errorf("%w; fix or exclude them in cohort.sql", err))
 			}
 			nT, nC := armCounts(rows)
 			rr, rd := fit.HC0, fit.DiffHC0
@@ -169,8 +220,14 @@ func estimateRates(s *Spec, c *warehouse.Cohort, adjs []adjustment, mr *matchedR
 			if e, ok := rateEValue(fit.RateRatio, rr); ok {
 				r.EValue, r.EValueCI = Num(e[0]), Num(e[1])
 			}
-			sum.Effects = append(sum.Effects, r,
-				eventRow(spec.Name, a, effect.ContrastRateDifference, fmt.Sprintf("weighted rate difference per %d exposure units, sandwich SE", effect.RatePer), nil, fit.Diff, rd, nT, nC))
+			return []EffectRow{r, eventRow(spec.Name, a, effect.ContrastRateDifference,
+				fmt.Sprintf("weighted rate difference per %d exposure units, sandwich SE", effect.RatePer), nil, fit.Diff, rd, nT, nC)}, nil
+		})
+		if err != nil {
+			return err
+		}
+		for _, p := range parts {
+			sum.Effects = append(sum.Effects, p...)
 		}
 	}
 	return nil
@@ -185,19 +242,24 @@ func eventRow(outcome string, a adjustment, contrast, method string, horizon *Nu
 
 // armCounts counts the distinct units with positive weight per arm.
 func armCounts(r rowsOf) (nT, nC int) {
-	seen := map[int]bool{}
+	var seen []bool
+	if r.unit != nil {
+		n := 0
+		for _, u := range r.unit {
+			n = max(n, u+1)
+		}
+		seen = make([]bool, n)
+	}
 	for k, t := range r.z {
 		if r.w != nil && !(r.w[k] > 0) {
 			continue
 		}
-		u := k
-		if r.unit != nil {
-			u = r.unit[k]
+		if seen != nil {
+			if seen[r.unit[k]] {
+				continue
+			}
+			seen[r.unit[k]] = true
 		}
-		if seen[u] {
-			continue
-		}
-		seen[u] = true
 		if t {
 			nT++
 		} else {

@@ -47,6 +47,9 @@ type Warehouse interface {
 	// FailRun marks a started run as failed with a message (best effort;
 	// it runs after an error).
 	FailRun(ctx context.Context, out Output, runID, message string) error
+	// CancelRun marks a started run as cancelled (a signal stopped it),
+	// best effort, like FailRun.
+	CancelRun(ctx context.Context, out Output, runID, message string) error
 	// Runs returns the runs rows newest first (by started_at, then
 	// run_id), at most limit of them (limit <= 0: all). No runs table
 	// yet gives none.
@@ -78,6 +81,10 @@ var (
 	ErrBadInput = errors.New("bad input")
 	// ErrLocked marks a lock held by another run of the same study: exit 4.
 	ErrLocked = errors.New("another run holds the lock")
+	// ErrBusy marks a warehouse another process holds (a DuckDB file open
+	// elsewhere): its own exit code, so a scheduler does not take it for
+	// "this study is already running".
+	ErrBusy = errors.New("warehouse busy (another process holds the file)")
 )
 
 // CohortQuery says how to read the cohort.
@@ -235,6 +242,9 @@ const (
 	// StatusAbandoned marks a run left "running" by a process that died:
 	// the next StartRun of the study, which holds the lock, sets it.
 	StatusAbandoned = "abandoned"
+	// StatusCancelled marks a run a signal (SIGTERM, SIGINT) stopped; its
+	// rows were rolled back.
+	StatusCancelled = "cancelled"
 )
 
 // RunRecord is one row of {prefix}runs. JSON fields hold encoded JSON text.

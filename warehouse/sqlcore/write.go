@@ -441,6 +441,16 @@ func (c *Core) insertEffects(ctx context.Context, o *warehouse.Objects, runID st
 // updates in a transaction of its own. A run that is no longer running (it
 // was published) keeps its status and FailRun says so.
 func (c *Core) FailRun(ctx context.Context, out warehouse.Output, runID, message string) error {
+	return c.endRun(ctx, out, runID, message, warehouse.StatusFailed)
+}
+
+// CancelRun implements warehouse.Warehouse.
+func (c *Core) CancelRun(ctx context.Context, out warehouse.Output, runID, message string) error {
+	return c.endRun(ctx, out, runID, message, warehouse.StatusCancelled)
+}
+
+// endRun gives a running run its final failed or cancelled status.
+func (c *Core) endRun(ctx context.Context, out warehouse.Output, runID, message, status string) error {
 	if err := c.writable(); err != nil {
 		return err
 	}
@@ -456,12 +466,12 @@ func (c *Core) FailRun(ctx context.Context, out warehouse.Output, runID, message
 		message = c.D.Scrub(message)
 	}
 	q := c.Render("fail_run.sql", map[string]string{"Runs": warehouse.QuoteQualified(out.Schema, runs)})
-	k, err := c.Exec(ctx, "fail run "+runID, q, runID, time.Now().UTC(), message)
+	k, err := c.Exec(ctx, status+" run "+runID, q, runID, time.Now().UTC(), message, status)
 	if err != nil {
 		return err
 	}
 	if k == 0 {
-		return fmt.Errorf("fail run %s: no running run with that id in %s.%s", runID, out.Schema, runs)
+		return fmt.Errorf("mark run %s %s: no running run with that id in %s.%s", runID, status, out.Schema, runs)
 	}
 	return nil
 }

@@ -34,7 +34,7 @@ func retain(t *testing.T, w *Warehouse, status string) ([]any, error) {
 		return ids, err
 	}
 	q := w.Render("retention.sql", map[string]string{"Table": `"main"."child"`, "Params": warehouse.Placeholders(len(ids))})
-	_, err = w.conn.ExecContext(ctx, q, ids...)
+	_, err = w.testConn(t).ExecContext(ctx, q, ids...)
 	return ids, err
 }
 

@@ -64,7 +64,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		StartedAt: started.UTC(),
 	}
 	r := &run{s: s, wh: wh, opt: opt, sum: sum, clock: &clock{now: now, onStage: opt.Stage, lap: started, sum: sum}}
-	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns}
+	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays}
 	if !opt.DryRun {
 		unlock, err := wh.Lock(ctx, r.out)
 		if err != nil {

@@ -139,7 +139,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	}
 
 	clk.stage("publish")
-	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays,
 		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes(),
 		TimeToEvent: len(s.Cohort.TimeToEvent) > 0}
 	for i, k := range d.CovKinds(q) {

@@ -91,14 +91,15 @@ var dialect = &sqlcore.Dialect{
 	Err:        func(err error) error { return sqlcore.Flat(sqlcore.OneLine(err), err) },
 	QueryErr:   queryError,
 	// DuckDB cannot alter or drop a constraint, so a runs table from
-	// before the abandoned status is rebuilt (Core.RebuildRuns).
+	// before the abandoned or cancelled status is rebuilt
+	// (Core.RebuildRuns); the newest status tells an up-to-date check.
 	StatusCheck: func(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 		var expr *string
 		found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &expr)
 		if err != nil {
 			return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, err)
 		}
-		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusAbandoned)) {
+		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusCancelled)) {
 			return nil
 		}
 		return c.RebuildRuns(ctx, o)

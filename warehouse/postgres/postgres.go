@@ -68,15 +68,15 @@ func (w *Warehouse) dialect() *sqlcore.Dialect {
 }
 
 // statusCheck drops and adds again, under its name and in the open
-// transaction, a runs table's status check from before the abandoned
-// status.
+// transaction, a runs table's status check from before the abandoned or
+// cancelled status (the newest status tells an up-to-date check).
 func statusCheck(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 	var name, def string
 	found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &name, &def)
 	if err != nil {
 		return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, err)
 	}
-	if !found || strings.Contains(def, warehouse.StatusAbandoned) {
+	if !found || strings.Contains(def, warehouse.StatusCancelled) {
 		return nil
 	}
 	q := fmt.Sprintf("ALTER TABLE %s DROP CONSTRAINT %s, ADD CONSTRAINT %s %s", o.Runs, warehouse.Quote(name), warehouse.Quote(name), sqlcore.StatusCheckExpr())

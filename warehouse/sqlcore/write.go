@@ -77,7 +77,7 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 	// belongs to a process that died.
 	runs := map[string]string{"Runs": o.Runs}
 	if _, err := c.Exec(ctx, "mark abandoned runs in "+o.C.Runs.Name, c.Render("abandon_runs.sql", runs),
-		run.Study, run.RunID, started, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
+		run.Study, run.RunID, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
 		return err
 	}
 	engine := run.Engine
@@ -182,7 +182,7 @@ func (c *Core) RebuildRuns(ctx context.Context, o *warehouse.Objects) error {
 	qtmp, list := warehouse.QuoteQualified(o.C.Schema, tmp.Name), strings.Join(cols, ", ")
 	for _, stmt := range []string{"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
 		"DROP TABLE " + o.Runs, "ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name)} {
-		if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the abandoned status", stmt); err != nil {
+		if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the current statuses", stmt); err != nil {
 			return err
 		}
 	}
@@ -368,8 +368,8 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 	if err := c.step("effects"); err != nil {
 		return err
 	}
-	if out.KeepRuns > 0 {
-		if err := c.retain(ctx, o, r.RunID, out.KeepRuns); err != nil {
+	if out.KeepRuns > 0 || out.KeepFailedDays > 0 {
+		if err := c.retain(ctx, o, r.RunID, out); err != nil {
 			return err
 		}
 		if err := c.step("retention"); err != nil {
@@ -387,12 +387,31 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 			return err
 		}
 	}
-	return c.step("views")
+	if err := c.step("views"); err != nil {
+		return err
+	}
+	return c.stampFinished(ctx, o, p)
+}
+
+// stampFinished sets the run's finished_at as the last statement before
+// COMMIT, so that it is the end of the run and its duration in the runs
+// table includes writing the tables; p.Run.FinishedAt gets the same
+// time, for the run's summary.
+func (c *Core) stampFinished(ctx context.Context, o *warehouse.Objects, p *warehouse.Publication) error {
+	// Both engines keep microseconds: the summary then shows the stored
+	// value exactly.
+	end := time.Now().UTC().Truncate(time.Microsecond)
+	q := "UPDATE " + o.Runs + " SET finished_at = $2 WHERE run_id = $1"
+	if _, err := c.Exec(ctx, "stamp the end of run "+p.Run.RunID, q, p.Run.RunID, end); err != nil {
+		return err
+	}
+	p.Run.FinishedAt = end
+	return nil
 }
 
 // retain deletes the runs retention expires, child tables first.
-func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, keep int) error {
-	ids, err := c.ExpiredRuns(ctx, o, runID, keep)
+func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, out warehouse.Output) error {
+	ids, err := c.ExpiredRuns(ctx, o, runID, out.KeepRuns, out.KeepFailedDays)
 	if err != nil || len(ids) == 0 {
 		return err
 	}
@@ -407,11 +426,18 @@ func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, k
 }
 
 // ExpiredRuns lists the runs retention deletes (expired_runs.sql), as
-// bound values for retention.sql.
-func (c *Core) ExpiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep int) ([]any, error) {
+// bound values for retention.sql: succeeded runs beyond the newest keep
+// (0: none), other finished runs started more than keepDays days ago (0:
+// none). Failures do not count against keep, so a few crashed nights
+// never push out the succeeded runs a study keeps.
+func (c *Core) ExpiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep, keepDays int) ([]any, error) {
 	var ids []any
 	var id string
-	err := c.Each(ctx, c.Render("expired_runs.sql", map[string]string{"Runs": o.Runs}), []any{runID, keep}, []any{&id}, func() error {
+	var cutoff any // NULL: no age limit
+	if keepDays > 0 {
+		cutoff = time.Now().UTC().AddDate(0, 0, -keepDays)
+	}
+	err := c.Each(ctx, c.Render("expired_runs.sql", map[string]string{"Runs": o.Runs}), []any{runID, int64(keep), cutoff}, []any{&id}, func() error {
 		ids = append(ids, id)
 		return nil
 	})

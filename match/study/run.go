@@ -188,6 +188,8 @@ func (r *run) publish(ctx context.Context, res *results) error {
 	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
 		return failPublish(r.wh, r.out, sum, err)
 	}
+	// The runs row's finish time is the end of the publish transaction.
+	sum.FinishedAt = pub.Run.FinishedAt
 	r.timed("publish")
 	return finishRun(sum)
 }

@@ -197,7 +197,12 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	if err := tx.Finish(ctx, pub); err != nil {
 		return fmt.Errorf("run %s: %w", sum.RunID, err)
 	}
-	return tx.Commit(ctx)
+	if err := tx.Commit(ctx); err != nil {
+		return err
+	}
+	// The runs row's finish time is the end of the publish transaction.
+	sum.FinishedAt = pub.Run.FinishedAt
+	return nil
 }
 
 func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }

@@ -432,6 +432,9 @@ func TestCommentsAndTypes(t *testing.T) {
 	if err := w.StartRun(ctx, out, rec); err != nil {
 		t.Fatal(err)
 	}
+	if err := w.CreateObjects(ctx, out); err != nil {
+		t.Fatal(err)
+	}
 	if got := queryRows(t, w, "SELECT table_name, column_name FROM duckdb_columns() WHERE table_name LIKE 'st_%' AND (comment IS NULL OR comment = '') AND table_name NOT LIKE 'st_current_%'"); len(got) > 0 {
 		t.Errorf("columns without a comment: %v", got)
 	}
@@ -474,6 +477,9 @@ func TestBalanceViewShapes(t *testing.T) {
 		w := openTemp(t)
 		out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr", Covariates: covs}
 		if err := w.StartRun(context.Background(), out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
+			t.Fatal(err)
+		}
+		if err := w.CreateObjects(context.Background(), out); err != nil {
 			t.Fatal(err)
 		}
 		got := queryRows(t, w, "SELECT column_name FROM duckdb_columns() WHERE table_name = 'st_balance_history' ORDER BY column_index")

@@ -12,12 +12,12 @@ import (
 	"counterpart/warehouse"
 )
 
-// StartRun checks that the output schema exists, creates the contract's
-// tables (adding columns a table lacks: a new covariate, outcome or
-// scheme) and the current views, creates the balance views when absent,
-// and commits the runs row with status running, all in one transaction.
-// A column whose existing type differs from what the study needs is an
-// error wrapping ErrBadInput. The caller names the step.
+// StartRun checks that the output schema exists, creates the runs table
+// when absent (or brings it up to date) and commits the runs row with
+// status running, in one transaction. The other tables and the views are
+// created by the publishing transaction (ensureObjects), so that a first
+// run killed before its commit leaves only its runs row, which the next
+// run marks abandoned. The caller names the step.
 func (c *Core) StartRun(ctx context.Context, out warehouse.Output, run warehouse.RunRecord) error {
 	if err := c.writable(); err != nil {
 		return err
@@ -41,33 +41,11 @@ func (c *Core) StartRun(ctx context.Context, out warehouse.Output, run warehouse
 }
 
 func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse.Output, run warehouse.RunRecord) error {
-	for _, t := range o.C.Tables() {
-		if err := c.EnsureTable(ctx, o.C.Schema, t, t == &o.C.Runs); err != nil {
-			return err
-		}
-	}
-	if err := c.currentViews(ctx, o); err != nil {
+	if err := c.EnsureTable(ctx, o.C.Schema, &o.C.Runs, true); err != nil {
 		return err
-	}
-	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
-		if ok, err := c.viewExists(ctx, o, v); err != nil {
-			return err
-		} else if !ok {
-			if err := c.balanceViews(ctx, o, out); err != nil {
-				return err
-			}
-			break
-		}
 	}
 	if err := c.D.StatusCheck(ctx, c, o); err != nil {
 		return err
-	}
-	if ok, err := c.viewExists(ctx, o, o.C.Analysis); err != nil {
-		return err
-	} else if !ok {
-		if err := c.analysisView(ctx, o); err != nil {
-			return err
-		}
 	}
 	started := run.StartedAt
 	if started.IsZero() {
@@ -90,6 +68,62 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
 		engine, nullText(run.DBUser), nullText(run.Message), nullText(run.SummaryJSON))
 	return err
+}
+
+// ensureObjects creates, inside the open publishing transaction, the
+// contract's tables (adding columns a table lacks: a new covariate,
+// outcome or scheme), the engine's run_id indexes, the current views, and
+// the balance and analysis views when absent. A column whose existing
+// type differs from what the study needs is an error wrapping
+// ErrBadInput.
+func (c *Core) ensureObjects(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
+	for _, t := range o.C.Tables() {
+		if t == &o.C.Runs {
+			continue
+		}
+		if err := c.EnsureTable(ctx, o.C.Schema, t, false); err != nil {
+			return err
+		}
+		if c.D.RunIndex != nil {
+			q := c.D.RunIndex(o.C.Schema, t.Name)
+			if _, err := c.Exec(ctx, "index "+t.Name+" by run_id", q); err != nil {
+				return err
+			}
+		}
+	}
+	if err := c.currentViews(ctx, o); err != nil {
+		return err
+	}
+	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
+		if ok, err := c.viewExists(ctx, o, v); err != nil {
+			return err
+		} else if !ok {
+			if err := c.balanceViews(ctx, o, out); err != nil {
+				return err
+			}
+			break
+		}
+	}
+	if ok, err := c.viewExists(ctx, o, o.C.Analysis); err != nil {
+		return err
+	} else if !ok {
+		return c.analysisView(ctx, o)
+	}
+	return nil
+}
+
+// CreateObjects is what the publishing transaction creates
+// (ensureObjects), committed on its own: for tests and tools that look
+// at the objects without publishing a run.
+func (c *Core) CreateObjects(ctx context.Context, out warehouse.Output) error {
+	if err := c.writable(); err != nil {
+		return err
+	}
+	o, err := warehouse.NewObjects(out)
+	if err != nil {
+		return err
+	}
+	return c.tx(ctx, func() error { return c.ensureObjects(ctx, o, out) })
 }
 
 func (c *Core) viewExists(ctx context.Context, o *warehouse.Objects, view string) (bool, error) {
@@ -315,7 +349,10 @@ func (c *Core) Publish(ctx context.Context, out warehouse.Output, p *warehouse.P
 	if _, err := c.Exec(ctx, "begin", "BEGIN TRANSACTION"); err != nil {
 		return err
 	}
-	err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
+	err = c.ensureObjects(ctx, o, out)
+	if err == nil {
+		err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
+	}
 	if err == nil {
 		err = c.commit(ctx)
 	}

@@ -22,10 +22,10 @@ import (
 	"counterpart/match/study"
 	"counterpart/match/weights"
 	"counterpart/warehouse"
-	"counterpart/warehouse/sqlcore"
 	"counterpart/warehouse/duckdb"
 	"counterpart/warehouse/postgres"
 	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/sqlcore"
 )
 
 // dataset is a scratch table: column names and SQL types, rows as text.

@@ -109,3 +109,23 @@ func BenchmarkBalanceView1M(b *testing.B) {
 	}
 	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/query")
 }
+
+// BenchmarkDashboard1M: warehousetest.DashboardQuery over keep_runs 10
+// retained runs (COUNTERPART_BENCH_UNITS units, default 1M). There is no
+// index: each run's rows fill row groups of their own and the zone maps
+// of run_id skip the other runs' groups.
+func BenchmarkDashboard1M(b *testing.B) {
+	w := openTemp(b)
+	warehousetest.PrepareDashboard(b, w, "main", 10)
+	ctx := context.Background()
+	warehousetest.BenchDashboard(b, func(q string) error {
+		rows, err := w.testConn(b).QueryContext(ctx, q)
+		if err != nil {
+			return err
+		}
+		for rows.Next() {
+		}
+		rows.Close()
+		return rows.Err()
+	})
+}

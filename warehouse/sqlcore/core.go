@@ -89,6 +89,9 @@ type Core struct {
 	// Fault, when set by a test, is called at each step of Publish; a
 	// non-nil return fails the publish there (checks the rollback).
 	Fault func(step string) error
+	// stale says the open publishing transaction changed a table, so
+	// that the balance and analysis views are rebuilt (ensureObjects).
+	stale bool
 }
 
 var (

@@ -72,18 +72,26 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 
 // ensureObjects creates, inside the open publishing transaction, the
 // contract's tables (adding columns a table lacks: a new covariate,
-// outcome or scheme), the engine's run_id indexes, the current views, and
-// the balance and analysis views when absent. A column whose existing
-// type differs from what the study needs is an error wrapping
-// ErrBadInput.
+// outcome or scheme), the engine's run_id indexes, and the views that
+// are absent. Views are replaced only when a table changed (c.stale then
+// tells finish to rebuild the balance and analysis views): replacing a
+// view takes an exclusive lock on it, and on Postgres a dashboard query
+// holding one current view while waiting for another deadlocked with a
+// publish that replaced them one by one. An unchanged view needs no
+// replacing: the current views find the latest succeeded run when
+// queried. A column whose existing type differs from what the study
+// needs is an error wrapping ErrBadInput.
 func (c *Core) ensureObjects(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
+	c.stale = false
 	for _, t := range o.C.Tables() {
 		if t == &o.C.Runs {
 			continue
 		}
-		if err := c.EnsureTable(ctx, o.C.Schema, t, false); err != nil {
+		changed, err := c.ensureTable(ctx, o.C.Schema, t, false)
+		if err != nil {
 			return err
 		}
+		c.stale = c.stale || changed
 		if c.D.RunIndex != nil {
 			q := c.D.RunIndex(o.C.Schema, t.Name)
 			if _, err := c.Exec(ctx, "index "+t.Name+" by run_id", q); err != nil {
@@ -91,8 +99,21 @@ func (c *Core) ensureObjects(ctx context.Context, o *warehouse.Objects, out ware
 			}
 		}
 	}
-	if err := c.currentViews(ctx, o); err != nil {
-		return err
+	current := c.stale
+	for _, v := range []string{o.C.CurrentCohort, o.C.CurrentScores, o.C.CurrentMatches, o.C.CurrentWeights, o.C.CurrentEffects, o.C.CurrentSurvival} {
+		if v == "" || current {
+			continue
+		}
+		ok, err := c.viewExists(ctx, o, v)
+		if err != nil {
+			return err
+		}
+		current = !ok
+	}
+	if current {
+		if err := c.currentViews(ctx, o); err != nil {
+			return err
+		}
 	}
 	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
 		if ok, err := c.viewExists(ctx, o, v); err != nil {
@@ -143,10 +164,17 @@ type tableCol struct {
 // EnsureTable creates t or adds the columns it lacks. The runs table gets
 // its key and the check on status.
 func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) error {
+	_, err := c.ensureTable(ctx, schema, t, runs)
+	return err
+}
+
+// ensureTable is EnsureTable, saying whether it created the table or
+// added a column.
+func (c *Core) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) (changed bool, err error) {
 	qt := warehouse.QuoteQualified(schema, t.Name)
 	existing, err := c.tableColumns(ctx, schema, t.Name)
 	if err != nil {
-		return err
+		return false, err
 	}
 	if len(existing) == 0 {
 		data := struct {
@@ -166,7 +194,7 @@ func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Tabl
 			data.Checks = []string{StatusCheckExpr()}
 		}
 		_, err := c.Exec(ctx, "create table "+t.Name, c.Render("create_table.sql", data))
-		return err
+		return true, err
 	}
 	reported := c.D.Reported
 	if reported == nil {
@@ -177,16 +205,17 @@ func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Tabl
 		if !ok {
 			data := struct{ Table, Name, Type, ColComment string }{qt, warehouse.Quote(col.Name), c.D.Types[col.Type], col.Comment}
 			if _, err := c.Exec(ctx, fmt.Sprintf("add column %s to table %s", col.Name, t.Name), c.Render("add_column.sql", data)); err != nil {
-				return err
+				return false, err
 			}
+			changed = true
 			continue
 		}
 		if have != reported[col.Type] {
-			return fmt.Errorf("%w: column %s of existing table %s.%s has type %s but the study needs %s; rename the column in cohort.sql or move the old table away",
+			return false, fmt.Errorf("%w: column %s of existing table %s.%s has type %s but the study needs %s; rename the column in cohort.sql or move the old table away",
 				warehouse.ErrBadInput, col.Name, schema, t.Name, have, c.D.Types[col.Type])
 		}
 	}
-	return nil
+	return changed, nil
 }
 
 // StatusCheckExpr is the runs table's CHECK on status.
@@ -413,10 +442,10 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 			return err
 		}
 	}
-	if err := c.currentViews(ctx, o); err != nil {
-		return err
-	}
-	if r.Status == warehouse.StatusSucceeded {
+	// A changed table (a new covariate or scheme, whatever the run's
+	// status) gets views over its new columns; a covariate the current
+	// run lacks has no rows there.
+	if c.stale {
 		if err := c.balanceViews(ctx, o, out); err != nil {
 			return err
 		}

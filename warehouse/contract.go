@@ -239,7 +239,7 @@ func NewContract(out Output) (*Contract, error) {
 }
 
 // Statuses lists every status the runs table accepts.
-var Statuses = []string{StatusRunning, StatusSucceeded, StatusRejected, StatusFailed, StatusSkipped, StatusAbandoned}
+var Statuses = []string{StatusRunning, StatusSucceeded, StatusRejected, StatusFailed, StatusSkipped, StatusAbandoned, StatusCancelled}
 
 // Objects holds a contract and the quoted, schema-qualified names of its
 // tables, as the engines' statements use them.

@@ -6,6 +6,7 @@ import (
 	"slices"
 	"strings"
 	"sync"
+	"time"
 )
 
 // Engine describes one engine to the registry: engines register
@@ -33,6 +34,17 @@ type Engine struct {
 type OpenOptions struct {
 	ReadOnly bool
 	Study    string
+	// Wait is how long an engine whose database another process can hold
+	// (a DuckDB file) retries opening it before giving up with ErrBusy;
+	// 0 gives up at once.
+	Wait time.Duration
+	// OnBusy, when set, is told once per open that the database is busy
+	// and that the engine waits up to wait (the run's log line).
+	OnBusy func(err error, wait time.Duration)
+	// NoExternalAccess keeps the engine's SQL from reading or writing
+	// files and URLs outside the database (warehouse.external_access:
+	// false; DuckDB's enable_external_access).
+	NoExternalAccess bool
 }
 
 var (

@@ -222,8 +222,11 @@ type Output struct {
 	// TimeToEvent says the study has time-to-event outcomes: the
 	// survival table and its current view exist.
 	TimeToEvent bool
-	// KeepRuns, when > 0, is how many runs to keep (retention).
+	// KeepRuns, when > 0, is how many succeeded runs to keep (retention).
 	KeepRuns int
+	// KeepFailedDays, when > 0, is how many days the runs that did not
+	// succeed are kept, counted from their start.
+	KeepFailedDays int
 }
 
 // CovariateMeta describes a covariate without its values.

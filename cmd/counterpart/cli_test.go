@@ -82,7 +82,7 @@ func TestRunJSONAndDryRun(t *testing.T) {
 func TestHelpListsExitCodes(t *testing.T) {
 	var out, errb bytes.Buffer
 	run(context.Background(), []string{"counterpart", "--help"}, &out, &errb)
-	for _, want := range []string{"EXIT CODES", "3  balance gate rejected", "4  another run"} {
+	for _, want := range []string{"EXIT CODES", "3  balance gate rejected", "4  another run", "7  warehouse busy"} {
 		if !strings.Contains(out.String(), want) {
 			t.Errorf("--help lacks %q", want)
 		}

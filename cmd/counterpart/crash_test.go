@@ -139,7 +139,10 @@ func TestCrashSafety(t *testing.T) {
 			landed, early, late := 0, 0, 0
 			prev, _, _ := currentRun(t, e, dsn)
 			for attempt := 0; landed < crashKills; attempt++ {
-				if attempt == 3*crashKills {
+				// The running window is shorter than the publish stage:
+				// on DuckDB the stage also opens the file and checkpoints
+				// it on close, after the commit. Allow more misses.
+				if attempt == 6*crashKills {
 					t.Fatalf("only %d of %d attempts killed a run inside publish (%d early, %d late)", landed, attempt, early, late)
 				}
 				delay := offset + time.Duration(r.Float64()*float64(publish))

@@ -15,6 +15,7 @@ import (
 	"path/filepath"
 	"strings"
 	"syscall"
+	"time"
 
 	"github.com/urfave/cli/v2"
 	"golang.org/x/term"
@@ -35,6 +36,7 @@ const (
 	exitRejected  = 3
 	exitLocked    = 4
 	exitUnchanged = 5
+	exitBusy      = 7
 )
 
 const exitHelp = `EXIT CODES:
@@ -43,7 +45,8 @@ const exitHelp = `EXIT CODES:
    2  bad study file or bad input data (nothing written)
    3  balance gate rejected the run (recorded as rejected; current views untouched)
    4  another run of the same study holds the lock
-   5  skipped: nothing changed since the last succeeded run (when asked for)`
+   5  skipped: nothing changed since the last succeeded run (when asked for)
+   7  warehouse busy: another process holds the DuckDB file (retry later, or --wait)`
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
@@ -91,12 +94,16 @@ func newApp(ctx context.Context, code *int, stdout, stderr io.Writer) *cli.App {
 					&cli.BoolFlag{Name: "json", Usage: "print a machine-readable summary on stdout"},
 					&cli.StringFlag{Name: "report", Usage: "also write the HTML report of this run to `FILE`"},
 					&cli.BoolFlag{Name: "skip-unchanged", Usage: "exit 5 without writing when the cohort and study are unchanged since the last succeeded run"},
+					&cli.DurationFlag{Name: "wait", Usage: "when another process holds the warehouse file, retry for up to `DURATION` (e.g. 10m) before exiting 7"},
 				},
 				Action: func(c *cli.Context) error {
 					if c.NArg() != 1 {
 						return usageError("run takes one study file: counterpart run STUDY.yaml")
 					}
-					f := runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report"), logFormat: c.String("log-format"), skip: c.Bool("skip-unchanged")}
+					f := runFlags{dry: c.Bool("dry-run"), json: c.Bool("json"), report: c.String("report"), logFormat: c.String("log-format"), skip: c.Bool("skip-unchanged"), wait: c.Duration("wait")}
+					if f.wait < 0 {
+						return usageError(fmt.Sprintf("--wait %s: give a duration >= 0", f.wait))
+					}
 					if f.logFormat != "" && f.logFormat != "text" && f.logFormat != "json" {
 						return usageError(fmt.Sprintf("--log-format %q: use text or json", f.logFormat))
 					}
@@ -137,6 +144,8 @@ func exitCode(err error) int {
 		return exitOK
 	case errors.Is(err, warehouse.ErrLocked):
 		return exitLocked
+	case errors.Is(err, warehouse.ErrBusy):
+		return exitBusy
 	case errors.Is(err, study.ErrRejected):
 		return exitRejected
 	case errors.Is(err, study.ErrUnchanged):
@@ -161,6 +170,8 @@ type runFlags struct {
 	dry, json, skip bool
 	report          string
 	logFormat       string
+	// wait is how long a busy warehouse is retried (--wait).
+	wait time.Duration
 }
 
 // fail prints an error as the one stderr line schedulers read (a JSON
@@ -190,7 +201,16 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 	dry, asJSON := f.dry, f.json
 	tty := isTTY(stderr)
 	log := newLogger(f.logFormat, stderr, tty)
-	wh, err := study.Open(ctx, spec, dry)
+	wh, err := study.OpenWith(ctx, spec, warehouse.OpenOptions{ReadOnly: dry, Wait: f.wait,
+		OnBusy: func(err error, wait time.Duration) {
+			// Said even with logging off: a scheduler's log should show
+			// why the run started late.
+			if !log.Enabled(ctx, slog.LevelWarn) {
+				fmt.Fprintf(stderr, "counterpart: warehouse busy, waiting up to %s: %s\n", wait, oneLine(err.Error()))
+				return
+			}
+			log.Warn("warehouse busy, waiting", "study", spec.Study, "wait", wait.String(), "error", oneLine(err.Error()))
+		}})
 	if err != nil {
 		return fail(stderr, f.logFormat, err)
 	}

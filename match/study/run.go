@@ -64,7 +64,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 		StartedAt: started.UTC(),
 	}
 	r := &run{s: s, wh: wh, opt: opt, sum: sum, clock: &clock{now: now, onStage: opt.Stage, lap: started, sum: sum}}
-	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns}
+	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays}
 	if !opt.DryRun {
 		unlock, err := wh.Lock(ctx, r.out)
 		if err != nil {
@@ -188,6 +188,8 @@ func (r *run) publish(ctx context.Context, res *results) error {
 	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
 		return failPublish(r.wh, r.out, sum, err)
 	}
+	// The runs row's finish time is the end of the publish transaction.
+	sum.FinishedAt = pub.Run.FinishedAt
 	r.timed("publish")
 	return finishRun(sum)
 }

@@ -49,7 +49,15 @@ type Spec struct {
 type WarehouseSpec struct {
 	Engine string `yaml:"engine" json:"engine"`
 	DSN    string `yaml:"dsn" json:"dsn"`
+	// ExternalAccess false keeps the cohort query (and every statement of
+	// the run) from reading files and URLs of the host: DuckDB's
+	// enable_external_access. Absent means true: reading Parquet and CSV
+	// is what most studies want.
+	ExternalAccess *bool `yaml:"external_access" json:"external_access,omitempty"`
 }
+
+// NoExternalAccess says warehouse.external_access is false.
+func (w WarehouseSpec) NoExternalAccess() bool { return w.ExternalAccess != nil && !*w.ExternalAccess }
 
 // CohortSpec says how to read the cohort.
 type CohortSpec struct {
@@ -182,6 +190,10 @@ type OutputSpec struct {
 	Schema   string `yaml:"schema" json:"schema"`
 	Prefix   string `yaml:"prefix" json:"prefix"`
 	KeepRuns int    `yaml:"keep_runs" json:"keep_runs"`
+	// KeepFailedDays is how many days the rows of runs that did not
+	// succeed (failed, rejected, cancelled, abandoned, skipped) are kept;
+	// keep_runs counts succeeded runs only. 0 keeps them all.
+	KeepFailedDays int `yaml:"keep_failed_days" json:"keep_failed_days"`
 	// Report, when set, is an HTML report file written after every run
 	// (relative paths are relative to the study file).
 	Report string `yaml:"report" json:"report,omitempty"`
@@ -210,6 +222,8 @@ const (
 	DefaultCaliper  = 0.2
 	DefaultSeed     = 20261201
 	DefaultKeepRuns = 30
+	// DefaultKeepFailedDays keeps a month of failures to look into.
+	DefaultKeepFailedDays = 30
 )
 
 // Known values of the enumerated keys.
@@ -279,7 +293,7 @@ func Parse(path string, b []byte, lookup func(string) (string, bool)) (*Spec, er
 	if err := expandEnv(path, doc, lookup); err != nil {
 		return nil, err
 	}
-	s := &Spec{Matching: MatchingSpec{Caliper: math.NaN()}, Output: OutputSpec{KeepRuns: -1}}
+	s := &Spec{Matching: MatchingSpec{Caliper: math.NaN()}, Output: OutputSpec{KeepRuns: -1, KeepFailedDays: -1}}
 	if err := doc.Decode(s); err != nil {
 		return nil, yamlError(path, err)
 	}
@@ -690,6 +704,12 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if o.KeepRuns < 0 {
 		return bad("output.keep_runs", "must be >= 0 (0 keeps every run)")
 	}
+	if o.KeepFailedDays == -1 {
+		o.KeepFailedDays = DefaultKeepFailedDays
+	}
+	if o.KeepFailedDays < 0 {
+		return bad("output.keep_failed_days", "must be >= 0 (0 keeps every run that did not succeed)")
+	}
 	return nil
 }
 
@@ -798,7 +818,7 @@ func (s *Spec) Schemes() []string { return append([]string(nil), s.Weighting...)
 // OutputTarget is where the study's tables live, for commands that read
 // them without running (unit and covariate details come from the run).
 func (s *Spec) OutputTarget() warehouse.Output {
-	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays,
 		Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment, Outcomes: s.Cohort.Outcomes, Schemes: s.Schemes()}
 	declared := map[string]bool{}
 	for _, c := range s.Cohort.Categorical {

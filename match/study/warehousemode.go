@@ -139,7 +139,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	}
 
 	clk.stage("publish")
-	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns,
+	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays,
 		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes(),
 		TimeToEvent: len(s.Cohort.TimeToEvent) > 0}
 	for i, k := range d.CovKinds(q) {
@@ -197,7 +197,12 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	if err := tx.Finish(ctx, pub); err != nil {
 		return fmt.Errorf("run %s: %w", sum.RunID, err)
 	}
-	return tx.Commit(ctx)
+	if err := tx.Commit(ctx); err != nil {
+		return err
+	}
+	// The runs row's finish time is the end of the publish transaction.
+	sum.FinishedAt = pub.Run.FinishedAt
+	return nil
 }
 
 func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }

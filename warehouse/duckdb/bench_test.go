@@ -35,7 +35,7 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 	for j := range ncol {
 		defs = append(defs, fmt.Sprintf("v%d DOUBLE", j))
 	}
-	if _, err := w.conn.ExecContext(ctx, "CREATE TABLE app ("+strings.Join(defs, ", ")+")"); err != nil {
+	if _, err := w.testConn(b).ExecContext(ctx, "CREATE TABLE app ("+strings.Join(defs, ", ")+")"); err != nil {
 		b.Fatal(err)
 	}
 	data := make([][]float64, ncol)
@@ -47,10 +47,10 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 	}
 	b.ResetTimer()
 	for b.Loop() {
-		if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
+		if _, err := w.testConn(b).ExecContext(ctx, "BEGIN TRANSACTION"); err != nil {
 			b.Fatal(err)
 		}
-		err := w.conn.Raw(func(dc any) error {
+		err := w.testConn(b).Raw(func(dc any) error {
 			a, err := duckdb.NewAppenderFromConn(dc.(driver.Conn), "main", "app")
 			if err != nil {
 				return err
@@ -69,7 +69,7 @@ func BenchmarkAppender1Mx25(b *testing.B) {
 		if err != nil {
 			b.Fatal(err)
 		}
-		if _, err := w.conn.ExecContext(ctx, "ROLLBACK"); err != nil {
+		if _, err := w.testConn(b).ExecContext(ctx, "ROLLBACK"); err != nil {
 			b.Fatal(err)
 		}
 	}
@@ -100,7 +100,7 @@ func BenchmarkBalanceView1M(b *testing.B) {
 	for b.Loop() {
 		var n int
 		var s float64
-		if err := w.conn.QueryRowContext(ctx, "SELECT count(*), sum(abs(smd)) FROM bench_balance").Scan(&n, &s); err != nil {
+		if err := w.testConn(b).QueryRowContext(ctx, "SELECT count(*), sum(abs(smd)) FROM bench_balance").Scan(&n, &s); err != nil {
 			b.Fatal(err)
 		}
 		if n != (17+3*5)*4 {
@@ -108,4 +108,24 @@ func BenchmarkBalanceView1M(b *testing.B) {
 		}
 	}
 	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/query")
+}
+
+// BenchmarkDashboard1M: warehousetest.DashboardQuery over keep_runs 10
+// retained runs (COUNTERPART_BENCH_UNITS units, default 1M). There is no
+// index: each run's rows fill row groups of their own and the zone maps
+// of run_id skip the other runs' groups.
+func BenchmarkDashboard1M(b *testing.B) {
+	w := openTemp(b)
+	warehousetest.PrepareDashboard(b, w, "main", 10)
+	ctx := context.Background()
+	warehousetest.BenchDashboard(b, func(q string) error {
+		rows, err := w.testConn(b).QueryContext(ctx, q)
+		if err != nil {
+			return err
+		}
+		for rows.Next() {
+		}
+		rows.Close()
+		return rows.Err()
+	})
 }

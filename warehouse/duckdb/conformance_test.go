@@ -2,6 +2,7 @@ package duckdb
 
 import (
 	"context"
+	"database/sql"
 	"fmt"
 	"path/filepath"
 	"testing"
@@ -20,7 +21,7 @@ func openTemp(t testing.TB) *Warehouse {
 // queryRows runs a query on w's dedicated connection and returns all rows.
 func queryRows(t testing.TB, w warehouse.Warehouse, query string) [][]any {
 	t.Helper()
-	return warehousetest.SQLRows(t, w.(*Warehouse).conn, query)
+	return warehousetest.SQLRows(t, w.(*Warehouse).testConn(t), query)
 }
 
 var execSQL = warehousetest.Exec
@@ -45,4 +46,15 @@ func TestUpgradeRunsTable(t *testing.T) {
 	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM duckdb_tables() WHERE table_name LIKE 'st_runs%' AND comment <> ''")); got != "[[1]]" {
 		t.Errorf("runs tables with a comment after the upgrade: %s", got)
 	}
+}
+
+// testConn is w's open session, opened (read-write unless w is read-only)
+// when none is: tests' own statements, between w's operations.
+func (w *Warehouse) testConn(tb testing.TB) *sql.Conn {
+	tb.Helper()
+	c, err := w.session(context.Background())
+	if err != nil {
+		tb.Fatal(err)
+	}
+	return c
 }

@@ -34,21 +34,41 @@ func init() {
 		},
 		Open: func(ctx context.Context, dsn string, o warehouse.OpenOptions) (warehouse.Warehouse, error) {
 			if o.ReadOnly {
-				return OpenReadOnly(ctx, dsn)
+				return OpenReadOnlyWith(ctx, dsn, o)
 			}
-			return Open(ctx, dsn)
+			return OpenWith(ctx, dsn, o)
 		},
 	}, sqlFiles)
 }
 
-// Warehouse is an open DuckDB database file. It is not safe for concurrent
-// use: one run owns it, and all its statements run on one connection.
+// Warehouse is a DuckDB database file, opened only for the operations
+// that need it (session.go): DuckDB lets one process write a file or any
+// number read it, so a run that held the file from start to end locked
+// every dashboard out for its whole length. It is not safe for concurrent
+// use: one run owns it, and an operation's statements share one
+// connection.
 type Warehouse struct {
 	*sqlcore.Core
 	path string
-	db   *sql.DB
-	conn *sql.Conn
-	// bulk is the table function bulk writes go through (nil read-only).
+	// params are the DuckDB settings of the dsn (threads=4), kept for
+	// every open.
+	params string
+	// readOnly opens every session with access_mode READ_ONLY (dry runs).
+	readOnly bool
+	opts     warehouse.OpenOptions
+	// memLimit, when > 0, is the memory_limit (bytes) every session sets
+	// (TuneForScale).
+	memLimit int64
+
+	// The open session, when there is one: rw says it can write, depth
+	// counts the operations using it (0: opened by a bare statement, a
+	// test fixture, and closed by the next operation's end).
+	db    *sql.DB
+	conn  *sql.Conn
+	rw    bool
+	depth int
+	// bulk is the session's table function bulk writes go through (nil
+	// read-only).
 	bulk *bulk
 }
 
@@ -71,14 +91,15 @@ var dialect = &sqlcore.Dialect{
 	Err:        func(err error) error { return sqlcore.Flat(sqlcore.OneLine(err), err) },
 	QueryErr:   queryError,
 	// DuckDB cannot alter or drop a constraint, so a runs table from
-	// before the abandoned status is rebuilt (Core.RebuildRuns).
+	// before the abandoned or cancelled status is rebuilt
+	// (Core.RebuildRuns); the newest status tells an up-to-date check.
 	StatusCheck: func(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 		var expr *string
 		found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &expr)
 		if err != nil {
 			return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, err)
 		}
-		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusAbandoned)) {
+		if !found || (expr != nil && strings.Contains(*expr, warehouse.StatusCancelled)) {
 			return nil
 		}
 		return c.RebuildRuns(ctx, o)
@@ -87,10 +108,16 @@ var dialect = &sqlcore.Dialect{
 
 // Open opens (creating when absent) the DuckDB database file named by dsn
 // for a run. The dsn is a file path, optionally followed by DuckDB settings
-// (path?threads=4). The directory must exist. A file another process holds
-// open gives an error wrapping warehouse.ErrLocked.
+// (path?threads=4). The directory must exist. The file is opened once to
+// check it (and create it) and then only for each operation; a file
+// another process holds gives an error wrapping warehouse.ErrBusy.
 func Open(ctx context.Context, dsn string) (*Warehouse, error) {
-	path, _, _ := strings.Cut(dsn, "?")
+	return OpenWith(ctx, dsn, warehouse.OpenOptions{})
+}
+
+// OpenWith is Open with the study's open options (Wait, NoExternalAccess).
+func OpenWith(ctx context.Context, dsn string, o warehouse.OpenOptions) (*Warehouse, error) {
+	path, params, _ := strings.Cut(dsn, "?")
 	if path == "" || path == ":memory:" {
 		return nil, fmt.Errorf("duckdb: %w: warehouse.dsn %q is not a file path; give the path of a DuckDB file", warehouse.ErrBadInput, dsn)
 	}
@@ -98,51 +125,45 @@ func Open(ctx context.Context, dsn string) (*Warehouse, error) {
 	if st, err := os.Stat(dir); err != nil || !st.IsDir() {
 		return nil, fmt.Errorf("duckdb: %w: directory %s of warehouse.dsn does not exist; create it or fix the path", warehouse.ErrBadInput, dir)
 	}
-	return open(ctx, path, dsn, false)
+	return newWarehouse(ctx, path, params, false, o)
 }
 
 // OpenReadOnly opens an existing DuckDB file with access_mode READ_ONLY, for
 // dry runs: nothing done through it can write, and other read-only
 // processes may share the file. A missing file is an error.
 func OpenReadOnly(ctx context.Context, dsn string) (*Warehouse, error) {
+	return OpenReadOnlyWith(ctx, dsn, warehouse.OpenOptions{ReadOnly: true})
+}
+
+// OpenReadOnlyWith is OpenReadOnly with the study's open options.
+func OpenReadOnlyWith(ctx context.Context, dsn string, o warehouse.OpenOptions) (*Warehouse, error) {
 	path, params, _ := strings.Cut(dsn, "?")
 	if st, err := os.Stat(path); err != nil || st.IsDir() {
 		return nil, fmt.Errorf("duckdb read-only: %w: warehouse.dsn %s is not an existing DuckDB file", warehouse.ErrBadInput, path)
 	}
-	if params != "" {
-		params += "&"
-	}
-	return open(ctx, path, path+"?"+params+"access_mode=READ_ONLY", true)
+	return newWarehouse(ctx, path, params, true, o)
 }
 
-func open(ctx context.Context, path, dsn string, readOnly bool) (*Warehouse, error) {
-	db, err := sql.Open("duckdb", dsn)
-	if err != nil {
-		return nil, fmt.Errorf("duckdb %s: %w", path, openError(err))
-	}
-	conn, err := db.Conn(ctx)
-	if err != nil {
-		db.Close()
-		return nil, fmt.Errorf("duckdb %s: %w", path, openError(err))
-	}
-	w := &Warehouse{path: path, db: db, conn: conn}
+// newWarehouse checks that the file opens (creating it read-write when
+// absent, read-only otherwise, so that a busy file is reported before the
+// run starts) and closes it again.
+func newWarehouse(ctx context.Context, path, params string, readOnly bool, o warehouse.OpenOptions) (*Warehouse, error) {
+	w := &Warehouse{path: path, params: params, readOnly: readOnly, opts: o}
 	w.Core = &sqlcore.Core{A: (*adapter)(w), D: dialect, Place: "in " + path, ReadOnly: readOnly}
-	if !readOnly {
-		if err := registerBulk(w); err != nil {
-			conn.Close()
-			db.Close()
-			return nil, fmt.Errorf("duckdb %s: register bulk writer: %w", path, err)
-		}
+	_, err := os.Stat(path)
+	if err := w.with(ctx, !readOnly && errors.Is(err, os.ErrNotExist), func() error { return nil }); err != nil {
+		return nil, err
 	}
 	return w, nil
 }
 
 // openError maps DuckDB's own file lock (another process has the file open
-// for writing) to warehouse.ErrLocked.
+// for writing, or reading while we want to write) to warehouse.ErrBusy:
+// not the study lock's exit code, since it is not this study that runs.
 func openError(err error) error {
 	msg := sqlcore.OneLine(err)
 	if strings.Contains(msg, "Could not set lock on file") {
-		return sqlcore.Flat("the file is open in another process: "+msg, warehouse.ErrLocked, err)
+		return sqlcore.Flat("the file is open in another process: "+msg, warehouse.ErrBusy, err)
 	}
 	return sqlcore.Flat(msg, err)
 }
@@ -151,17 +172,17 @@ func openError(err error) error {
 // constant "duckdb"), so there is nothing meaningful to record.
 func (a *adapter) User(context.Context) string { return "" }
 
-// Close releases the connection and the database file.
+// Close releases the database file if a session is still open.
 func (a *adapter) Close() error {
-	err := errors.Join(a.conn.Close(), a.db.Close())
-	if err != nil {
-		return fmt.Errorf("close duckdb %s: %w", a.path, err)
-	}
-	return nil
+	return (*Warehouse)(a).closeSession()
 }
 
 func (a *adapter) Exec(ctx context.Context, query string, args ...any) (int64, error) {
-	res, err := a.conn.ExecContext(ctx, query, args...)
+	conn, err := (*Warehouse)(a).session(ctx)
+	if err != nil {
+		return 0, err
+	}
+	res, err := conn.ExecContext(ctx, query, args...)
 	if err != nil {
 		return 0, err
 	}
@@ -170,7 +191,11 @@ func (a *adapter) Exec(ctx context.Context, query string, args ...any) (int64, e
 }
 
 func (a *adapter) Query(ctx context.Context, query string, args ...any) (sqlcore.Rows, error) {
-	rows, err := a.conn.QueryContext(ctx, query, args...)
+	conn, err := (*Warehouse)(a).session(ctx)
+	if err != nil {
+		return nil, err
+	}
+	rows, err := conn.QueryContext(ctx, query, args...)
 	if err != nil {
 		return nil, err
 	}
@@ -233,15 +258,25 @@ const (
 var _ warehouse.ScaleTuner = (*Warehouse)(nil)
 
 // TuneForScale implements warehouse.ScaleTuner: SET memory_limit (see
-// ScaleMemoryPerThread) for the rest of the session; the setting is
-// global to the database instance, which this Warehouse alone uses.
+// ScaleMemoryPerThread) for every session from now on; the setting is
+// global to the database instance, which each session opens for itself.
 func (w *Warehouse) TuneForScale(ctx context.Context, units int) error {
-	var threads int64
-	if err := w.conn.QueryRowContext(ctx, "SELECT CAST(current_setting('threads') AS BIGINT)").Scan(&threads); err != nil {
-		return fmt.Errorf("read threads setting: %w", dialect.Err(err))
+	return w.with(ctx, false, func() error {
+		var threads int64
+		if err := w.conn.QueryRowContext(ctx, "SELECT CAST(current_setting('threads') AS BIGINT)").Scan(&threads); err != nil {
+			return fmt.Errorf("read threads setting: %w", dialect.Err(err))
+		}
+		w.memLimit = max(int64(ScaleMemoryFloor), threads*ScaleMemoryPerThread, int64(units)*ScaleMemoryPerUnit)
+		return w.setMemory(ctx)
+	})
+}
+
+// setMemory applies memLimit to the open session.
+func (w *Warehouse) setMemory(ctx context.Context) error {
+	if w.memLimit <= 0 {
+		return nil
 	}
-	limit := max(int64(ScaleMemoryFloor), threads*ScaleMemoryPerThread, int64(units)*ScaleMemoryPerUnit)
-	if _, err := w.conn.ExecContext(ctx, fmt.Sprintf("SET memory_limit = '%dMB'", limit>>20)); err != nil {
+	if _, err := w.conn.ExecContext(ctx, fmt.Sprintf("SET memory_limit = '%dMB'", w.memLimit>>20)); err != nil {
 		return fmt.Errorf("set memory_limit: %w", dialect.Err(err))
 	}
 	return nil

@@ -3,6 +3,7 @@ package duckdb
 import (
 	"bufio"
 	"context"
+	"database/sql"
 	"database/sql/driver"
 	"errors"
 	"fmt"
@@ -206,7 +207,7 @@ func TestAppenderInTransaction(t *testing.T) {
 	execSQL(t, w, "CREATE TABLE app (i BIGINT, x DOUBLE)")
 	appendN := func(n int) {
 		t.Helper()
-		err := w.conn.Raw(func(dc any) error {
+		err := w.testConn(t).Raw(func(dc any) error {
 			a, err := duckdb.NewAppenderFromConn(dc.(driver.Conn), "main", "app")
 			if err != nil {
 				return err
@@ -281,7 +282,7 @@ func TestOpen(t *testing.T) {
 	if err != nil || c.N() != 4 {
 		t.Fatalf("read-only read: %v", err)
 	}
-	if _, err := ro.conn.ExecContext(ctx, "CREATE TABLE x (i INTEGER)"); err == nil {
+	if _, err := ro.testConn(t).ExecContext(ctx, "CREATE TABLE x (i INTEGER)"); err == nil {
 		t.Error("a read-only handle created a table")
 	}
 	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr"}
@@ -290,30 +291,38 @@ func TestOpen(t *testing.T) {
 	}
 }
 
-// TestHelperHoldFile is not a test: TestDuckDBFileLock runs the test binary
-// again with COUNTERPART_HOLD set, so that another process holds the file.
+// TestHelperHoldFile is not a test: TestDuckDBFileBusy runs the test binary
+// again with COUNTERPART_HOLD set, so that another process holds the file
+// (read-only when COUNTERPART_HOLD_MODE=ro), as a dashboard would.
 func TestHelperHoldFile(t *testing.T) {
 	path := os.Getenv("COUNTERPART_HOLD")
 	if path == "" {
 		t.Skip("helper process only")
 	}
-	w, err := Open(context.Background(), path)
+	dsn := path
+	if os.Getenv("COUNTERPART_HOLD_MODE") == "ro" {
+		dsn += "?access_mode=READ_ONLY"
+	}
+	db, err := sql.Open("duckdb", dsn)
+	if err == nil {
+		err = db.Ping()
+	}
 	if err != nil {
 		fmt.Println("error", err)
 		os.Exit(1)
 	}
 	fmt.Println("ready")
 	bufio.NewReader(os.Stdin).ReadString('\n') // until the parent closes stdin
-	w.Close()
+	db.Close()
 	os.Exit(0)
 }
 
-// TestDuckDBFileLock: a file another process has open read-write gives
-// ErrLocked, from DuckDB's own lock.
-func TestDuckDBFileLock(t *testing.T) {
-	path := filepath.Join(t.TempDir(), "held.duckdb")
+// holdFile makes another process hold path open (mode "rw" or "ro")
+// until the test ends.
+func holdFile(t *testing.T, path, mode string) {
+	t.Helper()
 	cmd := exec.Command(os.Args[0], "-test.run=^TestHelperHoldFile$")
-	cmd.Env = append(os.Environ(), "COUNTERPART_HOLD="+path)
+	cmd.Env = append(os.Environ(), "COUNTERPART_HOLD="+path, "COUNTERPART_HOLD_MODE="+mode)
 	stdin, err := cmd.StdinPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -325,17 +334,65 @@ func TestDuckDBFileLock(t *testing.T) {
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
-	defer func() {
+	t.Cleanup(func() {
 		stdin.Close()
 		cmd.Wait()
-	}()
+	})
 	line, err := bufio.NewReader(stdout).ReadString('\n')
 	if err != nil || strings.TrimSpace(line) != "ready" {
 		t.Fatalf("helper: %q %v", line, err)
 	}
-	_, err = Open(context.Background(), path)
-	if !errors.Is(err, warehouse.ErrLocked) || !strings.Contains(err.Error(), "open in another process") {
-		t.Fatalf("open of a held file: %v, want ErrLocked", err)
+}
+
+// TestDuckDBFileBusy: a file another process holds gives ErrBusy (not the
+// study lock's ErrLocked) where this process needs what the other holds:
+// any open while it writes, a write while it reads. --wait retries and
+// says so once.
+func TestDuckDBFileBusy(t *testing.T) {
+	ctx := context.Background()
+	out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr"}
+	tests := []struct {
+		name, mode string
+		wait       time.Duration
+		// openBusy: Open fails; otherwise reading works and StartRun fails.
+		openBusy bool
+	}{
+		{"held read-write", "rw", 0, true},
+		{"held read-write, waited", "rw", 600 * time.Millisecond, true},
+		{"held read-only", "ro", 0, false},
+	}
+	for _, tt := range tests {
+		t.Run(tt.name, func(t *testing.T) {
+			path := filepath.Join(t.TempDir(), "held.duckdb")
+			w, err := Open(ctx, path)
+			if err != nil {
+				t.Fatal(err)
+			}
+			execSQL(t, w, "CREATE TABLE src AS SELECT i AS id, i % 2 = 0 AS tr FROM range(10) t(i)")
+			w.Close()
+			holdFile(t, path, tt.mode)
+			busy := 0
+			w, err = OpenWith(ctx, path, warehouse.OpenOptions{Wait: tt.wait, OnBusy: func(error, time.Duration) { busy++ }})
+			if tt.openBusy {
+				if !errors.Is(err, warehouse.ErrBusy) || errors.Is(err, warehouse.ErrLocked) || !strings.Contains(err.Error(), "open in another process") {
+					t.Fatalf("open of a held file: %v, want ErrBusy", err)
+				}
+				if want := min(1, int(tt.wait)); busy != want || (tt.wait > 0) != strings.Contains(err.Error(), "waited") {
+					t.Errorf("busy told %d times, error %v; want %d", busy, err, want)
+				}
+				return
+			}
+			if err != nil {
+				t.Fatal(err)
+			}
+			defer w.Close()
+			if c, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: "SELECT * FROM src", Unit: "id", Treatment: "tr"}); err != nil || c.N() != 10 {
+				t.Fatalf("read beside a reader: %v", err)
+			}
+			if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: "st"}); !errors.Is(err, warehouse.ErrBusy) {
+				t.Fatalf("StartRun beside a reader: %v, want ErrBusy", err)
+			}
+		})
 	}
 }
 
@@ -373,6 +430,9 @@ func TestCommentsAndTypes(t *testing.T) {
 		Outcomes:   []string{"y"}, Schemes: []string{"att"}}
 	rec := warehouse.RunRecord{RunID: "r1", Study: "st", StartedAt: time.Now(), SpecJSON: `{"study": "st", "k": [1, 2]}`}
 	if err := w.StartRun(ctx, out, rec); err != nil {
+		t.Fatal(err)
+	}
+	if err := w.CreateObjects(ctx, out); err != nil {
 		t.Fatal(err)
 	}
 	if got := queryRows(t, w, "SELECT table_name, column_name FROM duckdb_columns() WHERE table_name LIKE 'st_%' AND (comment IS NULL OR comment = '') AND table_name NOT LIKE 'st_current_%'"); len(got) > 0 {
@@ -417,6 +477,9 @@ func TestBalanceViewShapes(t *testing.T) {
 		w := openTemp(t)
 		out := warehouse.Output{Schema: "main", Prefix: "st_", Study: "st", Unit: "id", Treatment: "tr", Covariates: covs}
 		if err := w.StartRun(context.Background(), out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
+			t.Fatal(err)
+		}
+		if err := w.CreateObjects(context.Background(), out); err != nil {
 			t.Fatal(err)
 		}
 		got := queryRows(t, w, "SELECT column_name FROM duckdb_columns() WHERE table_name = 'st_balance_history' ORDER BY column_index")

@@ -23,18 +23,19 @@ func retentionRuns(t *testing.T, w *Warehouse) {
 
 const currentRun = "01a20000-0000-7000-8000-000000000004"
 
-// retain lists the expired runs of the current run (keep 2) and deletes
-// their rows from child, inside the caller's transaction.
-func retain(t *testing.T, w *Warehouse, status string) ([]any, error) {
+// retain lists the expired runs of the current run (keep 2 succeeded
+// runs, the others keepDays days) and deletes their rows from child,
+// inside the caller's transaction.
+func retain(t *testing.T, w *Warehouse, status string, keepDays int) ([]any, error) {
 	t.Helper()
 	ctx := context.Background()
 	execSQL(t, w, fmt.Sprintf("UPDATE runs SET status = '%s', finished_at = TIMESTAMPTZ '2026-11-04 02:31:00+00' WHERE run_id = '%s'", status, currentRun))
-	ids, err := w.ExpiredRuns(ctx, &warehouse.Objects{Runs: `"main"."runs"`}, currentRun, 2)
+	ids, err := w.ExpiredRuns(ctx, &warehouse.Objects{Runs: `"main"."runs"`}, currentRun, 2, keepDays)
 	if err != nil || len(ids) == 0 {
 		return ids, err
 	}
 	q := w.Render("retention.sql", map[string]string{"Table": `"main"."child"`, "Params": warehouse.Placeholders(len(ids))})
-	_, err = w.conn.ExecContext(ctx, q, ids...)
+	_, err = w.testConn(t).ExecContext(ctx, q, ids...)
 	return ids, err
 }
 
@@ -48,8 +49,9 @@ func retain(t *testing.T, w *Warehouse, status string) ([]any, error) {
 // warehouse-scale mode's memory cap (and here, under 24 MB, at 1.5
 // million). Listing the expired runs first (expired_runs.sql) and
 // deleting by that list (retention.sql) filters the scan instead. The
-// second case checks the rule itself (README, output.keep_runs): the
-// newest keep_runs runs and the latest succeeded run are kept. Common
+// other cases check the rule itself (README, output.keep_runs and
+// keep_failed_days): the newest keep_runs succeeded runs and the latest
+// succeeded run are kept, the others by age. Common
 // practice: a regression test of the failure seen.
 func TestRetentionUnderMemoryCap(t *testing.T) {
 	t.Run("first nights, 1.5 million new rows, 24 MB", func(t *testing.T) {
@@ -57,7 +59,7 @@ func TestRetentionUnderMemoryCap(t *testing.T) {
 		retentionRuns(t, w)
 		execSQL(t, w, `SET memory_limit = '24MB'; BEGIN TRANSACTION;
 		INSERT INTO child SELECT '`+currentRun+`', i, i FROM range(1500000) AS b(i)`)
-		if _, err := retain(t, w, "succeeded"); err != nil {
+		if _, err := retain(t, w, "succeeded", 0); err != nil {
 			t.Fatalf("retention: %v", err)
 		}
 		execSQL(t, w, "COMMIT")
@@ -66,22 +68,26 @@ func TestRetentionUnderMemoryCap(t *testing.T) {
 		}
 	})
 	for _, tc := range []struct {
-		status string
-		kept   []string // runs whose child rows survive, in order
+		status   string
+		keepDays int
+		kept     []string // runs whose child rows survive, in order
 	}{
-		// The current run succeeds: it is the latest succeeded; runs 1
-		// and 2 are outside the newest two.
-		{"succeeded", []string{"3", "4"}},
+		// The current run succeeds: runs 1 and 4 are the two newest
+		// succeeded; the failed and rejected runs 2 and 3 are kept, not
+		// counted, with no age limit, and expire with one (they are a
+		// month old).
+		{"succeeded", 0, []string{"1", "2", "3", "4"}},
+		{"succeeded", 1, []string{"1", "4"}},
 		// It is rejected: run 1 stays as the latest succeeded run, which
 		// the current views show.
-		{"rejected", []string{"1", "3", "4"}},
+		{"rejected", 1, []string{"1", "4"}},
 	} {
-		t.Run("rule, current run "+tc.status, func(t *testing.T) {
+		t.Run(fmt.Sprintf("rule, current run %s, keep_failed_days %d", tc.status, tc.keepDays), func(t *testing.T) {
 			w := openTemp(t)
 			retentionRuns(t, w)
 			execSQL(t, w, `INSERT INTO child SELECT '01a20000-0000-7000-8000-00000000000' || r, i, i FROM range(1, 4) AS a(r), range(10) AS b(i);
 			BEGIN TRANSACTION; INSERT INTO child SELECT '`+currentRun+`', i, i FROM range(10) AS b(i)`)
-			if _, err := retain(t, w, tc.status); err != nil {
+			if _, err := retain(t, w, tc.status, tc.keepDays); err != nil {
 				t.Fatalf("retention: %v", err)
 			}
 			execSQL(t, w, "COMMIT")

@@ -35,7 +35,7 @@ func TestCheckSelectAcceptsReads(t *testing.T) {
 		"SELECT id, tr FROM src;  ",
 	} {
 		if err := func() error {
-			if _, err := w.conn.ExecContext(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
+			if _, err := w.testConn(t).ExecContext(ctx, "BEGIN TRANSACTION READ ONLY"); err != nil {
 				return err
 			}
 			defer w.Rollback(ctx)

@@ -64,19 +64,49 @@ func (w *Warehouse) dialect() *sqlcore.Dialect {
 		QueryErr:    a.queryError,
 		Scrub:       func(s string) string { return sqlcore.Scrub(s, w.secrets) },
 		StatusCheck: statusCheck,
+		// A current view filters its table on run_id; with keep_runs
+		// runs retained a heap scan reads them all. The index is
+		// created once, in the publishing transaction (a first run
+		// killed there leaves none behind), and takes a SHARE lock,
+		// which readers do not wait for.
+		RunIndex: func(schema, table string) string {
+			return "CREATE INDEX IF NOT EXISTS " + warehouse.Quote(table+"_run_id") + " ON " + warehouse.QuoteQualified(schema, table) + " (run_id)"
+		},
+		Privileges: privileges,
 	}
 }
 
+// privileges checks the schema's USAGE and CREATE rights and, on the
+// contract's tables that exist already, INSERT and DELETE (publish and
+// retention), naming the first right missing and the GRANT that gives it.
+func privileges(ctx context.Context, c *sqlcore.Core, out warehouse.Output) error {
+	var what, object string
+	found, err := c.QueryRow(ctx, c.Render("privileges.sql", nil), []any{out.Schema, out.Prefix}, &what, &object)
+	if err != nil {
+		return fmt.Errorf("pre-flight: privileges in schema %s: %w", out.Schema, err)
+	}
+	if !found {
+		return nil
+	}
+	user := c.User(ctx)
+	if what == "USAGE" || what == "CREATE" {
+		return fmt.Errorf("pre-flight: %w: role %s lacks %s on output.schema %s; GRANT %s ON SCHEMA %s TO %s, or name another schema",
+			warehouse.ErrBadInput, user, what, out.Schema, what, warehouse.Quote(out.Schema), user)
+	}
+	return fmt.Errorf("pre-flight: %w: role %s lacks %s on table %s.%s; GRANT %s ON %s TO %s",
+		warehouse.ErrBadInput, user, what, out.Schema, object, what, warehouse.QuoteQualified(out.Schema, object), user)
+}
+
 // statusCheck drops and adds again, under its name and in the open
-// transaction, a runs table's status check from before the abandoned
-// status.
+// transaction, a runs table's status check from before the abandoned or
+// cancelled status (the newest status tells an up-to-date check).
 func statusCheck(ctx context.Context, c *sqlcore.Core, o *warehouse.Objects) error {
 	var name, def string
 	found, err := c.QueryRow(ctx, c.Render("status_check.sql", nil), []any{o.C.Schema, o.C.Runs.Name}, &name, &def)
 	if err != nil {
 		return fmt.Errorf("status check of %s: %w", o.C.Runs.Name, err)
 	}
-	if !found || strings.Contains(def, warehouse.StatusAbandoned) {
+	if !found || strings.Contains(def, warehouse.StatusCancelled) {
 		return nil
 	}
 	q := fmt.Sprintf("ALTER TABLE %s DROP CONSTRAINT %s, ADD CONSTRAINT %s %s", o.Runs, warehouse.Quote(name), warehouse.Quote(name), sqlcore.StatusCheckExpr())

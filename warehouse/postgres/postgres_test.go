@@ -122,6 +122,9 @@ func TestCommentsAndLockHolder(t *testing.T) {
 	if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: "st"}); err != nil {
 		t.Fatal(err)
 	}
+	if err := w.CreateObjects(ctx, out); err != nil {
+		t.Fatal(err)
+	}
 	missing := queryRows(t, w, `SELECT c.relname, a.attname FROM pg_class c
 		JOIN pg_namespace n ON n.oid = c.relnamespace
 		LEFT JOIN pg_attribute a ON a.attrelid = c.oid AND a.attnum > 0 AND NOT a.attisdropped

@@ -25,6 +25,7 @@ import (
 	"counterpart/warehouse/duckdb"
 	"counterpart/warehouse/postgres"
 	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/sqlcore"
 )
 
 // dataset is a scratch table: column names and SQL types, rows as text.
@@ -367,6 +368,9 @@ func TestInWarehouseMatchesInMemory(t *testing.T) {
 				}
 				if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r1", Study: d.name, Status: warehouse.StatusRunning,
 					StartedAt: time.Now(), Engine: w.Engine()}); err != nil {
+					t.Fatal(err)
+				}
+				if err := w.(interface{ SQLCore() *sqlcore.Core }).SQLCore().CreateObjects(ctx, out); err != nil {
 					t.Fatal(err)
 				}
 				if err := iw.ScoreInto(ctx, out, "r1", d.q, dsql, got.Coef, sup, schemes); err != nil {

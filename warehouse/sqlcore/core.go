@@ -51,6 +51,15 @@ type Dialect struct {
 	Scrub func(string) string
 	// StatusCheck brings a runs table's status check up to date.
 	StatusCheck func(ctx context.Context, c *Core, o *warehouse.Objects) error
+	// RunIndex, when set, is the statement that indexes a child table
+	// by run_id if it is not yet (schema and table unquoted), run in the
+	// publishing transaction; nil when the engine's layout already
+	// serves a filter on run_id.
+	RunIndex func(schema, table string) string
+	// Privileges, when set, checks before the cohort is read that the
+	// session may create, insert and drop in the output schema, with a
+	// message that names the missing right (the probe covers the rest).
+	Privileges func(ctx context.Context, c *Core, out warehouse.Output) error
 }
 
 // Adapter is one engine.
@@ -80,6 +89,9 @@ type Core struct {
 	// Fault, when set by a test, is called at each step of Publish; a
 	// non-nil return fails the publish there (checks the rollback).
 	Fault func(step string) error
+	// stale says the open publishing transaction changed a table, so
+	// that the balance and analysis views are rebuilt (ensureObjects).
+	stale bool
 }
 
 var (
@@ -103,7 +115,10 @@ func (c *Core) User(ctx context.Context) string { return c.A.User(ctx) }
 // Close ends the session.
 func (c *Core) Close() error { return c.A.Close() }
 
-// Lock takes the study's lock (the adapter's).
+// Lock takes the study's lock (the adapter's) and then runs the
+// pre-flight checks (preflight.go): a run takes the lock before it reads
+// the cohort, so a missing schema or right is reported before the read
+// and the fit rather than at publish.
 func (c *Core) Lock(ctx context.Context, out warehouse.Output) (func() error, error) {
 	if err := warehouse.ValidIdent(out.Schema); err != nil {
 		return nil, fmt.Errorf("output.schema: %w", err)
@@ -114,6 +129,11 @@ func (c *Core) Lock(ctx context.Context, out warehouse.Output) (func() error, er
 	release, err := c.A.Lock(ctx, out)
 	if err != nil {
 		return nil, err
+	}
+	if !c.ReadOnly {
+		if err := c.preflight(ctx, out); err != nil {
+			return nil, errors.Join(err, release())
+		}
 	}
 	released := false
 	return func() error {

@@ -20,6 +20,10 @@ func (c *Core) BeginScale(ctx context.Context, out warehouse.Output, runID strin
 	if _, err := c.Exec(ctx, "begin", "BEGIN TRANSACTION"); err != nil {
 		return nil, err
 	}
+	if err := c.ensureObjects(ctx, o, out); err != nil {
+		c.Rollback(ctx)
+		return nil, err
+	}
 	return &scaleTx{c: c, o: o, out: out, runID: runID}, nil
 }
 

@@ -12,12 +12,12 @@ import (
 	"counterpart/warehouse"
 )
 
-// StartRun checks that the output schema exists, creates the contract's
-// tables (adding columns a table lacks: a new covariate, outcome or
-// scheme) and the current views, creates the balance views when absent,
-// and commits the runs row with status running, all in one transaction.
-// A column whose existing type differs from what the study needs is an
-// error wrapping ErrBadInput. The caller names the step.
+// StartRun checks that the output schema exists, creates the runs table
+// when absent (or brings it up to date) and commits the runs row with
+// status running, in one transaction. The other tables and the views are
+// created by the publishing transaction (ensureObjects), so that a first
+// run killed before its commit leaves only its runs row, which the next
+// run marks abandoned. The caller names the step.
 func (c *Core) StartRun(ctx context.Context, out warehouse.Output, run warehouse.RunRecord) error {
 	if err := c.writable(); err != nil {
 		return err
@@ -41,33 +41,11 @@ func (c *Core) StartRun(ctx context.Context, out warehouse.Output, run warehouse
 }
 
 func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse.Output, run warehouse.RunRecord) error {
-	for _, t := range o.C.Tables() {
-		if err := c.EnsureTable(ctx, o.C.Schema, t, t == &o.C.Runs); err != nil {
-			return err
-		}
-	}
-	if err := c.currentViews(ctx, o); err != nil {
+	if err := c.EnsureTable(ctx, o.C.Schema, &o.C.Runs, true); err != nil {
 		return err
-	}
-	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
-		if ok, err := c.viewExists(ctx, o, v); err != nil {
-			return err
-		} else if !ok {
-			if err := c.balanceViews(ctx, o, out); err != nil {
-				return err
-			}
-			break
-		}
 	}
 	if err := c.D.StatusCheck(ctx, c, o); err != nil {
 		return err
-	}
-	if ok, err := c.viewExists(ctx, o, o.C.Analysis); err != nil {
-		return err
-	} else if !ok {
-		if err := c.analysisView(ctx, o); err != nil {
-			return err
-		}
 	}
 	started := run.StartedAt
 	if started.IsZero() {
@@ -77,7 +55,7 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 	// belongs to a process that died.
 	runs := map[string]string{"Runs": o.Runs}
 	if _, err := c.Exec(ctx, "mark abandoned runs in "+o.C.Runs.Name, c.Render("abandon_runs.sql", runs),
-		run.Study, run.RunID, started, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
+		run.Study, run.RunID, "abandoned: still running when run "+run.RunID+" started (the process died or lost its connection)"); err != nil {
 		return err
 	}
 	engine := run.Engine
@@ -90,6 +68,83 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 		nullText(run.CountsJSON), nullText(run.ModelJSON), nullText(run.BalanceJSON), nullText(run.EffectsJSON),
 		engine, nullText(run.DBUser), nullText(run.Message), nullText(run.SummaryJSON))
 	return err
+}
+
+// ensureObjects creates, inside the open publishing transaction, the
+// contract's tables (adding columns a table lacks: a new covariate,
+// outcome or scheme), the engine's run_id indexes, and the views that
+// are absent. Views are replaced only when a table changed (c.stale then
+// tells finish to rebuild the balance and analysis views): replacing a
+// view takes an exclusive lock on it, and on Postgres a dashboard query
+// holding one current view while waiting for another deadlocked with a
+// publish that replaced them one by one. An unchanged view needs no
+// replacing: the current views find the latest succeeded run when
+// queried. A column whose existing type differs from what the study
+// needs is an error wrapping ErrBadInput.
+func (c *Core) ensureObjects(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
+	c.stale = false
+	for _, t := range o.C.Tables() {
+		if t == &o.C.Runs {
+			continue
+		}
+		changed, err := c.ensureTable(ctx, o.C.Schema, t, false)
+		if err != nil {
+			return err
+		}
+		c.stale = c.stale || changed
+		if c.D.RunIndex != nil {
+			q := c.D.RunIndex(o.C.Schema, t.Name)
+			if _, err := c.Exec(ctx, "index "+t.Name+" by run_id", q); err != nil {
+				return err
+			}
+		}
+	}
+	current := c.stale
+	for _, v := range []string{o.C.CurrentCohort, o.C.CurrentScores, o.C.CurrentMatches, o.C.CurrentWeights, o.C.CurrentEffects, o.C.CurrentSurvival} {
+		if v == "" || current {
+			continue
+		}
+		ok, err := c.viewExists(ctx, o, v)
+		if err != nil {
+			return err
+		}
+		current = !ok
+	}
+	if current {
+		if err := c.currentViews(ctx, o); err != nil {
+			return err
+		}
+	}
+	for _, v := range []string{o.C.Balance, o.C.BalanceHistory} {
+		if ok, err := c.viewExists(ctx, o, v); err != nil {
+			return err
+		} else if !ok {
+			if err := c.balanceViews(ctx, o, out); err != nil {
+				return err
+			}
+			break
+		}
+	}
+	if ok, err := c.viewExists(ctx, o, o.C.Analysis); err != nil {
+		return err
+	} else if !ok {
+		return c.analysisView(ctx, o)
+	}
+	return nil
+}
+
+// CreateObjects is what the publishing transaction creates
+// (ensureObjects), committed on its own: for tests and tools that look
+// at the objects without publishing a run.
+func (c *Core) CreateObjects(ctx context.Context, out warehouse.Output) error {
+	if err := c.writable(); err != nil {
+		return err
+	}
+	o, err := warehouse.NewObjects(out)
+	if err != nil {
+		return err
+	}
+	return c.tx(ctx, func() error { return c.ensureObjects(ctx, o, out) })
 }
 
 func (c *Core) viewExists(ctx context.Context, o *warehouse.Objects, view string) (bool, error) {
@@ -109,10 +164,17 @@ type tableCol struct {
 // EnsureTable creates t or adds the columns it lacks. The runs table gets
 // its key and the check on status.
 func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) error {
+	_, err := c.ensureTable(ctx, schema, t, runs)
+	return err
+}
+
+// ensureTable is EnsureTable, saying whether it created the table or
+// added a column.
+func (c *Core) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) (changed bool, err error) {
 	qt := warehouse.QuoteQualified(schema, t.Name)
 	existing, err := c.tableColumns(ctx, schema, t.Name)
 	if err != nil {
-		return err
+		return false, err
 	}
 	if len(existing) == 0 {
 		data := struct {
@@ -132,7 +194,7 @@ func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Tabl
 			data.Checks = []string{StatusCheckExpr()}
 		}
 		_, err := c.Exec(ctx, "create table "+t.Name, c.Render("create_table.sql", data))
-		return err
+		return true, err
 	}
 	reported := c.D.Reported
 	if reported == nil {
@@ -143,16 +205,17 @@ func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Tabl
 		if !ok {
 			data := struct{ Table, Name, Type, ColComment string }{qt, warehouse.Quote(col.Name), c.D.Types[col.Type], col.Comment}
 			if _, err := c.Exec(ctx, fmt.Sprintf("add column %s to table %s", col.Name, t.Name), c.Render("add_column.sql", data)); err != nil {
-				return err
+				return false, err
 			}
+			changed = true
 			continue
 		}
 		if have != reported[col.Type] {
-			return fmt.Errorf("%w: column %s of existing table %s.%s has type %s but the study needs %s; rename the column in cohort.sql or move the old table away",
+			return false, fmt.Errorf("%w: column %s of existing table %s.%s has type %s but the study needs %s; rename the column in cohort.sql or move the old table away",
 				warehouse.ErrBadInput, col.Name, schema, t.Name, have, c.D.Types[col.Type])
 		}
 	}
-	return nil
+	return changed, nil
 }
 
 // StatusCheckExpr is the runs table's CHECK on status.
@@ -182,7 +245,7 @@ func (c *Core) RebuildRuns(ctx context.Context, o *warehouse.Objects) error {
 	qtmp, list := warehouse.QuoteQualified(o.C.Schema, tmp.Name), strings.Join(cols, ", ")
 	for _, stmt := range []string{"INSERT INTO " + qtmp + " (" + list + ") SELECT " + list + " FROM " + o.Runs,
 		"DROP TABLE " + o.Runs, "ALTER TABLE " + qtmp + " RENAME TO " + warehouse.Quote(o.C.Runs.Name)} {
-		if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the abandoned status", stmt); err != nil {
+		if _, err := c.Exec(ctx, "rebuild "+o.C.Runs.Name+" with the current statuses", stmt); err != nil {
 			return err
 		}
 	}
@@ -315,7 +378,10 @@ func (c *Core) Publish(ctx context.Context, out warehouse.Output, p *warehouse.P
 	if _, err := c.Exec(ctx, "begin", "BEGIN TRANSACTION"); err != nil {
 		return err
 	}
-	err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
+	err = c.ensureObjects(ctx, o, out)
+	if err == nil {
+		err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
+	}
 	if err == nil {
 		err = c.commit(ctx)
 	}
@@ -368,18 +434,18 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 	if err := c.step("effects"); err != nil {
 		return err
 	}
-	if out.KeepRuns > 0 {
-		if err := c.retain(ctx, o, r.RunID, out.KeepRuns); err != nil {
+	if out.KeepRuns > 0 || out.KeepFailedDays > 0 {
+		if err := c.retain(ctx, o, r.RunID, out); err != nil {
 			return err
 		}
 		if err := c.step("retention"); err != nil {
 			return err
 		}
 	}
-	if err := c.currentViews(ctx, o); err != nil {
-		return err
-	}
-	if r.Status == warehouse.StatusSucceeded {
+	// A changed table (a new covariate or scheme, whatever the run's
+	// status) gets views over its new columns; a covariate the current
+	// run lacks has no rows there.
+	if c.stale {
 		if err := c.balanceViews(ctx, o, out); err != nil {
 			return err
 		}
@@ -387,12 +453,31 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 			return err
 		}
 	}
-	return c.step("views")
+	if err := c.step("views"); err != nil {
+		return err
+	}
+	return c.stampFinished(ctx, o, p)
+}
+
+// stampFinished sets the run's finished_at as the last statement before
+// COMMIT, so that it is the end of the run and its duration in the runs
+// table includes writing the tables; p.Run.FinishedAt gets the same
+// time, for the run's summary.
+func (c *Core) stampFinished(ctx context.Context, o *warehouse.Objects, p *warehouse.Publication) error {
+	// Both engines keep microseconds: the summary then shows the stored
+	// value exactly.
+	end := time.Now().UTC().Truncate(time.Microsecond)
+	q := "UPDATE " + o.Runs + " SET finished_at = $2 WHERE run_id = $1"
+	if _, err := c.Exec(ctx, "stamp the end of run "+p.Run.RunID, q, p.Run.RunID, end); err != nil {
+		return err
+	}
+	p.Run.FinishedAt = end
+	return nil
 }
 
 // retain deletes the runs retention expires, child tables first.
-func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, keep int) error {
-	ids, err := c.ExpiredRuns(ctx, o, runID, keep)
+func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, out warehouse.Output) error {
+	ids, err := c.ExpiredRuns(ctx, o, runID, out.KeepRuns, out.KeepFailedDays)
 	if err != nil || len(ids) == 0 {
 		return err
 	}
@@ -407,11 +492,18 @@ func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, k
 }
 
 // ExpiredRuns lists the runs retention deletes (expired_runs.sql), as
-// bound values for retention.sql.
-func (c *Core) ExpiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep int) ([]any, error) {
+// bound values for retention.sql: succeeded runs beyond the newest keep
+// (0: none), other finished runs started more than keepDays days ago (0:
+// none). Failures do not count against keep, so a few crashed nights
+// never push out the succeeded runs a study keeps.
+func (c *Core) ExpiredRuns(ctx context.Context, o *warehouse.Objects, runID string, keep, keepDays int) ([]any, error) {
 	var ids []any
 	var id string
-	err := c.Each(ctx, c.Render("expired_runs.sql", map[string]string{"Runs": o.Runs}), []any{runID, keep}, []any{&id}, func() error {
+	var cutoff any // NULL: no age limit
+	if keepDays > 0 {
+		cutoff = time.Now().UTC().AddDate(0, 0, -keepDays)
+	}
+	err := c.Each(ctx, c.Render("expired_runs.sql", map[string]string{"Runs": o.Runs}), []any{runID, int64(keep), cutoff}, []any{&id}, func() error {
 		ids = append(ids, id)
 		return nil
 	})

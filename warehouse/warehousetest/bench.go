@@ -4,6 +4,8 @@ import (
 	"context"
 	"fmt"
 	"math/rand/v2"
+	"os"
+	"strconv"
 	"strings"
 	"testing"
 	"time"
@@ -119,4 +121,70 @@ func BenchPublication(c *warehouse.Cohort, schema string) (warehouse.Output, *wa
 		m.Distance = append(m.Distance, 0, r.Float64())
 	}
 	return out, p
+}
+
+// DashboardQuery is the heavy dashboard query of the benchmarks: the
+// current matches joined to the current cohort snapshot, weights summed
+// per arm. Both views filter their tables on run_id.
+const DashboardQuery = `SELECT m.treated, count(*), sum(m.set_weight), sum(m.set_weight * c.y1)
+FROM bench_current_matches m
+JOIN bench_current_cohort c ON c.id = m.id
+GROUP BY m.treated`
+
+// DashboardRows is the cohort size of BenchDashboard: COUNTERPART_BENCH_UNITS
+// when set, else BenchRows.
+func DashboardRows() int {
+	if n, err := strconv.Atoi(os.Getenv("COUNTERPART_BENCH_UNITS")); err == nil && n > 0 {
+		return n
+	}
+	return BenchRows
+}
+
+// PrepareDashboard publishes keep (10 in the benchmarks) succeeded runs of
+// a DashboardRows cohort with keep_runs keep, so that the run tables hold
+// keep runs and the current views one of them. It returns the output and
+// a publication for more runs (PublishAgain).
+func PrepareDashboard(b *testing.B, w warehouse.Warehouse, schema string, keep int) (warehouse.Output, *warehouse.Publication) {
+	b.Helper()
+	n := DashboardRows()
+	Exec(b, w, fmt.Sprintf(`CREATE TABLE big AS SELECT CAST(i AS BIGINT) AS id, random() < 0.3 AS treated, random() * 100 AS x1, random() AS y1
+		FROM generate_series(0, %d) AS g(i)`, n-1))
+	c, err := w.ReadCohort(context.Background(), warehouse.CohortQuery{SQL: "SELECT * FROM big", Unit: "id", Treatment: "treated",
+		Covariates: []string{"x1"}, Outcomes: []string{"y1"}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	out, p := BenchPublication(c, schema)
+	out.Outcomes, out.KeepRuns = []string{"y1"}, keep
+	for i := range keep {
+		PublishAgain(b, w, out, p, fmt.Sprintf("r%02d", i))
+	}
+	return out, p
+}
+
+// PublishAgain publishes p once more as run id.
+func PublishAgain(b *testing.B, w warehouse.Warehouse, out warehouse.Output, p *warehouse.Publication, id string) {
+	b.Helper()
+	ctx := context.Background()
+	p.Run = warehouse.RunRecord{RunID: id, Study: "bench", StartedAt: time.Now()}
+	if err := w.StartRun(ctx, out, p.Run); err != nil {
+		b.Fatal(err)
+	}
+	p.Run.Status = warehouse.StatusSucceeded
+	if err := w.Publish(ctx, out, p); err != nil {
+		b.Fatal(err)
+	}
+}
+
+// BenchDashboard measures DashboardQuery through query, reporting
+// seconds per query.
+func BenchDashboard(b *testing.B, query func(q string) error) {
+	b.Helper()
+	b.ResetTimer()
+	for b.Loop() {
+		if err := query(DashboardQuery); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/query")
 }

@@ -48,6 +48,10 @@ func UpgradeRunsTable(t *testing.T, e Engine) warehouse.Warehouse {
 	if got := fmt.Sprint(e.Query(t, w, "SELECT run_id, status, summary IS NULL FROM st_runs ORDER BY run_id")); got != "[[r0 abandoned true] [r1 running true]]" {
 		t.Errorf("upgraded runs table: %s", got)
 	}
+	// The rebuilt check accepts the newest status.
+	if _, err := core(t, w).A.Exec(ctx, "UPDATE st_runs SET status = 'cancelled' WHERE run_id = 'r0'"); err != nil {
+		t.Errorf("the upgraded runs table refused status cancelled: %v", err)
+	}
 	// The status check still refuses an unknown status.
 	if _, err := core(t, w).A.Exec(ctx, "UPDATE st_runs SET status = 'bogus' WHERE run_id = 'r1'"); err == nil {
 		t.Error("the upgraded runs table accepted status bogus")

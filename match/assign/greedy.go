@@ -83,6 +83,24 @@ type Options struct {
 	// Metric chooses the distance that ranks controls inside the caliper;
 	// the zero value is the score distance (see Metric).
 	Metric Metric
+	// Check, when set, is asked now and then during matching (every
+	// checkEvery treated units, and inside the flow solver); its error
+	// stops the matching and is returned as is. It is how a caller
+	// cancels a long matching without this package knowing why. It may
+	// be called from several goroutines at once.
+	Check func() error
+}
+
+// checkEvery is how many treated units greedy matching places between
+// two Check calls.
+const checkEvery = 4096
+
+// checkAt calls check at every checkEvery-th treated unit.
+func checkAt(check func() error, i int) error {
+	if check == nil || i%checkEvery != 0 {
+		return nil
+	}
+	return check()
 }
 
 func (o Options) validate() error {
@@ -184,7 +202,10 @@ func Greedy(score []float64, treated []bool, stratum []int32, eligible []bool, o
 
 	m := matcher{pool: p, k: opt.Controls, caliper: opt.Caliper}
 	sets := make([]Set, 0, nt)
-	for _, t := range trt {
+	for i, t := range trt {
+		if err := checkAt(opt.Check, i); err != nil {
+			return nil, err
+		}
 		sp, ok := p.span(stratumOf(stratum, int(t)))
 		if !ok {
 			continue

@@ -55,7 +55,10 @@ func greedyMetric(score []float64, treated []bool, stratum []int32, eligible []b
 	k := opt.Controls
 	var best []candidate // the k nearest so far, ordered by (dist, index)
 	sets := make([]Set, 0, len(trt))
-	for _, t := range trt {
+	for i, t := range trt {
+		if err := checkAt(opt.Check, i); err != nil {
+			return nil, err
+		}
 		sp, ok := p.span(stratumOf(stratum, int(t)))
 		if !ok {
 			continue
@@ -149,6 +152,7 @@ func optimalMetric(start time.Time, score []float64, treated []bool, stratum []i
 			return nil
 		}
 		net := flow.New(len(u.ts), len(u.cs), specOneToK(k, len(u.ts)))
+		net.Check = opt.Check
 		w := w.clone()
 		top := 0.0
 		for t := range u.ts {

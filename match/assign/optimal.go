@@ -75,6 +75,7 @@ func Optimal(score []float64, treated []bool, stratum []int32, eligible []bool, 
 			return nil
 		}
 		p := newProblem(u, opt.Caliper, specOneToK(k, len(u.ts)), opt.Controls+2)
+		p.net.Check = opt.Check
 		probs[i] = p
 		if err := p.solve(); err != nil {
 			return fmt.Errorf("stratum with %d treated: %w", len(u.ts), err)
@@ -152,6 +153,8 @@ type FullOptions struct {
 	// MaxTreated bounds the treated units in a set with one control (so
 	// the smallest ratio is 1/MaxTreated); 0 means no bound.
 	MaxTreated int
+	// Check is as Options.Check.
+	Check func() error
 }
 
 // Group is one set of a full matching: either one treated unit with one or
@@ -231,6 +234,7 @@ func Full(score []float64, treated []bool, stratum []int32, eligible []bool, opt
 			SupplyC: -1,
 		}
 		p := newProblem(u, opt.Caliper, spec, 2)
+		p.net.Check = opt.Check
 		p.coverControls()
 		probs[i] = p
 		if err := p.solve(); err != nil {

@@ -78,6 +78,15 @@ type Options struct {
 	// diverging fit (separation), whose deviance flattens while its
 	// coefficients keep growing, from passing as converged.
 	Tol float64
+	// Check, when set, is called between chunks of every pass over the
+	// data; a non-nil error stops the fit and FitModel returns it
+	// unwrapped. Workers call it concurrently. It is how a caller cancels a long fit (a signal) without
+	// this package knowing about contexts or runs.
+	Check func() error
+	// OnPass, when set, is told after each accepted Newton step: its
+	// number (from 1) and the (penalised) deviance. It is for progress
+	// display and must be cheap.
+	OnPass func(pass int, deviance float64)
 }
 
 func (o Options) resolve() (lambda float64, maxIter int, tol float64, err error) {
@@ -211,7 +220,7 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 		return nil, err
 	}
 	k := len(x) + 1
-	d := &design{cols: x, names: names, center: center, invScale: invScale, z: z, n: n, k: k}
+	d := &design{cols: x, names: names, center: center, invScale: invScale, z: z, n: n, k: k, check: opt.Check}
 	eta := make([]float64, n)
 
 	objective := func(m *moments, b []float64) float64 { return penalisedDeviance(m.logLik, b, lambda) }
@@ -230,7 +239,10 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 	// the collinearity check.
 	beta := make([]float64, k)
 	beta[0] = math.Log(float64(nt) / float64(n-nt))
-	mom := d.pass(beta, eta)
+	mom, err := d.pass(beta, eta)
+	if err != nil {
+		return nil, err
+	}
 	if err := checkCollinear(mom.info, k, names); err != nil {
 		return nil, err
 	}
@@ -275,7 +287,9 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 			for j := range next {
 				next[j] = beta[j] + step[j]
 			}
-			nmom = d.pass(next, eta)
+			if nmom, err = d.pass(next, eta); err != nil {
+				return nil, err
+			}
 			ndev = objective(&nmom, next)
 			if ndev <= dev+1e-11*(math.Abs(dev)+1) {
 				improved = true
@@ -286,7 +300,10 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 			}
 		}
 		if !improved {
-			mom = d.pass(beta, eta) // restore η at the last accepted β̃
+			// Restore η at the last accepted β̃.
+			if mom, err = d.pass(beta, eta); err != nil {
+				return nil, err
+			}
 			notConv = "no step along the Newton direction lowers the deviance"
 			break
 		}
@@ -297,6 +314,9 @@ func FitModel(x [][]float64, names []string, z []bool, opt Options) (*Fit, error
 			stepSize = max(stepSize, math.Abs(s)/(1+math.Abs(next[j])))
 		}
 		beta, mom, dev, lastStep = next, nmom, ndev, step
+		if opt.OnPass != nil {
+			opt.OnPass(it, dev)
+		}
 	}
 
 	if notConv != "" && opt.Model == Logistic {

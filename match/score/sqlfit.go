@@ -185,6 +185,9 @@ func FitMomentsFrom(names []string, center, invScale []float64, n, nTreated int,
 			stepSize = max(stepSize, math.Abs(s)/(1+math.Abs(next[j])))
 		}
 		beta, mom, perfect, dev, lastStep = next, nmom, nperfect, ndev, step
+		if opt.OnPass != nil {
+			opt.OnPass(it, dev)
+		}
 	}
 	if notConv != "" && opt.Model == Logistic && perfect > 0 && relChange < math.Sqrt(tol) {
 		return nil, nil, d.separation(perfect == n, perfect, lastStep)

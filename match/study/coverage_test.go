@@ -1,6 +1,7 @@
 package study
 
 import (
+	"context"
 	"math"
 	"math/rand/v2"
 	"testing"
@@ -62,7 +63,7 @@ estimate: {augment: true}
 	for rep := 0; rep < reps; rep++ {
 		c := kangSchafer(r, 1000)
 		sum := &Summary{Timings: map[string]float64{}}
-		if _, err := analyse(spec, c, sum, newClock(Options{}, sum), false, nil); err != nil {
+		if _, err := analyse(context.Background(), spec, c, sum, newClock(Options{}, sum), Options{}, nil); err != nil {
 			t.Fatalf("replicate %d: %v", rep, err)
 		}
 		for _, e := range sum.Effects {
@@ -110,7 +111,7 @@ balance: {on_fail: warn}
 	c := kangSchafer(rand.New(rand.NewPCG(3, 4)), 800)
 	run := func() *Summary {
 		sum := &Summary{Timings: map[string]float64{}}
-		if _, err := analyse(spec, c, sum, newClock(Options{}, sum), false, nil); err != nil {
+		if _, err := analyse(context.Background(), spec, c, sum, newClock(Options{}, sum), Options{}, nil); err != nil {
 			t.Fatal(err)
 		}
 		return sum

@@ -167,10 +167,14 @@ func pooledSD(x []float64, z []bool) float64 {
 // or most of them): it is almost always a numeric column that picked up a
 // stray marker like "n/a", and treating it as categories would silently
 // change the model. The analyst casts it in SQL or declares it categorical.
-func checkTextNumbers(s *Spec, c *warehouse.Cohort) error {
+func checkTextNumbers(s *Spec, c *warehouse.Cohort, sum *Summary) error {
 	declared := map[string]bool{}
 	for _, name := range s.Cohort.Categorical {
 		declared[name] = true
+	}
+	pooled := map[string]string{}
+	for _, p := range sum.Pooled {
+		pooled[p.Covariate] = p.Level
 	}
 	for _, cov := range c.Covariates {
 		if cov.Kind != warehouse.Categorical || declared[cov.Name] {
@@ -178,6 +182,9 @@ func checkTextNumbers(s *Spec, c *warehouse.Cohort) error {
 		}
 		numeric, other := 0, ""
 		for _, l := range cov.Levels {
+			if lvl, ok := pooled[cov.Name]; ok && l == lvl {
+				continue // the pool is ours, not the column's
+			}
 			if _, err := strconv.ParseFloat(strings.TrimSpace(l), 64); err == nil {
 				numeric++
 			} else if other == "" {

@@ -1,6 +1,7 @@
 package study
 
 import (
+	"context"
 	"fmt"
 	"math"
 	"math/rand/v2"
@@ -90,7 +91,7 @@ func TestCoverageTimeToEvent(t *testing.T) {
 	for rep := 0; rep < reps; rep++ {
 		c := eventCohort(r, 1000)
 		sum := &Summary{Timings: map[string]float64{}}
-		if _, err := analyse(spec, c, sum, newClock(Options{}, sum), false, nil); err != nil {
+		if _, err := analyse(context.Background(), spec, c, sum, newClock(Options{}, sum), Options{}, nil); err != nil {
 			t.Fatalf("replicate %d: %v", rep, err)
 		}
 		for _, e := range sum.Effects {
@@ -148,7 +149,7 @@ func TestEventRowsShape(t *testing.T) {
 	}
 	c := eventCohort(rand.New(rand.NewPCG(3, 4)), 2000)
 	sum := &Summary{Timings: map[string]float64{}}
-	res, err := analyse(spec, c, sum, newClock(Options{}, sum), false, nil)
+	res, err := analyse(context.Background(), spec, c, sum, newClock(Options{}, sum), Options{}, nil)
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -1,6 +1,7 @@
 package study
 
 import (
+	"context"
 	"fmt"
 
 	"counterpart/match/effect"
@@ -73,7 +74,9 @@ func augmentAll(c *warehouse.Cohort, adjs []adjustment, mr *matchedRows, x [][]f
 // matching (Abadie & Imbens 2008, Econometrica 76:1537, from memory).
 // Replicate r draws from its own PCG stream seeded with (seed, r), so the
 // result does not depend on the number of workers.
-func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
+// ctx cancels it: a replicate starting after cancellation returns at once
+// and a running refit stops at its next chunk.
+func bootstrapAll(ctx context.Context, s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 	schemes := s.Schemes()
 	type key struct{ outcome, scheme string }
 	var keys []key
@@ -109,6 +112,9 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 		z := make([]bool, n)
 		y := make([]float64, n)
 		return func(idx []int, out []float64) error {
+			if err := ctx.Err(); err != nil {
+				return err
+			}
 			for j := range x {
 				for i, k := range idx {
 					x[j][i] = d.x[j][k]
@@ -117,7 +123,7 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 			for i, k := range idx {
 				z[i] = c.Treated[k]
 			}
-			fit, err := score.FitModel(x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+			fit, err := score.FitModel(x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter, Check: checker(ctx)})
 			if err != nil {
 				return err
 			}
@@ -144,6 +150,9 @@ func bootstrapAll(s *Spec, c *warehouse.Cohort, d *design, sum *Summary) error {
 		}
 	}
 	res, err := effect.BootstrapMany(n, reps, s.Estimate.Seed, 0, len(keys), replicate)
+	if cerr := ctx.Err(); cerr != nil {
+		return fmt.Errorf("bootstrap: %w", cerr)
+	}
 	if err != nil {
 		return fmt.Errorf("bootstrap: %w: only %d of %d replicates could be fitted; the sample may be too small or separated", warehouse.ErrBadInput, res[0].Reps, reps)
 	}

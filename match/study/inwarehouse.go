@@ -27,9 +27,20 @@ import (
 // iteration hands over). Both converge to the same maximum.
 // Errors wrap warehouse.ErrBadInput where the data are at fault.
 func FitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, opt score.Options) (*score.Fit, *warehouse.DesignSQL, error) {
+	return fitInWarehouse(ctx, iw, q, opt, nil)
+}
+
+// fitInWarehouse is FitInWarehouse with a guard that sees the cohort's
+// description before any design is built (the run's width check).
+func fitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, opt score.Options, guard func(*warehouse.Description) error) (*score.Fit, *warehouse.DesignSQL, error) {
 	desc, err := iw.Describe(ctx, q)
 	if err != nil {
 		return nil, nil, fmt.Errorf("describe cohort: %w", err)
+	}
+	if guard != nil {
+		if err := guard(desc); err != nil {
+			return nil, nil, err
+		}
 	}
 	d, err := warehouse.NewDesignSQL(desc)
 	if err != nil {

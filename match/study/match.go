@@ -33,6 +33,8 @@ type matchInput struct {
 	prior    *priorRun
 	// solver, when set, receives the optimal solver's certificate.
 	solver *Solver
+	// check is the cancellation check (assign.Options.Check).
+	check func() error
 }
 
 // Solver reports an optimal or full matching solve: the objective, whether
@@ -122,7 +124,7 @@ func matchUnits(in matchInput) ([]assign.Set, *Churn, error) {
 	}
 	opt := assign.Options{
 		Controls: in.spec.Matching.Controls, Reuse: in.spec.Matching.Reuse, Caliper: in.width,
-		Order: order, Seed: in.spec.Matching.Seed, Metric: metric,
+		Order: order, Seed: in.spec.Matching.Seed, Metric: metric, Check: in.check,
 	}
 	var fresh []assign.Set
 	if in.spec.Matching.Algorithm == "optimal" {

@@ -202,12 +202,21 @@ func settleRecord(r *warehouse.RunRecord, s *Spec, sum *Summary, now time.Time) 
 	r.SummaryJSON = mustJSON(sum)
 }
 
-// failPublish marks the run failed after a publish error, on a fresh
-// context (the run's may be the one that was cancelled), and returns the
-// error named once.
-func failPublish(wh warehouse.Warehouse, out warehouse.Output, sum *Summary, err error) error {
+// failPublish marks the run failed after a publish error — or cancelled,
+// when the run's context ended (a signal), whatever error the engine made
+// of that — on a fresh context, since the run's may be the one that was
+// cancelled, and returns the error named once. The fresh context is short:
+// a cancelled run has about two seconds to be gone.
+func failPublish(ctx context.Context, wh warehouse.Warehouse, out warehouse.Output, sum *Summary, err error) error {
 	fctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
 	defer cancel()
+	if cerr := ctx.Err(); cerr != nil {
+		fctx, cancel = context.WithTimeout(context.Background(), time.Second)
+		defer cancel()
+		_ = wh.CancelRun(fctx, out, sum.RunID, "cancelled by a signal during publishing; nothing was published")
+		sum.Status = warehouse.StatusCancelled
+		return fmt.Errorf("publish: %w", cerr)
+	}
 	_ = wh.FailRun(fctx, out, sum.RunID, err.Error())
 	sum.Status = warehouse.StatusFailed
 	return fmt.Errorf("publish: %w", err)

@@ -43,6 +43,10 @@ type Options struct {
 	// plots (score histograms, eCDFs); they cost a pass per covariate and
 	// adjustment, so plain runs skip them.
 	Diagnostics bool
+	// Pass, when set, is told after each Newton (IRLS) pass of the
+	// propensity fit: its number from 1 and the deviance. A wide or large
+	// fit takes minutes, and this is the only sign of life it gives.
+	Pass func(pass int, deviance float64)
 }
 
 // Run executes one study end to end against an already open warehouse.
@@ -81,7 +85,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 			return sum, err
 		}
 	}
-	res, err := analyse(s, r.cohort, sum, r.clock, opt.Diagnostics, r.prior)
+	res, err := analyse(ctx, s, r.cohort, sum, r.clock, opt, r.prior)
 	if err != nil {
 		return sum, err
 	}
@@ -116,6 +120,7 @@ func (r *run) read(ctx context.Context) error {
 		return fmt.Errorf("read cohort: %w", err)
 	}
 	r.timed("read")
+	r.sum.Pooled = poolRare(c, s.Cohort.RareLevels)
 	r.cohort = c
 	r.out.Unit, r.out.IDKind, r.out.Treatment = c.Unit, c.IDKind, c.Treatment
 	for _, cov := range c.Covariates {
@@ -186,7 +191,7 @@ func (r *run) publish(ctx context.Context, res *results) error {
 		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects), Survival: res.survival,
 	}
 	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
-		return failPublish(r.wh, r.out, sum, err)
+		return failPublish(ctx, r.wh, r.out, sum, err)
 	}
 	// The runs row's finish time is the end of the publish transaction.
 	sum.FinishedAt = pub.Run.FinishedAt
@@ -212,14 +217,32 @@ type results struct {
 }
 
 // badInput classes a stage error as a problem with the data or the study
-// (exit 2): the stages are pure, so their errors are never the database's.
+// (exit 2): the stages are pure, so their errors are never the database's
+// — except a cancelled run's, which the stages pass on from their check
+// and which stays a cancellation.
 func badInput(step string, err error) error {
+	if isCancel(err) {
+		return fmt.Errorf("%s: %w", step, err)
+	}
 	return fmt.Errorf("%s: %w: %w", step, warehouse.ErrBadInput, err)
+}
+
+// isCancel reports whether err is the run's context ending.
+func isCancel(err error) bool {
+	return errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded)
+}
+
+// checker is the cancellation check the pure stages take (score.Options,
+// assign.Options): the context's error, without the stages knowing it.
+func checker(ctx context.Context) func() error {
+	return func() error { return ctx.Err() }
 }
 
 // analysis is the statistical stages' shared state: the cohort, its
 // design and score, and the summary they fill.
 type analysis struct {
+	ctx    context.Context
+	opt    Options
 	s      *Spec
 	c      *warehouse.Cohort
 	sum    *Summary
@@ -236,10 +259,15 @@ type analysis struct {
 	mr     *matchedRows
 }
 
-// analyse runs every statistical stage on the cohort and fills the summary.
-func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, clk *clock, diagnostics bool, prior *priorRun) (*results, error) {
-	a := &analysis{s: s, c: c, sum: sum, clk: clk, prior: prior}
+// analyse runs every statistical stage on the cohort and fills the
+// summary. ctx cancels it: between stages, and inside the long loops (the
+// fit's passes, matching, the bootstrap) through their check functions.
+func analyse(ctx context.Context, s *Spec, c *warehouse.Cohort, sum *Summary, clk *clock, opt Options, prior *priorRun) (*results, error) {
+	a := &analysis{ctx: ctx, opt: opt, s: s, c: c, sum: sum, clk: clk, prior: prior}
 	if err := a.checkArms(); err != nil {
+		return nil, err
+	}
+	if err := checkWidth(s, cohortLevels(c), c.N()); err != nil {
 		return nil, err
 	}
 	// The fingerprint only needs the cohort: hash it while the model fits
@@ -250,11 +278,14 @@ func analyse(s *Spec, c *warehouse.Cohort, sum *Summary, clk *clock, diagnostics
 		defer func() { sum.Fingerprint = <-fp }()
 	}
 	steps := []func() error{a.fitScore, a.support, a.match, a.weight}
-	if diagnostics {
+	if opt.Diagnostics {
 		steps = append(steps, a.diagnose)
 	}
 	steps = append(steps, a.estimate)
 	for _, step := range steps {
+		if err := ctx.Err(); err != nil {
+			return nil, fmt.Errorf("analyse: %w", err)
+		}
 		if err := step(); err != nil {
 			return nil, err
 		}
@@ -278,7 +309,7 @@ func (a *analysis) checkArms() error {
 	if nt == n {
 		return fmt.Errorf("read cohort: %w: column %s is true for every unit; the cohort needs comparison (untreated) units", warehouse.ErrBadInput, a.c.Treatment)
 	}
-	return checkTextNumbers(a.s, a.c)
+	return checkTextNumbers(a.s, a.c, a.sum)
 }
 
 // fitScore builds the design and fits the propensity score.
@@ -294,7 +325,8 @@ func (a *analysis) fitScore() error {
 	if err != nil {
 		return badInput("fit score", err)
 	}
-	fit, err := score.FitModel(d.x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+	fit, err := score.FitModel(d.x, d.names, z, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter,
+		Check: checker(a.ctx), OnPass: a.opt.Pass})
 	if err != nil {
 		return badInput("fit score", err)
 	}
@@ -365,7 +397,7 @@ func (a *analysis) match() error {
 	switch s.Matching.Algorithm {
 	case "greedy", "optimal":
 		var solver Solver
-		sets, churn, err := matchUnits(matchInput{spec: s, cohort: c, logit: fit.Logit, eligible: a.res.inSupport, strata: st, width: width, prior: a.prior, solver: &solver})
+		sets, churn, err := matchUnits(matchInput{spec: s, cohort: c, logit: fit.Logit, eligible: a.res.inSupport, strata: st, width: width, prior: a.prior, solver: &solver, check: checker(a.ctx)})
 		if err != nil {
 			return badInput("match", err)
 		}
@@ -379,7 +411,7 @@ func (a *analysis) match() error {
 			setControls = append(setControls, set.Controls)
 		}
 	case "full":
-		gs, cert, err := assign.Full(fit.Logit, z, st, a.res.inSupport, assign.FullOptions{Caliper: width, MaxControls: s.Matching.MaxControls, MaxTreated: s.Matching.MaxTreated})
+		gs, cert, err := assign.Full(fit.Logit, z, st, a.res.inSupport, assign.FullOptions{Caliper: width, MaxControls: s.Matching.MaxControls, MaxTreated: s.Matching.MaxTreated, Check: checker(a.ctx)})
 		if err != nil {
 			return badInput("match", err)
 		}
@@ -479,7 +511,13 @@ func (a *analysis) estimate() error {
 			plain.Outcomes = append(plain.Outcomes, o)
 		}
 	}
+	// The estimators are fast per call; the context is asked between
+	// them, and the bootstrap asks it in every replicate.
+	cancelled := func() error { return wrapStep("estimate", a.ctx.Err()) }
 	if err := estimateAll(&plain, a.adjs, a.mr, a.fit.Logit, sum); err != nil {
+		return err
+	}
+	if err := cancelled(); err != nil {
 		return err
 	}
 	steps, err := estimateEvents(s, a.c, a.adjs, a.mr, sum)
@@ -487,17 +525,23 @@ func (a *analysis) estimate() error {
 		return err
 	}
 	a.res.survival = steps
+	if err := cancelled(); err != nil {
+		return err
+	}
 	if err := estimateRates(s, a.c, a.adjs, a.mr, sum); err != nil {
 		return err
 	}
 	if s.Estimate.Augment {
+		if err := cancelled(); err != nil {
+			return err
+		}
 		if err := augmentAll(&plain, a.adjs, a.mr, a.d.x, sum); err != nil {
 			return err
 		}
 	}
 	if s.Estimate.Bootstrap > 0 {
 		a.clk.stage("bootstrap")
-		if err := bootstrapAll(s, &plain, a.d, sum); err != nil {
+		if err := bootstrapAll(a.ctx, s, &plain, a.d, sum); err != nil {
 			return err
 		}
 		a.clk.timed("bootstrap")

@@ -67,6 +67,13 @@ type CohortSpec struct {
 	Outcomes    []string `yaml:"outcomes" json:"outcomes"`
 	Covariates  []string `yaml:"covariates" json:"covariates"`
 	Categorical []string `yaml:"categorical" json:"categorical"`
+	// MaxLevels bounds a categorical covariate's levels (0: the default,
+	// DefaultMaxLevels); see checkWidth for the rule with the cohort's size.
+	MaxLevels int `yaml:"max_levels" json:"max_levels,omitempty"`
+	// RareLevels, when above 0, pools the levels of every categorical
+	// covariate held by fewer than RareLevels units into one level of
+	// their own, RareLevel, before anything else sees the cohort.
+	RareLevels int `yaml:"rare_levels" json:"rare_levels,omitempty"`
 	// TimeToEvent lists outcomes that are a time to an event under
 	// censoring; Rates lists event counts over unequal exposure.
 	TimeToEvent []TimeToEventSpec `yaml:"time_to_event" json:"time_to_event,omitempty"`
@@ -112,6 +119,9 @@ type ScoreSpec struct {
 	Model   string  `yaml:"model" json:"model"`
 	Lambda  float64 `yaml:"lambda" json:"lambda"`
 	MaxIter int     `yaml:"max_iter" json:"max_iter"`
+	// MaxTerms bounds the model's columns, intercept excluded (0: the
+	// default, DefaultMaxTerms).
+	MaxTerms int `yaml:"max_terms" json:"max_terms,omitempty"`
 	// FitIn says where the model is fitted and the per-unit rows are
 	// computed: "memory" (the default) reads the cohort into the
 	// process; "warehouse" fits with one aggregate query per Newton step
@@ -585,6 +595,15 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	if s.Score.MaxIter < 0 {
 		return bad("score.max_iter", "must be >= 0 (0 picks the default, 50)")
 	}
+	if s.Score.MaxTerms < 0 {
+		return bad("score.max_terms", "must be >= 0 (0 picks the default, %d)", DefaultMaxTerms)
+	}
+	if s.Cohort.MaxLevels < 0 {
+		return bad("cohort.max_levels", "must be >= 0 (0 picks the default, %d)", DefaultMaxLevels)
+	}
+	if s.Cohort.RareLevels < 0 {
+		return bad("cohort.rare_levels", "must be >= 0 units (0 pools nothing)")
+	}
 	if err := enum("support", &s.Support, "none", supports); err != nil {
 		return err
 	}
@@ -932,6 +951,11 @@ func (s *Spec) validateFitIn(doc *yaml.Node) error {
 		return bad("estimate.bootstrap", "the bootstrap")
 	case s.Rules.Stabilize || len(s.Rules.Percentiles) > 0 || len(s.Rules.Bounds) > 0:
 		return bad("weight_rules", "a weight rule")
+	case s.Cohort.RareLevels > 0:
+		// The engine writes the snapshot and the sums from the cohort
+		// query itself; pooling would have to be SQL, which the analyst
+		// can write (CASE WHEN … THEN '(rare)').
+		return bad("cohort.rare_levels", "pooling rare levels")
 	}
 	return nil
 }

@@ -11,17 +11,20 @@ import (
 // columns, and the source of the terminal summary. It never holds
 // patient-level values.
 type Summary struct {
-	Study       string              `json:"study"`
-	RunID       string              `json:"run_id"`
-	Status      string              `json:"status"`
-	Message     string              `json:"message,omitempty"`
-	Engine      string              `json:"engine"`
-	ToolVersion string              `json:"tool_version"`
-	SpecSHA256  string              `json:"spec_sha256"`
-	DryRun      bool                `json:"dry_run"`
-	StartedAt   time.Time           `json:"started_at"`
-	FinishedAt  time.Time           `json:"finished_at"`
-	Fingerprint string              `json:"cohort_fingerprint,omitempty"`
+	Study       string    `json:"study"`
+	RunID       string    `json:"run_id"`
+	Status      string    `json:"status"`
+	Message     string    `json:"message,omitempty"`
+	Engine      string    `json:"engine"`
+	ToolVersion string    `json:"tool_version"`
+	SpecSHA256  string    `json:"spec_sha256"`
+	DryRun      bool      `json:"dry_run"`
+	StartedAt   time.Time `json:"started_at"`
+	FinishedAt  time.Time `json:"finished_at"`
+	Fingerprint string    `json:"cohort_fingerprint,omitempty"`
+	// Pooled lists the categorical covariates whose rare levels
+	// cohort.rare_levels pooled.
+	Pooled      []PooledLevels      `json:"pooled_levels,omitempty"`
 	Counts      Counts              `json:"counts"`
 	Model       ModelSummary        `json:"model"`
 	Support     Support             `json:"support"`

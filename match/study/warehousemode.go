@@ -83,7 +83,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	if err != nil {
 		return sum, badInput("fit score", err)
 	}
-	fit, d, err := FitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter})
+	guard := func(desc *warehouse.Description) error { return checkWidth(s, describedLevels(desc), desc.N) }
+	fit, d, err := fitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter, OnPass: opt.Pass}, guard)
 	if err != nil {
 		return sum, err
 	}
@@ -121,7 +122,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	thin := &warehouse.Cohort{Unit: q.Unit, IDKind: mi.IDKind, IntIDs: mi.IntIDs, TextIDs: mi.TextIDs, Treatment: q.Treatment, Treated: mi.Treated}
 	var rows warehouse.MatchRows
 	if s.Matching.Algorithm != "off" {
-		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum); err != nil {
+		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum, checker(ctx)); err != nil {
 			return sum, err
 		}
 		clk.timed("match")
@@ -154,7 +155,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	}
 	pub := &warehouse.Publication{Run: rec, Survival: ev.steps}
 	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, ev, clk.now); err != nil {
-		return sum, failPublish(wh, out, sum, err)
+		return sum, failPublish(ctx, wh, out, sum, err)
 	}
 	clk.timed("publish")
 	return sum, finishRun(sum)
@@ -209,7 +210,7 @@ func logistic(eta float64) float64 { return 1 / (1 + math.Exp(-eta)) }
 
 // matchInWarehouse matches on MatchInput's slices with the in-memory
 // greedy or optimal code and returns the matches rows.
-func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary) (warehouse.MatchRows, error) {
+func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput, keptT int, sum *Summary, check func() error) (warehouse.MatchRows, error) {
 	z := mi.Treated
 	sd := pooledSD(mi.Logit, z)
 	width := s.Matching.Caliper * sd
@@ -221,7 +222,7 @@ func matchInWarehouse(s *Spec, thin *warehouse.Cohort, mi *warehouse.MatchInput,
 	ms := MatchingSummary{Algorithm: s.Matching.Algorithm, Controls: s.Matching.Controls, Reuse: s.Matching.Reuse,
 		CaliperSD: Num(s.Matching.Caliper), LogitSD: Num(sd), CaliperWidth: Num(width), Strata: nstrata}
 	var solver Solver
-	sets, _, err := matchUnits(matchInput{spec: s, cohort: thin, logit: mi.Logit, eligible: mi.InSupport, strata: st, width: width, solver: &solver})
+	sets, _, err := matchUnits(matchInput{spec: s, cohort: thin, logit: mi.Logit, eligible: mi.InSupport, strata: st, width: width, solver: &solver, check: check})
 	if err != nil {
 		return warehouse.MatchRows{}, badInput("match", err)
 	}

@@ -93,6 +93,24 @@ type Network struct {
 	Augmentations int
 	// Pops counts heap pops over all searches, a measure of search work.
 	Pops int
+
+	// Check, when set, is asked every checkEvery augmentations; its
+	// error stops Solve (a cancelled run), and the network is left
+	// unusable.
+	Check func() error
+}
+
+// checkEvery is how many augmentations pass between two Check calls: each
+// is one shortest-path search, so a few hundred take milliseconds.
+const checkEvery = 256
+
+// checkNow calls Check when the augmentation count reaches a multiple of
+// checkEvery.
+func (g *Network) checkNow() error {
+	if g.Check == nil || g.Augmentations%checkEvery != 0 {
+		return nil
+	}
+	return g.Check()
 }
 
 // New returns a network with nt treated and nc control nodes, no candidate
@@ -326,11 +344,17 @@ func (g *Network) Solve(tol float64) error {
 			if err := g.augment(v); err != nil {
 				return err
 			}
+			if err := g.checkNow(); err != nil {
+				return err
+			}
 		}
 	}
 	for v := 0; v < g.hub; v++ {
 		for g.excess[v] < 0 {
 			if err := g.pull(v); err != nil {
+				return err
+			}
+			if err := g.checkNow(); err != nil {
 				return err
 			}
 		}

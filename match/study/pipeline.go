@@ -213,8 +213,9 @@ func failPublish(ctx context.Context, wh warehouse.Warehouse, out warehouse.Outp
 	if cerr := ctx.Err(); cerr != nil {
 		fctx, cancel = context.WithTimeout(context.Background(), time.Second)
 		defer cancel()
-		_ = wh.CancelRun(fctx, out, sum.RunID, "cancelled by a signal during publishing; nothing was published")
-		sum.Status = warehouse.StatusCancelled
+		if wh.CancelRun(fctx, out, sum.RunID, "cancelled by a signal during publishing; nothing was published") == nil {
+			sum.Status = warehouse.StatusCancelled
+		}
 		return fmt.Errorf("publish: %w", cerr)
 	}
 	_ = wh.FailRun(fctx, out, sum.RunID, err.Error())

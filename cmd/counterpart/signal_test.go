@@ -19,19 +19,25 @@ import (
 )
 
 // The signal tests run the CLI as a child process: this test binary,
-// re-executed with faultChildEnv set, runs main instead of the tests. With
-// faultPauseEnv naming a stage, the child holds at that stage's start (it
-// prints a faultPauseMsg record first) until its context ends, so that a
-// signal lands inside the stage however short the stage is at test sizes.
+// re-executed to run only TestFaultChild with faultChildEnv set, which
+// runs main with the arguments in faultArgsEnv. (Not from init: DuckDB
+// calls back into Go from its own threads, and such calls wait until
+// package initialisation is over.) With faultPauseEnv naming a stage, the
+// child holds at that stage's start (it prints a faultPauseMsg record
+// first) until its context ends, so that a signal lands inside the stage
+// however short the stage is at test sizes.
 const (
 	faultChildEnv = "COUNTERPART_FAULT_CHILD"
+	faultArgsEnv  = "COUNTERPART_FAULT_ARGS"
 	faultPauseEnv = "COUNTERPART_FAULT_PAUSE"
 	faultPauseMsg = "fault pause"
 )
 
-func init() {
+// TestFaultChild is the child process of the signal tests; run directly
+// it does nothing.
+func TestFaultChild(t *testing.T) {
 	if os.Getenv(faultChildEnv) != "1" {
-		return
+		t.Skip("the signal tests' child process")
 	}
 	if pause := os.Getenv(faultPauseEnv); pause != "" {
 		stageHook = func(ctx context.Context, stage string) {
@@ -45,6 +51,7 @@ func init() {
 			}
 		}
 	}
+	os.Args = append([]string{"counterpart"}, strings.Split(os.Getenv(faultArgsEnv), "\x1f")...)
 	main()
 }
 
@@ -68,8 +75,9 @@ type child struct {
 
 func startChild(t *testing.T, spec, pause string) *child {
 	t.Helper()
-	cmd := exec.Command(os.Args[0], "--log-format", "json", "run", spec)
-	cmd.Env = append(os.Environ(), faultChildEnv+"=1", faultPauseEnv+"="+pause)
+	cmd := exec.Command(os.Args[0], "-test.run=^TestFaultChild$")
+	cmd.Env = append(os.Environ(), faultChildEnv+"=1", faultPauseEnv+"="+pause,
+		faultArgsEnv+"="+strings.Join([]string{"--log-format", "json", "run", spec}, "\x1f"))
 	pipe, err := cmd.StderrPipe()
 	if err != nil {
 		t.Fatal(err)
@@ -157,6 +165,8 @@ func (c *child) wait(t *testing.T, timeout time.Duration) (int, time.Duration) {
 		}
 		return 0, took
 	case <-time.After(timeout):
+		_ = c.cmd.Process.Signal(syscall.SIGQUIT) // the Go runtime prints its goroutines
+		time.Sleep(time.Second)
 		_ = c.cmd.Process.Kill()
 		t.Fatalf("the child was still running %v later: %s", timeout, c.stderr())
 		return 0, 0
@@ -274,7 +284,7 @@ func runFault(t *testing.T, e faultEngine, dsn, spec string, units int) faultSta
 	t.Helper()
 	for try := 0; ; try++ {
 		c := startChild(t, spec, "")
-		code, _ := c.wait(t, 2*time.Minute)
+		code, _ := c.wait(t, 20*time.Second)
 		if code == exitLocked && try < 20 {
 			time.Sleep(100 * time.Millisecond)
 			continue

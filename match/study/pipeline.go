@@ -223,6 +223,16 @@ func failPublish(ctx context.Context, wh warehouse.Warehouse, out warehouse.Outp
 	return fmt.Errorf("publish: %w", err)
 }
 
+// startFailed names a StartRun error. When the run was cancelled the row
+// may have been written before the engine noticed, so it is marked
+// cancelled if it is there.
+func startFailed(ctx context.Context, wh warehouse.Warehouse, out warehouse.Output, sum *Summary, err error) error {
+	if ctx.Err() != nil {
+		return failPublish(ctx, wh, out, sum, err)
+	}
+	return fmt.Errorf("start run: %w", err)
+}
+
 // finishRun turns a published run's status into the run's error: a
 // rejected run exits 3.
 func finishRun(sum *Summary) error {

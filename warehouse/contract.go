@@ -121,7 +121,7 @@ func NewContract(out Output) (*Contract, error) {
 	c.Runs.Columns = []Column{
 		{"run_id", TypeText, "unique id of the run"},
 		{"study", TypeText, "study name from the study file"},
-		{"status", TypeText, "running, succeeded, rejected (balance gate failed; rows kept for inspection), failed, skipped, or abandoned (left running by a process that died; set by the next run)"},
+		{"status", TypeText, "running, succeeded, rejected (balance gate failed; rows kept for inspection), failed, skipped, cancelled (stopped by a signal; nothing published), or abandoned (left running by a process that died; set by the next run)"},
 		{"started_at", TypeTimestampTZ, "when the run started"},
 		{"finished_at", TypeTimestampTZ, "when the run finished; NULL while running"},
 		{"tool_version", TypeText, "counterpart version that wrote the run"},

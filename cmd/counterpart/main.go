@@ -25,6 +25,11 @@ import (
 	"counterpart/warehouse"
 )
 
+// stageHook, when set, is called as each stage starts, after the
+// progress display. Only the fault tests set it, to hold a run inside a
+// chosen stage until they have signalled it; it is nil in the product.
+var stageHook func(ctx context.Context, stage string)
+
 // version is set at build time with -ldflags "-X main.version=...".
 var version = "0.1.0-dev"
 
@@ -36,6 +41,7 @@ const (
 	exitRejected  = 3
 	exitLocked    = 4
 	exitUnchanged = 5
+	exitCancelled = 6
 	exitBusy      = 7
 )
 
@@ -46,10 +52,16 @@ const exitHelp = `EXIT CODES:
    3  balance gate rejected the run (recorded as rejected; current views untouched)
    4  another run of the same study holds the lock
    5  skipped: nothing changed since the last succeeded run (when asked for)
+   6  cancelled by a signal (SIGTERM, SIGINT): rolled back, run marked cancelled;
+      a second signal ends the process at once
    7  warehouse busy: another process holds the DuckDB file (retry later, or --wait)`
 
 func main() {
 	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	// The first signal cancels the run, which then rolls back and marks
+	// its row; restoring the default handling right away lets a second
+	// signal end the process at once, as an operator expects.
+	context.AfterFunc(ctx, stop)
 	code := run(ctx, os.Args, os.Stdout, os.Stderr)
 	stop()
 	os.Exit(code)
@@ -217,7 +229,18 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 	defer wh.Close()
 	log.Info("run starting", "study", spec.Study, "engine", spec.Warehouse.Engine, "dry_run", dry)
 	prog := newProgress(stderr, tty && f.logFormat == "", log)
-	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != "", Stage: prog.stage, SkipUnchanged: f.skip})
+	sum, err := study.Run(ctx, spec, wh, study.Options{DryRun: dry, ToolVersion: version, Diagnostics: f.report != "",
+		Stage: func(name string) {
+			prog.stage(name)
+			if stageHook != nil {
+				stageHook(ctx, name)
+			}
+		}, Pass: prog.pass, SkipUnchanged: f.skip})
+	if err != nil && ctx.Err() != nil {
+		// Whatever error the stage or the engine made of it, a run that
+		// ends after a signal was cancelled.
+		return cancelled(stderr, f.logFormat, log, prog.abort(), sum)
+	}
 	prog.done()
 	if sum != nil && sum.Status != "" {
 		log.Info("run finished", "study", spec.Study, "run_id", sum.RunID, "status", sum.Status)
@@ -241,6 +264,30 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 		return fail(stderr, f.logFormat, err)
 	}
 	return exitOK
+}
+
+// cancelled reports a run a signal stopped, once, at WARN: a JSON record
+// with --log-format json, a text record when logging is on, else the one
+// stderr line; and returns exit 6. stage is the stage it stopped in.
+func cancelled(stderr io.Writer, logFormat string, log *slog.Logger, stage string, sum *study.Summary) int {
+	msg := "cancelled by a signal"
+	if stage != "" {
+		msg += " during " + stage
+	}
+	if sum != nil && sum.Status == warehouse.StatusCancelled {
+		msg += "; run " + sum.RunID + " marked cancelled, nothing published"
+	} else {
+		msg += "; nothing published"
+	}
+	switch {
+	case logFormat == "json":
+		slog.New(slog.NewJSONHandler(stderr, nil)).Warn(msg, "exit_code", exitCancelled, "stage", stage)
+	case log.Enabled(context.Background(), slog.LevelWarn):
+		log.Warn(msg, "exit_code", exitCancelled, "stage", stage)
+	default:
+		fmt.Fprintln(stderr, "counterpart: "+msg)
+	}
+	return exitCancelled
 }
 
 // writeReport writes the HTML report atomically: a reader never sees half

@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"fmt"
 	"io"
 	"log/slog"
 	"time"
@@ -76,6 +77,32 @@ func (p *progress) finishStage() {
 		_ = p.bar.Add(1)
 	}
 	p.name = ""
+}
+
+// passLogAfter is how long a fit runs silently: past it, every IRLS pass
+// is logged, so that a long fit off a terminal still shows it is alive.
+const passLogAfter = 10 * time.Second
+
+// pass is study.Options.Pass: after passLogAfter in the stage, one log
+// record per pass, and the pass on the bar.
+func (p *progress) pass(n int, deviance float64) {
+	if p.bar != nil {
+		p.bar.Describe(fmt.Sprintf("%s (pass %d)", p.name, n))
+	}
+	if time.Since(p.start) >= passLogAfter {
+		p.log.Info("fit pass", "stage", p.name, "pass", n, "deviance", deviance, "seconds", time.Since(p.start).Seconds())
+	}
+}
+
+// abort ends the display of a run that was stopped: the interrupted
+// stage is not reported done. It returns that stage's name.
+func (p *progress) abort() string {
+	name := p.name
+	p.name = ""
+	if p.bar != nil {
+		_ = p.bar.Exit()
+	}
+	return name
 }
 
 // done ends the display; the bar clears itself so the summary follows.

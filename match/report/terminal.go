@@ -40,6 +40,10 @@ func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 	p.line("")
 	c := s.Counts
 	p.row("cohort", "%s units: %s treated, %s comparison", thousands(c.Units), thousands(c.Treated), thousands(c.Control))
+	for _, pl := range s.Pooled {
+		p.row("", "%s: %s levels with fewer than %s units pooled into %s (%s units)",
+			pl.Covariate, thousands(pl.Levels), thousands(pl.MinUnits), pl.Level, thousands(pl.Units))
+	}
 	sup := s.Support
 	if sup.Rule == "none" {
 		p.row("support", "none applied")

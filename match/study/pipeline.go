@@ -213,13 +213,24 @@ func failPublish(ctx context.Context, wh warehouse.Warehouse, out warehouse.Outp
 	if cerr := ctx.Err(); cerr != nil {
 		fctx, cancel = context.WithTimeout(context.Background(), time.Second)
 		defer cancel()
-		_ = wh.CancelRun(fctx, out, sum.RunID, "cancelled by a signal during publishing; nothing was published")
-		sum.Status = warehouse.StatusCancelled
+		if wh.CancelRun(fctx, out, sum.RunID, "cancelled by a signal during publishing; nothing was published") == nil {
+			sum.Status = warehouse.StatusCancelled
+		}
 		return fmt.Errorf("publish: %w", cerr)
 	}
 	_ = wh.FailRun(fctx, out, sum.RunID, err.Error())
 	sum.Status = warehouse.StatusFailed
 	return fmt.Errorf("publish: %w", err)
+}
+
+// startFailed names a StartRun error. When the run was cancelled the row
+// may have been written before the engine noticed, so it is marked
+// cancelled if it is there.
+func startFailed(ctx context.Context, wh warehouse.Warehouse, out warehouse.Output, sum *Summary, err error) error {
+	if ctx.Err() != nil {
+		return failPublish(ctx, wh, out, sum, err)
+	}
+	return fmt.Errorf("start run: %w", err)
 }
 
 // finishRun turns a published run's status into the run's error: a

@@ -183,7 +183,7 @@ func (r *run) publish(ctx context.Context, res *results) error {
 	r.stage("publish")
 	rec := newRunRecord(ctx, s, r.wh, r.opt, sum)
 	if err := r.wh.StartRun(ctx, r.out, rec); err != nil {
-		return fmt.Errorf("start run: %w", err)
+		return startFailed(ctx, r.wh, r.out, sum, err)
 	}
 	settleRecord(&rec, s, sum, r.now())
 	pub := &warehouse.Publication{

@@ -151,7 +151,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	}
 	rec := newRunRecord(ctx, s, wh, opt, sum)
 	if err := wh.StartRun(ctx, out, rec); err != nil {
-		return sum, fmt.Errorf("start run: %w", err)
+		return sum, startFailed(ctx, wh, out, sum, err)
 	}
 	pub := &warehouse.Publication{Run: rec, Survival: ev.steps}
 	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, ev, clk.now); err != nil {

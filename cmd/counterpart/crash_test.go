@@ -15,6 +15,7 @@ import (
 	"time"
 
 	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/warehousetest"
 )
 
 // crashUnits sizes the cohort so that publishing takes a good part of a
@@ -58,25 +59,7 @@ func crashEngines() []crashEngine {
 					t.Fatal(err)
 				}
 				defer db.Close()
-				rows, err := db.Query(q)
-				if err != nil {
-					t.Fatalf("%s: %v", q, err)
-				}
-				defer rows.Close()
-				cols, _ := rows.Columns()
-				var out [][]any
-				for rows.Next() {
-					v := make([]any, len(cols))
-					p := make([]any, len(cols))
-					for i := range v {
-						p[i] = &v[i]
-					}
-					if err := rows.Scan(p...); err != nil {
-						t.Fatal(err)
-					}
-					out = append(out, v)
-				}
-				return out
+				return warehousetest.SQLRows(t, db, q)
 			},
 			// The process is gone once Wait returns; DuckDB recovers on
 			// the next open.

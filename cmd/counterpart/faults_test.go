@@ -24,6 +24,7 @@ import (
 
 	"counterpart/match/study"
 	"counterpart/warehouse/postgres/pgtest"
+	"counterpart/warehouse/warehousetest"
 )
 
 // The fault tests run the CLI as a child process (this test binary again,
@@ -164,21 +165,7 @@ func (f faultDB) query(q string) ([][]any, error) {
 	if err != nil {
 		return nil, busyRead(err)
 	}
-	defer rows.Close()
-	cols, _ := rows.Columns()
-	var out [][]any
-	for rows.Next() {
-		v := make([]any, len(cols))
-		p := make([]any, len(cols))
-		for i := range v {
-			p[i] = &v[i]
-		}
-		if err := rows.Scan(p...); err != nil {
-			return nil, err
-		}
-		out = append(out, v)
-	}
-	return out, rows.Err()
+	return warehousetest.ScanAll(rows)
 }
 
 // pgQuery reads on a session of its own, as a dashboard does.

@@ -19,10 +19,20 @@ func SQLRows(t testing.TB, db interface {
 	if err != nil {
 		t.Fatalf("%s: %v", query, err)
 	}
+	out, err := ScanAll(rows)
+	if err != nil {
+		t.Fatalf("%s: %v", query, err)
+	}
+	return out
+}
+
+// ScanAll reads every row of rows as the driver's Go values (NULL is nil)
+// and closes rows.
+func ScanAll(rows *sql.Rows) ([][]any, error) {
 	defer rows.Close()
 	cols, err := rows.Columns()
 	if err != nil {
-		t.Fatal(err)
+		return nil, err
 	}
 	var out [][]any
 	for rows.Next() {
@@ -32,14 +42,11 @@ func SQLRows(t testing.TB, db interface {
 			ptrs[i] = &vals[i]
 		}
 		if err := rows.Scan(ptrs...); err != nil {
-			t.Fatal(err)
+			return nil, err
 		}
 		out = append(out, vals)
 	}
-	if err := rows.Err(); err != nil {
-		t.Fatalf("%s: %v", query, err)
-	}
-	return out
+	return out, rows.Err()
 }
 
 // Keep returns w for a test after Open gave it (failing the test on err)

@@ -121,6 +121,29 @@ func RowDiff(a, b [][]any) (onlyA, onlyB int) {
 	return onlyA, onlyB
 }
 
+// OnlyIn returns up to limit canonical rows of a that b lacks (as
+// multisets), in a's order, each cut to its first keyCols cells: the keys
+// of differing aggregate rows (effects: outcome, adjustment, …) for a
+// message. Never use it on per-unit tables.
+func OnlyIn(a, b [][]any, keyCols, limit int) []string {
+	count := map[string]int{}
+	for _, r := range CanonRows(b) {
+		count[r]++
+	}
+	var out []string
+	for i, r := range CanonRows(a) {
+		if count[r] > 0 {
+			count[r]--
+			continue
+		}
+		if len(out) < limit {
+			cells := CanonRows([][]any{a[i][:min(keyCols, len(a[i]))]})
+			out = append(out, strings.ReplaceAll(cells[0], "\t", "/"))
+		}
+	}
+	return out
+}
+
 // ControlSets maps each treated unit of matches rows (set_id, unit,
 // treated, …: the first three columns of the matches table in contract
 // order after run_id) to the sorted canonical ids of the controls of its

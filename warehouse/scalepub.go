@@ -1,9 +1,9 @@
 package warehouse
 
 import (
-	"math"
 	"context"
 	"fmt"
+	"math"
 	"strings"
 )
 

@@ -64,6 +64,16 @@ type sumPart struct {
 // result. Value i is Σ_j parts[i][j].agg · 2^parts[i][j].exp.
 type sumSet struct {
 	parts [][]sumPart
+	// decimal sums each double as one NUMERIC instead of integer parts
+	// (Postgres only). A partitioned pass is flattened onto the table
+	// for a node to run, so every reference to a per-row value repeats
+	// its whole defining expression; the integer split refers to its
+	// value up to seven times, which made a pass over the weights many
+	// times slower. CAST(x AS NUMERIC) refers to it once, is a fixed
+	// function of the row (Postgres converts a double to 15 significant
+	// digits), and sum(numeric) is exact: still independent of order
+	// and node, with each row's value rounded to 15 digits.
+	decimal bool
 }
 
 // count adds the number of rows where cond holds (cond "" counts all
@@ -86,6 +96,10 @@ func (s *sumSet) integer(expr string) int {
 // sum adds the exact sum of the DOUBLE PRECISION expression x (NULL rows
 // add nothing), split as k says.
 func (s *sumSet) sum(x string, k exactKind) int {
+	if s.decimal {
+		s.parts = append(s.parts, []sumPart{{"sum(CAST(" + x + " AS NUMERIC))", 0}})
+		return len(s.parts) - 1
+	}
 	scaled := "(" + x + ")"
 	if k.e0 > 0 {
 		scaled = "(" + x + ") / " + pow2(k.e0)
@@ -232,12 +246,14 @@ func (s *sumSet) decodeExact(text string) ([]*big.Float, error) {
 	for i, ps := range s.parts {
 		acc := exactFloat()
 		for _, p := range ps {
-			n, ok := new(big.Int).SetString(strings.TrimSuffix(strings.TrimSpace(fields[f]), ".0"), 10)
-			if !ok {
-				return nil, fmt.Errorf("exact sums: %q is not an integer", fields[f])
-			}
+			field := strings.TrimSpace(fields[f])
 			f++
-			v := exactFloat().SetInt(n)
+			v := exactFloat()
+			if n, ok := new(big.Int).SetString(field, 10); ok {
+				v.SetInt(n)
+			} else if _, ok := v.SetString(field); !ok || !s.decimal {
+				return nil, fmt.Errorf("exact sums: %q is not an integer", field)
+			}
 			v.SetMantExp(v, p.exp)
 			acc.Add(acc, v)
 		}

@@ -451,7 +451,7 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 	}
 	levels = append(levels, last)
 
-	ss := momentSums(k, info)
+	ss := momentSums(k, info, q.Partition != "")
 	from := chainLevels(From(q.SQL), "", levels, lateral, q.Partition)
 	return ss.arraySQL(from, partitionRef(q.Partition), ""), b.args
 }
@@ -459,8 +459,8 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 // momentSums lists MomentsSQL's sums in the order SplitMoments reads
 // them: count, treated, log-likelihood, perfect predictions, the k
 // gradient sums, then (info) the upper triangle of the information.
-func momentSums(k int, info bool) *sumSet {
-	ss := &sumSet{}
+func momentSums(k int, info, decimal bool) *sumSet {
+	ss := &sumSet{decimal: decimal}
 	ss.count("")
 	ss.integer("z")
 	ss.sum("ll", designScale)
@@ -496,9 +496,9 @@ func fenceText(fence bool) string {
 
 // SplitMoments decodes MomentsSQL's one column into m (k = design
 // columns + 1); info says whether the query had the information sums
-// (m.Info stays nil otherwise).
-func SplitMoments(m *Moments, k int, text string, info bool) error {
-	vals, err := momentSums(k, info).decode(text)
+// (m.Info stays nil otherwise), partitioned whether q.Partition was set.
+func SplitMoments(m *Moments, k int, text string, info, partitioned bool) error {
+	vals, err := momentSums(k, info, partitioned).decode(text)
 	if err != nil {
 		return fmt.Errorf("moments: %w", err)
 	}

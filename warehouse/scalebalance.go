@@ -252,7 +252,7 @@ func runSums(r RunSums, nw, nbal int) *sumSet {
 	if len(bal) != nbal {
 		panic(fmt.Sprintf("warehouse: %d balance terms, want %d", nbal, len(bal)))
 	}
-	ss := &sumSet{}
+	ss := &sumSet{decimal: r.Cohort != nil && r.Cohort.Partition != ""}
 	for _, w := range weights {
 		ss.sum(w, rawScale)
 		ss.sum(w+" * "+w, rawScale)

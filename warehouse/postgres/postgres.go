@@ -54,7 +54,7 @@ var pgTypes = map[warehouse.ColType]string{
 func (w *Warehouse) dialect() *sqlcore.Dialect {
 	a := (*adapter)(w)
 	return &sqlcore.Dialect{
-		Name: "postgres", Types: pgTypes, Inlines: true,
+		Name: "postgres", Types: pgTypes, Inlines: true, Partitions: true,
 		// hashtext is the hash of Postgres's text hash indexes; it is
 		// stable within a major version, which is all a seed needs.
 		SampleKeep: func(unit string, modulus int) string {

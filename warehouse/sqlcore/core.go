@@ -41,6 +41,13 @@ type Dialect struct {
 	// parent and copies each column's defining expression into every
 	// reference (Postgres): queries then fence or chain LATERAL scans.
 	Inlines bool
+	// Partitions is true when the engine can spread a partitioned
+	// table's aggregates over nodes (Postgres with postgres_fdw
+	// partitions, or a distributed Postgres), so that
+	// cohort.partition_column is worth its per-partition grouping. An
+	// embedded engine has one node; it ignores the column (the sums are
+	// exact either way, so the results are the same).
+	Partitions bool
 	// SampleKeep is the seed sample's condition on the quoted unit
 	// column c.<unit>: a stable hash modulo modulus is 0.
 	SampleKeep func(unit string, modulus int) string

@@ -131,12 +131,13 @@ func (c *Core) eachQuery(ctx context.Context, text string, args, dest []any, fn 
 func (c *Core) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64, info bool) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := c.readOnly(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q, d, beta, c.D.Inlines, info)
+		pq := c.partitioned(q)
+		text, args := warehouse.MomentsSQL(pq, d, beta, c.D.Inlines, info)
 		var sums string
 		if _, err := c.query(ctx, text, args, &sums); err != nil {
 			return fmt.Errorf("moments: %w", err)
 		}
-		return warehouse.SplitMoments(m, len(beta), sums, info)
+		return warehouse.SplitMoments(m, len(beta), sums, info, pq.Partition != "")
 	})
 	if err != nil {
 		return nil, err
@@ -313,4 +314,13 @@ func (c *Core) SampleDesign(ctx context.Context, q warehouse.CohortQuery, d *war
 		return nil, nil, err
 	}
 	return x, z, nil
+}
+
+// partitioned is q as this engine aggregates it: without the partition
+// column on an engine that has one node (Dialect.Partitions).
+func (c *Core) partitioned(q warehouse.CohortQuery) warehouse.CohortQuery {
+	if !c.D.Partitions {
+		q.Partition = ""
+	}
+	return q
 }

@@ -166,7 +166,7 @@ func (t *scaleTx) Rollback(ctx context.Context) {
 // the rows are the same units with the same values, so the spliced row is
 // the one pass's row.
 func (t *scaleTx) runSums(ctx context.Context, ct *warehouse.Contract, spec warehouse.RunSums) ([2][]float64, error) {
-	if spec.Cohort == nil || spec.Cohort.Partition == "" {
+	if spec.Cohort == nil || t.c.partitioned(*spec.Cohort).Partition == "" {
 		spec.Cohort = nil
 		return t.runSumsPass(ctx, ct, spec)
 	}

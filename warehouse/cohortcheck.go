@@ -58,6 +58,12 @@ func FindColumn(names []string, want, role string) (int, error) {
 // millions of ids.
 func CanonicalOrder(c *Cohort) error {
 	n := c.N()
+	// Fast path: a cohort query with ORDER BY unit (or an engine that
+	// happens to return rows in id order) is strictly ascending already,
+	// which also rules out duplicates; one comparison per row.
+	if strictlyAscending(c) {
+		return nil
+	}
 	perm := make([]int32, n)
 	for i := range perm {
 		perm[i] = int32(i)
@@ -109,6 +115,25 @@ func CanonicalOrder(c *Cohort) error {
 		c.permute(perm)
 	}
 	return nil
+}
+
+// strictlyAscending reports whether the unit ids are in strictly
+// ascending canonical order.
+func strictlyAscending(c *Cohort) bool {
+	if c.IDKind == IDInt {
+		for i := 1; i < len(c.IntIDs); i++ {
+			if c.IntIDs[i] <= c.IntIDs[i-1] {
+				return false
+			}
+		}
+		return true
+	}
+	for i := 1; i < len(c.TextIDs); i++ {
+		if c.TextIDs[i] <= c.TextIDs[i-1] {
+			return false
+		}
+	}
+	return true
 }
 
 // permute reorders every per-unit slice of c so that new row i is old

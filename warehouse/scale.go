@@ -666,31 +666,50 @@ type ColumnTypes struct {
 // non-finite values and two unused slots; and the text of describeSums'
 // exact sums, from which NewDescription computes each numeric
 // covariate's mean and population SD exactly (a float avg or stddev
-// would depend on the order the engine adds rows in).
-func DescribeSQL(q CohortQuery, t ColumnTypes) string {
-	u := "c." + Quote(q.Unit)
-	tr := "c." + Quote(q.Treatment)
-	parts := []string{"count(*)", "count(DISTINCT " + u + ")", "count(*) - count(" + u + ")"}
-	if t.TreatmentBool {
-		parts = append(parts, "sum(CASE WHEN "+tr+" THEN 1 ELSE 0 END)", "count(*) - count("+tr+")", "0")
-	} else {
-		parts = append(parts, "sum(CASE WHEN "+tr+" = 1 THEN 1 ELSE 0 END)", "count(*) - count("+tr+")",
-			"sum(CASE WHEN "+tr+" <> 0 AND "+tr+" <> 1 THEN 1 ELSE 0 END)")
-	}
+// would depend on the order the engine adds rows in). Each per-row
+// value is a column of its own level (chainLevels; lateral for
+// Postgres), so the split of x into parts refers to plain columns.
+func DescribeSQL(q CohortQuery, t ColumnTypes, lateral bool) string {
+	l0 := []col{{"u", "c." + Quote(q.Unit)}, {"tr", "c." + Quote(q.Treatment)}}
+	var l1, l2, l3 []col
 	for i, name := range q.Covariates {
-		col := "c." + Quote(name)
-		parts = append(parts, "count(*) - count("+col+")")
+		l0 = append(l0, col{fmt.Sprintf("v%d", i+1), "c." + Quote(name)})
+		if t.Categorical[i] {
+			continue
+		}
+		x := numericExpr(name)
+		l0 = append(l0, col{fmt.Sprintf("nf%d", i+1), "CASE WHEN " + nonFinite(x) + " THEN 1 ELSE 0 END"},
+			col{fmt.Sprintf("fx%d", i+1), "CASE WHEN " + nonFinite(x) + " THEN NULL ELSE " + x + " END"})
+		l1 = append(l1, col{fmt.Sprintf("sp%d", i+1), fmt.Sprintf("fx%d * 134217729", i+1)})
+		l2 = append(l2, col{fmt.Sprintf("hi%d", i+1), fmt.Sprintf("sp%d - (sp%d - fx%d)", i+1, i+1, i+1)})
+		l3 = append(l3, col{fmt.Sprintf("lo%d", i+1), fmt.Sprintf("fx%d - hi%d", i+1, i+1)})
+	}
+	parts := []string{"count(*)", "count(DISTINCT u)", "count(*) - count(u)"}
+	if t.TreatmentBool {
+		parts = append(parts, "sum(CASE WHEN tr THEN 1 ELSE 0 END)", "count(*) - count(tr)", "0")
+	} else {
+		parts = append(parts, "sum(CASE WHEN tr = 1 THEN 1 ELSE 0 END)", "count(*) - count(tr)",
+			"sum(CASE WHEN tr <> 0 AND tr <> 1 THEN 1 ELSE 0 END)")
+	}
+	for i := range q.Covariates {
+		parts = append(parts, fmt.Sprintf("count(*) - count(v%d)", i+1))
 		if t.Categorical[i] {
 			parts = append(parts, "0", "0", "0")
 			continue
 		}
-		parts = append(parts, "sum(CASE WHEN "+nonFinite(numericExpr(name))+" THEN 1 ELSE 0 END)", "0", "0")
+		parts = append(parts, fmt.Sprintf("sum(nf%d)", i+1), "0", "0")
 	}
 	for i := range parts {
 		parts[i] = "coalesce(CAST(" + parts[i] + " AS DOUBLE PRECISION), 0)"
 	}
+	levels := [][]col{l0}
+	for _, lv := range [][]col{l1, l2, l3} {
+		if len(lv) > 0 {
+			levels = append(levels, lv)
+		}
+	}
 	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]),\n  " +
-		describeSums(q, t).arrayExpr() + "\nFROM " + From(q.SQL)
+		describeSums(q, t).arrayExpr() + "\nFROM " + chainLevels(From(q.SQL), "", levels, lateral, "")
 }
 
 // numericExpr is covariate name of row c as a double.
@@ -703,23 +722,19 @@ func nonFinite(x string) string {
 	return x + " = CAST('NaN' AS DOUBLE PRECISION) OR abs(" + x + ") = CAST('Infinity' AS DOUBLE PRECISION)"
 }
 
-// describeSums lists, per numeric covariate over its finite values x,
-// the count, Σx, and Σx² as three exact sums Σh², Σ2hl, Σl² of the
-// Veltkamp split x = h + l (h the high 26 bits; Dekker 1971), whose
-// products are exact in double precision — so the variance is that of
-// the doubles themselves, with no rounding of x² per row.
+// describeSums lists, per numeric covariate over its finite values x
+// (DescribeSQL's fx), the count, Σx, and Σx² as three exact sums Σh²,
+// Σ2hl, Σl² of the Veltkamp split x = h + l (h the high 26 bits; Dekker
+// 1971), whose products are exact in double precision — so the variance
+// is that of the doubles themselves, with no rounding of x² per row.
 func describeSums(q CohortQuery, t ColumnTypes) *sumSet {
 	ss := &sumSet{}
-	for i, name := range q.Covariates {
+	for i := range q.Covariates {
 		if t.Categorical[i] {
 			continue
 		}
-		x := numericExpr(name)
-		fx := "CASE WHEN " + nonFinite(x) + " THEN NULL ELSE " + x + " END"
-		split := "(" + fx + ") * 134217729"
-		hi := "((" + split + ") - ((" + split + ") - (" + fx + ")))"
-		lo := "((" + fx + ") - " + hi + ")"
-		ss.count("(" + fx + ") IS NOT NULL")
+		fx, hi, lo := fmt.Sprintf("fx%d", i+1), fmt.Sprintf("hi%d", i+1), fmt.Sprintf("lo%d", i+1)
+		ss.count(fx + " IS NOT NULL")
 		ss.sum(fx, rawScale)
 		ss.sum(hi+" * "+hi, rawScale)
 		ss.sum("2 * "+hi+" * "+lo, rawScale)

@@ -153,6 +153,15 @@ func open(ctx context.Context, dsn string, o warehouse.OpenOptions) (*Warehouse,
 	if o.ReadOnly {
 		cfg.RuntimeParams["default_transaction_read_only"] = "on"
 	}
+	// Warehouse-scale passes are single aggregate queries with hundreds of
+	// sums over long per-row expressions; the planner rates them
+	// expensive enough to JIT-compile, and LLVM then spends minutes (and
+	// gigabytes) compiling, without answering a cancel request, what runs
+	// in seconds interpreted. Our session does without it, unless the
+	// DSN sets jit itself.
+	if _, set := cfg.RuntimeParams["jit"]; !set {
+		cfg.RuntimeParams["jit"] = "off"
+	}
 	// A cancelled context sends the server a cancel request and keeps the
 	// session (and its advisory lock) usable; the deadline is the fallback
 	// when the server does not answer.

@@ -91,7 +91,7 @@ func (c *Core) Describe(ctx context.Context, q warehouse.CohortQuery) (*warehous
 		}
 		var arr []float64
 		var sums string
-		if _, err := c.query(ctx, warehouse.DescribeSQL(q, t), nil, &arr, &sums); err != nil {
+		if _, err := c.query(ctx, warehouse.DescribeSQL(q, t, c.D.Inlines), nil, &arr, &sums); err != nil {
 			return fmt.Errorf("describe cohort: %w", err)
 		}
 		levels := make([][]string, len(q.Covariates))

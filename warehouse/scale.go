@@ -118,8 +118,9 @@ type ColumnDescription struct {
 	// bytewise); Counts[l] units have level l.
 	Levels []string
 	Counts []int
-	// Text is true when the column already is text (no cast needed).
-	Text bool
+	// Text is true when the column already is text (no cast needed);
+	// Bool when it is boolean (levels "false" and "true").
+	Text, Bool bool
 }
 
 // DesignSQL is the propensity model's design as the engine computes it: a
@@ -143,6 +144,10 @@ type DesignColumn struct {
 	// THEN 1 ELSE 0 END (Text skips the cast).
 	Categorical bool
 	Text        bool
+	// Bool marks a boolean column: its levels are tested as the boolean
+	// itself, not through a cast to text, which a foreign-data wrapper
+	// cannot send to the node holding the rows.
+	Bool bool
 	Level       string
 	// Center and Scale standardise the column, x̃ = (x − Center)·Scale,
 	// with the mean and 1/SD (population) over the cohort, as
@@ -265,7 +270,7 @@ func NewDesignSQL(desc *Description) (*DesignSQL, error) {
 			}
 			p := float64(c.Counts[t.Level]) / n
 			d.Columns = append(d.Columns, DesignColumn{
-				Name: t.Name, Source: c.Name, Categorical: true, Text: c.Text,
+				Name: t.Name, Source: c.Name, Categorical: true, Text: c.Text, Bool: c.Bool,
 				Level: c.Levels[t.Level], Center: p, Scale: 1 / math.Sqrt(p*(1-p)),
 			})
 		}
@@ -355,6 +360,12 @@ func (b *ScaleSQL) rawExpr(c DesignColumn) string {
 	if !c.Categorical {
 		return "CAST(" + src + " AS DOUBLE PRECISION)"
 	}
+	if c.Bool && (c.Level == "true" || c.Level == "false") {
+		if c.Level == "false" {
+			src = "NOT " + src
+		}
+		return "CASE WHEN " + src + " THEN 1.0 ELSE 0.0 END"
+	}
 	if !c.Text {
 		src = "CAST(" + src + " AS VARCHAR)"
 	}
@@ -432,7 +443,7 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 		{
 			{"p", "CASE WHEN eta >= 0 THEN 1 / (1 + t) ELSE t / (1 + t) END"},
 			{"q", "CASE WHEN eta >= 0 THEN t / (1 + t) ELSE 1 / (1 + t) END"},
-			{"l1p", "greatest(eta, 0) + ln(1 + t)"},
+			{"l1p", "CASE WHEN eta > 0 THEN eta ELSE 0 END + ln(1 + t)"},
 			{"sw", "sqrt(t) / (1 + t)"},
 		},
 	}
@@ -524,7 +535,9 @@ func SplitMoments(m *Moments, k int, text string, info, partitioned bool) error 
 // only; η is clamped to ±700 first so that Postgres's exp cannot
 // underflow into an error — e is then within 1e-304 of 0 or 1).
 func Logistic(eta string) string {
-	h := "greatest(least(" + eta + ", 700), -700)"
+	// CASE rather than greatest/least: a foreign-data wrapper sends a
+	// CASE to the node holding the rows, not greatest or least.
+	h := "CASE WHEN " + eta + " > 700 THEN 700 WHEN " + eta + " < -700 THEN -700 ELSE " + eta + " END"
 	return "CASE WHEN " + eta + " >= 0 THEN 1 / (1 + exp(-" + h + ")) ELSE exp(" + h + ") / (1 + exp(" + h + ")) END"
 }
 
@@ -654,8 +667,8 @@ func UnitColumnsSQL(q CohortQuery, isBool []bool) (string, error) {
 type ColumnTypes struct {
 	UnitText      bool
 	TreatmentBool bool
-	// Categorical and Text, per covariate in q.Covariates order.
-	Categorical, Text []bool
+	// Categorical, Text and Bool, per covariate in q.Covariates order.
+	Categorical, Text, Bool []bool
 	// OutcomeBool, per outcome: a boolean column (SnapshotSQL).
 	OutcomeBool []bool
 }
@@ -792,6 +805,7 @@ func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, sums string, le
 		if t.Categorical[i] {
 			c.Kind = Categorical
 			c.Text = t.Text[i]
+			c.Bool = i < len(t.Bool) && t.Bool[i]
 			c.Levels = append([]string(nil), levels[i]...)
 			c.Counts = append([]int(nil), counts[i]...)
 			SortLevels(c.Levels, c.Counts)

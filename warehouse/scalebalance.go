@@ -131,6 +131,16 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		if cv.Kind == Categorical {
 			for j, l := range r.Levels[i] {
 				name := fmt.Sprintf("i%d_%d", i+1, j)
+				if r.Cohort != nil && r.Design.isBool(cv.Name) && (l == "true" || l == "false") {
+					// As the design tests a boolean: shippable to a node.
+					test := src
+					if l == "false" {
+						test = "NOT " + src
+					}
+					l0 = append(l0, col{name, "CAST(CASE WHEN " + test + " THEN 1 ELSE 0 END AS DOUBLE PRECISION)"})
+					bal = append(bal, name)
+					continue
+				}
 				l0 = append(l0, col{name, fmt.Sprintf("CAST(CASE WHEN CAST(%s AS VARCHAR) = %s THEN 1 ELSE 0 END AS DOUBLE PRECISION)", src, b.Str(l))})
 				bal = append(bal, name)
 			}
@@ -465,4 +475,14 @@ func NewSums(spec RunSums, arms [2][]float64, matched []float64) *Sums {
 		s.Matched = append(s.Matched, set)
 	}
 	return s
+}
+
+// isBool reports whether the design reads covariate name as a boolean.
+func (d *DesignSQL) isBool(name string) bool {
+	for _, c := range d.Columns {
+		if c.Source == name && c.Bool {
+			return true
+		}
+	}
+	return false
 }

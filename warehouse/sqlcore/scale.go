@@ -68,6 +68,7 @@ func (c *Core) scaleTypes(ctx context.Context, q warehouse.CohortQuery) (warehou
 		}
 		t.Categorical = append(t.Categorical, cat)
 		t.Text = append(t.Text, k == ClassText)
+		t.Bool = append(t.Bool, k == ClassBool)
 	}
 	for _, name := range q.Outcomes {
 		t.OutcomeBool = append(t.OutcomeBool, cls[name] == ClassBool)

@@ -4,6 +4,7 @@ package warehouse
 // "works on Postgres" refuse the same inputs with the same words.
 
 import (
+	"cmp"
 	"fmt"
 	"math"
 	"slices"
@@ -44,39 +45,97 @@ func FindColumn(names []string, want, role string) (int, error) {
 	return 0, fmt.Errorf("%w: cohort.sql returns no column %s (%s); it returns: %s%s", ErrBadInput, want, role, strings.Join(list, ", "), more)
 }
 
-// CheckUnique reports duplicate unit ids: how many rows repeat an id seen
-// before, and one such id. It sorts a copy rather than filling a map:
-// cheaper for millions of ids.
-func CheckUnique(c *Cohort) error {
-	dups, example := 0, ""
+// CanonicalOrder puts the cohort in canonical unit order and reports
+// duplicate unit ids: how many rows repeat an id seen before, and one
+// such id.
+//
+// Canonical order (ascending integer id, or bytewise text id) is what
+// makes a run independent of the order the engine returned the rows in:
+// a parallel or distributed scan returns them in a different order every
+// time, and every later stage — the fit's sums, greedy matching's ties,
+// set numbering, the written tables — follows the slices' order. One
+// sort of an index permutation serves both jobs; cheaper than a map for
+// millions of ids.
+func CanonicalOrder(c *Cohort) error {
+	n := c.N()
+	perm := make([]int32, n)
+	for i := range perm {
+		perm[i] = int32(i)
+	}
+	var same func(a, b int32) bool
+	var show func(i int32) string
 	if c.IDKind == IDInt {
-		ids := slices.Clone(c.IntIDs)
-		slices.Sort(ids)
-		for i := 1; i < len(ids); i++ {
-			if ids[i] == ids[i-1] {
-				if dups == 0 {
-					example = strconv.FormatInt(ids[i], 10)
-				}
-				dups++
+		ids := c.IntIDs
+		slices.SortFunc(perm, func(a, b int32) int {
+			if x := cmp.Compare(ids[a], ids[b]); x != 0 {
+				return x
 			}
-		}
+			return cmp.Compare(a, b)
+		})
+		same = func(a, b int32) bool { return ids[a] == ids[b] }
+		show = func(i int32) string { return strconv.FormatInt(ids[i], 10) }
 	} else {
-		ids := slices.Clone(c.TextIDs)
-		slices.Sort(ids)
-		for i := 1; i < len(ids); i++ {
-			if ids[i] == ids[i-1] {
-				if dups == 0 {
-					example = strconv.Quote(ids[i])
-				}
-				dups++
+		ids := c.TextIDs
+		slices.SortFunc(perm, func(a, b int32) int {
+			if x := strings.Compare(ids[a], ids[b]); x != 0 {
+				return x
 			}
+			return cmp.Compare(a, b)
+		})
+		same = func(a, b int32) bool { return ids[a] == ids[b] }
+		show = func(i int32) string { return strconv.Quote(ids[i]) }
+	}
+	dups, example := 0, ""
+	for i := 1; i < n; i++ {
+		if same(perm[i], perm[i-1]) {
+			if dups == 0 {
+				example = show(perm[i])
+			}
+			dups++
 		}
 	}
 	if dups > 0 {
 		return fmt.Errorf("%w: unit column %s has %s (for example %s); the cohort must have one row per unit — check the joins in cohort.sql",
 			ErrBadInput, c.Unit, Plural(dups, "duplicate value"), example)
 	}
+	sorted := true
+	for i, p := range perm {
+		if int(p) != i {
+			sorted = false
+			break
+		}
+	}
+	if !sorted {
+		c.permute(perm)
+	}
 	return nil
+}
+
+// permute reorders every per-unit slice of c so that new row i is old
+// row perm[i].
+func (c *Cohort) permute(perm []int32) {
+	c.IntIDs = permuted(c.IntIDs, perm)
+	c.TextIDs = permuted(c.TextIDs, perm)
+	c.Treated = permuted(c.Treated, perm)
+	for i := range c.Covariates {
+		c.Covariates[i].Values = permuted(c.Covariates[i].Values, perm)
+		c.Covariates[i].Codes = permuted(c.Covariates[i].Codes, perm)
+	}
+	for i := range c.Outcomes {
+		c.Outcomes[i].Values = permuted(c.Outcomes[i].Values, perm)
+	}
+}
+
+// permuted returns s reordered by perm (nil stays nil).
+func permuted[T any](s []T, perm []int32) []T {
+	if s == nil {
+		return nil
+	}
+	out := make([]T, len(s))
+	for i, p := range perm {
+		out[i] = s[p]
+	}
+	return out
 }
 
 func Plural(n int, what string) string {

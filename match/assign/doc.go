@@ -14,8 +14,10 @@
 // same way:
 //
 //   - Treated units are processed one at a time in Options.Order
-//     (high-score-first, low-score-first, seeded random, or input order;
-//     equal scores are processed in ascending input index). See Austin
+//     (high-score-first, low-score-first, seeded random, or unit order:
+//     ascending index; equal scores are processed in ascending index).
+//     Callers pass units in canonical order (ascending unit id), so the
+//     index order is fixed by the data. See Austin
 //     (2014), Stat Med 33:1057, for how the order affects greedy matching.
 //   - Per treated, k nearest in turn: the unit being processed takes its
 //     nearest available control, then its next nearest, up to

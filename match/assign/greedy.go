@@ -32,15 +32,18 @@ const (
 	// Random processes treated units in a random order drawn from
 	// math/rand/v2's PCG seeded with Options.Seed.
 	Random
-	// Input processes treated units in input order.
-	Input
+	// UnitOrder processes treated units in ascending index order. The
+	// callers hold units in canonical order (ascending unit id, see
+	// warehouse.CanonicalOrder), so this is ascending unit id: an order
+	// fixed by the data, never by how the engine returned the rows.
+	UnitOrder
 )
 
 var orderNames = [...]string{
 	HighFirst: "high-score-first",
 	LowFirst:  "low-score-first",
 	Random:    "random",
-	Input:     "input",
+	UnitOrder: "unit",
 }
 
 // String returns the name ParseOrder accepts for o.
@@ -53,14 +56,14 @@ func (o Order) String() string {
 
 // ParseOrder maps a study-file name to an Order. Names are matched exactly
 // (no case folding or trimming): "high-score-first", "low-score-first",
-// "random", "input".
+// "random", "unit".
 func ParseOrder(s string) (Order, error) {
 	for o, name := range orderNames {
 		if s == name {
 			return Order(o), nil
 		}
 	}
-	return 0, fmt.Errorf("parse matching order %q: use high-score-first, low-score-first, random or input: %w", s, ErrOption)
+	return 0, fmt.Errorf("parse matching order %q: use high-score-first, low-score-first, random or unit: %w", s, ErrOption)
 }
 
 // Options configures Greedy.
@@ -252,8 +255,8 @@ func orderTreated(trt []int32, score []float64, opt Options) {
 	case Random:
 		r := rand.New(rand.NewPCG(opt.Seed, 0))
 		r.Shuffle(len(trt), func(i, j int) { trt[i], trt[j] = trt[j], trt[i] })
-	case Input:
-		// already in input order
+	case UnitOrder:
+		// already ascending
 	}
 }
 

@@ -24,7 +24,7 @@ func TestParseOrder(t *testing.T) {
 		{"high-score-first", HighFirst, false},
 		{"low-score-first", LowFirst, false},
 		{"random", Random, false},
-		{"input", Input, false},
+		{"unit", UnitOrder, false},
 		// No guessing at near misses (STYLE.md: don't correct the user's input).
 		{"High-Score-First", 0, true},
 		{" input", 0, true},
@@ -86,16 +86,16 @@ func TestGreedyHandWorked(t *testing.T) {
 			want:    []want{{0, []int{2}, []float64{.625}}, {1, []int{3}, []float64{2}}},
 		},
 		{
-			// Input order processes unit 0 (score 2) before unit 1 (score 1),
+			// Unit order processes unit 0 (score 2) before unit 1 (score 1),
 			// which low-first would reverse.
-			name:    "input order",
+			name:    "unit order",
 			score:   []float64{2, 1, 1.625, 0},
 			treated: []bool{T, T, C, C},
-			opt:     Options{Controls: 1, Order: Input},
+			opt:     Options{Controls: 1, Order: UnitOrder},
 			want:    []want{{0, []int{2}, []float64{.375}}, {1, []int{3}, []float64{1}}},
 		},
 		{
-			name:    "input order vs low-first on the same data",
+			name:    "unit order vs low-first on the same data",
 			score:   []float64{2, 1, 1.625, 0},
 			treated: []bool{T, T, C, C},
 			opt:     Options{Controls: 1, Order: LowFirst},
@@ -580,7 +580,7 @@ func TestGreedyProperties(t *testing.T) {
 	r := rand.New(rand.NewPCG(20261201, 1))
 	const perConfig = 100
 	configs := 0
-	for _, order := range []Order{HighFirst, LowFirst, Random, Input} {
+	for _, order := range []Order{HighFirst, LowFirst, Random, UnitOrder} {
 		for _, reuse := range []bool{false, true} {
 			for k := 1; k <= 3; k++ {
 				configs++

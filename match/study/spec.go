@@ -242,7 +242,7 @@ var (
 	fitIns     = []string{"memory", "warehouse"}
 	supports   = score.SupportRules
 	algorithms = []string{"greedy", "optimal", "full", "strata", "off"}
-	orders     = []string{"high-score-first", "low-score-first", "random", "input"}
+	orders     = []string{"high-score-first", "low-score-first", "random", "unit"}
 	distances  = []string{"logit", "mahalanobis", "rank_mahalanobis"}
 	schemes    = weights.Names()
 	onFails    = []string{"reject", "warn"}

@@ -430,7 +430,7 @@ func (k *Collector) Finish() (*warehouse.Cohort, error) {
 	for _, o := range k.outs {
 		c.Outcomes = append(c.Outcomes, warehouse.Outcome{Name: o.name, Values: o.vals, Kind: warehouse.ClassifyOutcome(o.vals)})
 	}
-	if err := warehouse.CheckUnique(c); err != nil {
+	if err := warehouse.CanonicalOrder(c); err != nil {
 		return nil, err
 	}
 	return c, nil

@@ -85,9 +85,11 @@ func TestShardedRunsMatchSingleNode(t *testing.T) {
 			a := runStudy(t, studyText(t, single, c.DSN, Single, mode, false))
 			before := c.Counts()
 			b := runStudy(t, studyText(t, sharded, c.DSN, Sharded, mode, true))
-			if moved := c.Counts().Sub(before); moved.FromShard == 0 {
+			moved := c.Counts().Sub(before)
+			if moved.FromShard == 0 {
 				t.Fatalf("the sharded run read nothing from the shards (%v)", moved)
 			}
+			t.Logf("bytes of the whole %s-mode run (3,000 units) between coordinator and shards: %v", mode, moved)
 			if len(a.Model.Terms) == 0 || len(a.Model.Terms) != len(b.Model.Terms) {
 				t.Fatalf("%d model terms on one node, %d sharded", len(a.Model.Terms), len(b.Model.Terms))
 			}

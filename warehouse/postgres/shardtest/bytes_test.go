@@ -80,6 +80,10 @@ func TestShardBytes(t *testing.T) {
 	var got, want *warehouse.Moments
 	info := measure("moments pass", func() (err error) { got, err = iw.Moments(ctx, q, d, beta, true); return })
 	grad := measure("gradient pass", func() (err error) { _, err = iw.Moments(ctx, q, d, beta, false); return })
+	descr := measure("describe", func() error { _, err := iw.Describe(ctx, q); return err })
+	coef := make([]float64, len(beta)) // any coefficients: only the bytes are looked at
+	coef[0] = -0.5
+	lr := measure("logit range", func() error { _, err := iw.LogitRange(ctx, q, d, coef); return err })
 	read := measure("in-memory read", func() error { _, err := wh.ReadCohort(ctx, q); return err })
 	if want, err = single.Moments(ctx, qs, d, beta, true); err != nil {
 		t.Fatalf("single-node moments: %v", err)
@@ -101,6 +105,8 @@ func TestShardBytes(t *testing.T) {
 	t.Logf("%d units on %d shards (%v rows), %d design columns", n, len(ShardPorts), c.Rows, len(d.Columns))
 	t.Logf("bytes per moments pass (information + gradient): %v", info)
 	t.Logf("bytes per gradient pass: %v", grad)
+	t.Logf("bytes of the describe step (summaries and levels): %v", descr)
+	t.Logf("bytes of the logit-range pass (minmax support): %v", lr)
 	t.Logf("bytes of the in-memory read of the cohort: %v", read)
 	// Pushed down, a pass moves no rows: well under a fiftieth of the
 	// read (at 20,000 units the read is megabytes, a pass kilobytes).

@@ -37,8 +37,8 @@ waitready() {
 
 # The coordinator: the main cluster, started when it is down.
 if ! pg_isready -h 127.0.0.1 -p 5432 -q 2>/dev/null; then
-  pg_ctlcluster --skip-systemctl-redirect "$version" main start >/tmp/counterpart-shard-main.log 2>&1 \
-    || fail "the main cluster $version/main would not start (see /tmp/counterpart-shard-main.log)"
+  pg_ctlcluster --skip-systemctl-redirect "$version" main start >"${TMPDIR:-/tmp}/counterpart-shard-$(id -un)-main.log" 2>&1 \
+    || fail "the main cluster $version/main would not start (see ${TMPDIR:-/tmp}/counterpart-shard-$(id -un)-main.log)"
   waitready 5432 || fail "the main cluster on 127.0.0.1:5432 did not become ready in 30 s"
 fi
 
@@ -46,7 +46,7 @@ for spec in cpshard1:5441 cpshard2:5442; do
   name=${spec%%:*}
   port=${spec##*:}
   conf=/etc/postgresql/$version/$name
-  log=/tmp/counterpart-shard-$name.log
+  log=${TMPDIR:-/tmp}/counterpart-shard-$(id -un)-$name.log
   if [ ! -d "$conf" ]; then
     pg_createcluster "$version" "$name" -p "$port" >"$log" 2>&1 \
       || fail "pg_createcluster $version $name -p $port failed (see $log)"

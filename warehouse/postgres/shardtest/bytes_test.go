@@ -2,6 +2,7 @@ package shardtest
 
 import (
 	"context"
+	"strings"
 	"testing"
 
 	"counterpart/warehouse"
@@ -69,13 +70,27 @@ func TestShardBytes(t *testing.T) {
 	if _, err := iw.Moments(ctx, q, d, beta, false); err != nil {
 		t.Fatalf("warm-up pass: %v", err)
 	}
+	// sent[what] holds, per shard, the cursor queries the pass made the
+	// shard run: postgres_fdw opens a cursor (DECLARE … CURSOR FOR) per
+	// remote scan.
+	sent := map[string][][]string{}
 	measure := func(what string, f func() error) Counts {
 		t.Helper()
-		before := c.Counts()
+		before, q0 := c.Counts(), c.Queries()
 		if err := f(); err != nil {
 			t.Fatalf("%s: %v", what, err)
 		}
-		return c.Counts().Sub(before)
+		moved := c.Counts().Sub(before)
+		for i, qs := range c.Queries() {
+			var scans []string
+			for _, s := range qs[len(q0[i]):] {
+				if strings.Contains(s, "DECLARE") {
+					scans = append(scans, s)
+				}
+			}
+			sent[what] = append(sent[what], scans)
+		}
+		return moved
 	}
 	var got, want *warehouse.Moments
 	info := measure("moments pass", func() (err error) { got, err = iw.Moments(ctx, q, d, beta, true); return })
@@ -118,7 +133,28 @@ func TestShardBytes(t *testing.T) {
 			t.Errorf("%s moved %v, the in-memory read %v: the aggregate was not pushed down to the shards", m.what, m.c, read)
 		}
 	}
+	// What the engine's passes really asked of the shards: per shard, one
+	// remote query, an aggregate grouped by the partition column.
+	for _, what := range []string{"moments pass", "gradient pass"} {
+		for i, scans := range sent[what] {
+			if len(scans) != 1 || !strings.Contains(scans[0], "sum(") || !strings.Contains(scans[0], "GROUP BY") {
+				t.Errorf("%s: shard %d ran %d remote queries, want one aggregate with GROUP BY; first: %.300q", what, i, len(scans), first(scans))
+			}
+		}
+	}
+	for i, scans := range sent["in-memory read"] {
+		if len(scans) != 1 || strings.Contains(scans[0], "GROUP BY") {
+			t.Errorf("in-memory read: shard %d ran %d remote queries, want one row scan; first: %.300q", i, len(scans), first(scans))
+		}
+	}
 	if grad.Total() >= info.Total() {
 		t.Errorf("gradient pass moved %v, no less than the full pass's %v", grad, info)
 	}
+}
+
+func first(s []string) string {
+	if len(s) == 0 {
+		return "(none)"
+	}
+	return s[0]
 }

@@ -1,6 +1,8 @@
 package shardtest
 
 import (
+	"bytes"
+	"encoding/binary"
 	"fmt"
 	"net"
 	"sync"
@@ -9,10 +11,11 @@ import (
 
 // Proxy is a TCP relay between the coordinator's foreign servers and one
 // shard cluster that counts the bytes it carries each way, so that a test
-// can say what one query moved over the network. It is plain TCP: the
-// Postgres protocol passes through untouched (the shards are asked for
-// no SSL, as the foreign servers' sslmode is the libpq default "prefer"
-// and the shard clusters have no certificate).
+// can say what one query moved over the network, and records the SQL the
+// coordinator sends, so that a test can say what each shard was asked to
+// compute. It relays bytes untouched; it can read the SQL because the
+// foreign servers ask for no TLS (sslmode 'disable'), which also keeps
+// TLS framing out of the byte counts.
 type Proxy struct {
 	target string
 	ln     net.Listener
@@ -23,10 +26,11 @@ type Proxy struct {
 	// exact figures as soon as its query returns.
 	toShard, fromShard atomic.Int64
 
-	mu     sync.Mutex
-	conns  map[net.Conn]struct{}
-	closed bool
-	wg     sync.WaitGroup
+	mu      sync.Mutex
+	queries []string
+	conns   map[net.Conn]struct{}
+	closed  bool
+	wg      sync.WaitGroup
 }
 
 // Counts are the bytes a proxy carried, per direction.
@@ -111,8 +115,9 @@ func (p *Proxy) serve() {
 			return
 		}
 		p.wg.Add(2)
-		go p.pipe(shard, client, &p.toShard)
-		go p.pipe(client, shard, &p.fromShard)
+		req := &frontend{startup: true, record: p.record}
+		go p.pipe(shard, client, &p.toShard, req.feed)
+		go p.pipe(client, shard, &p.fromShard, nil)
 	}
 }
 
@@ -128,15 +133,19 @@ func (p *Proxy) track(a, b net.Conn) bool {
 	return true
 }
 
-// pipe copies src to dst, counting into n, and closes both ends when
+// pipe copies src to dst, counting into n and handing each chunk to
+// watch (when not nil) before it is written, and closes both ends when
 // either side stops: a Postgres session ends both ways at once.
-func (p *Proxy) pipe(dst, src net.Conn, n *atomic.Int64) {
+func (p *Proxy) pipe(dst, src net.Conn, n *atomic.Int64, watch func([]byte)) {
 	defer p.wg.Done()
 	buf := make([]byte, 32<<10)
 	for {
 		k, err := src.Read(buf)
 		if k > 0 {
 			n.Add(int64(k))
+			if watch != nil {
+				watch(buf[:k])
+			}
 			if _, werr := dst.Write(buf[:k]); werr != nil {
 				break
 			}
@@ -151,4 +160,96 @@ func (p *Proxy) pipe(dst, src net.Conn, n *atomic.Int64) {
 	delete(p.conns, src)
 	delete(p.conns, dst)
 	p.mu.Unlock()
+}
+
+// Queries returns the SQL sent to the shard so far (simple queries and
+// the statements of extended-protocol Parse messages), in order.
+func (p *Proxy) Queries() []string {
+	p.mu.Lock()
+	defer p.mu.Unlock()
+	return append([]string(nil), p.queries...)
+}
+
+func (p *Proxy) record(sql string) {
+	p.mu.Lock()
+	p.queries = append(p.queries, sql)
+	p.mu.Unlock()
+}
+
+// Protocol codes of the untyped messages a session may begin with
+// (PostgreSQL manual, "Message Formats"): after these the client sends
+// its startup message, also untyped.
+const (
+	sslRequest    = 80877103
+	gssencRequest = 80877104
+)
+
+// frontend follows the messages a client sends (PostgreSQL manual,
+// "Frontend/Backend Protocol"): untyped startup messages first, then
+// a type byte and an int32 length that counts itself. It records the
+// text of Query ('Q') and Parse ('P') messages. On anything it cannot
+// follow (TLS, say) it stops reading and lets the bytes pass.
+type frontend struct {
+	buf     []byte
+	startup bool
+	broken  bool
+	record  func(string)
+}
+
+func (f *frontend) feed(b []byte) {
+	if f.broken {
+		return
+	}
+	f.buf = append(f.buf, b...)
+	off := 0
+	for {
+		rest := f.buf[off:]
+		if f.startup {
+			if len(rest) < 8 {
+				break
+			}
+			n := int(binary.BigEndian.Uint32(rest))
+			if n < 8 || n > 1<<20 {
+				f.broken, f.buf = true, nil
+				return
+			}
+			if len(rest) < n {
+				break
+			}
+			code := binary.BigEndian.Uint32(rest[4:8])
+			f.startup = code == sslRequest || code == gssencRequest
+			off += n
+			continue
+		}
+		if len(rest) < 5 {
+			break
+		}
+		n := int(binary.BigEndian.Uint32(rest[1:5]))
+		if n < 4 {
+			f.broken, f.buf = true, nil
+			return
+		}
+		if len(rest) < 1+n {
+			break
+		}
+		body := rest[5 : 1+n]
+		switch rest[0] {
+		case 'Q':
+			f.record(cString(body))
+		case 'P': // statement name, then the query, each NUL-terminated
+			if i := bytes.IndexByte(body, 0); i >= 0 {
+				f.record(cString(body[i+1:]))
+			}
+		}
+		off += 1 + n
+	}
+	f.buf = append(f.buf[:0], f.buf[off:]...)
+}
+
+// cString is b up to its first NUL.
+func cString(b []byte) string {
+	if i := bytes.IndexByte(b, 0); i >= 0 {
+		b = b[:i]
+	}
+	return string(b)
 }

@@ -100,6 +100,16 @@ type Cluster struct {
 	Rows []int
 }
 
+// Queries returns the SQL each shard has been sent so far, in shard
+// order.
+func (c *Cluster) Queries() [][]string {
+	out := make([][]string, len(c.Proxies))
+	for i, p := range c.Proxies {
+		out[i] = p.Queries()
+	}
+	return out
+}
+
 // Counts is the bytes carried so far by all the proxies together.
 func (c *Cluster) Counts() Counts {
 	var s Counts
@@ -218,8 +228,11 @@ func New(t testing.TB, n int, seed uint64) *Cluster {
 		// fetch_size: a row-level scan (the in-memory read) fetches in
 		// batches of this many rows instead of postgres_fdw's 100, so the
 		// contrast with the aggregate passes is not inflated by round trips.
+		// sslmode disable: the proxy reads the SQL the shards are sent,
+		// and the counts are the protocol's bytes, not TLS records (the
+		// shard clusters have Debian's default ssl = on).
 		fmt.Fprintf(&ddl, `CREATE SERVER shard%[1]d FOREIGN DATA WRAPPER postgres_fdw
-  OPTIONS (host '127.0.0.1', port '%[2]d', dbname 'shard', async_capable 'true', fetch_size '10000');
+  OPTIONS (host '127.0.0.1', port '%[2]d', dbname 'shard', sslmode 'disable', async_capable 'true', fetch_size '10000');
 CREATE USER MAPPING FOR PUBLIC SERVER shard%[1]d OPTIONS (user 'postgres', password_required 'false');
 CREATE FOREIGN TABLE %[3]s_p%[1]d PARTITION OF %[3]s FOR VALUES IN (%[1]d)
   SERVER shard%[1]d OPTIONS (schema_name 'public', table_name '%[4]s');

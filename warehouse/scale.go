@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"math/big"
 	"slices"
 	"strconv"
 	"strings"
@@ -394,9 +395,11 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 // level); a function scan's outputs stay plain columns, and unlike an
 // OFFSET 0 fence it keeps the whole query under one Partial Aggregate, so
 // the parallel plan survives.
-// Its single row holds count, treated count, log-likelihood, perfect count
-// and one DOUBLE PRECISION array: the k gradient sums, then the upper
-// triangle of the information row by row.
+// Its single row and column is the text of an array of exact integer
+// sums (exactsum.go; SplitMoments decodes it): count, treated count,
+// log-likelihood, perfect count, the k gradient sums, then the upper
+// triangle of the information row by row. With q.Partition the sums are
+// made per partition first (sumSet.arraySQL).
 //
 // Per row, with t = exp(−|η|) (0 when |η| > 300, where w < 1e-130 and
 // Postgres would raise an underflow error in the products):
@@ -406,10 +409,16 @@ func (b *ScaleSQL) RawEta(d *DesignSQL, coef []float64) string {
 //	√w = √t/(1+t), u_a = √w·x̃_a, Info_ab = Σ u_a u_b
 //
 // the same cancellation-free forms as match/score's in-memory pass.
-func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bool) (string, []any) {
+func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool) (string, []any) {
 	k := len(d.Columns) + 1
 	if len(beta) != k {
 		panic(fmt.Sprintf("warehouse: %d coefficients for %d design columns", len(beta), k-1))
+	}
+	if q.Partition != "" {
+		// A lateral function scan joins the partitioned table to a local
+		// relation, which a foreign-data wrapper cannot send to a node;
+		// nested derived tables are flattened onto the table itself.
+		lateral = false
 	}
 	b := &ScaleSQL{}
 	std := []col{{"z", d.TreatmentExpr()}}
@@ -442,23 +451,32 @@ func MomentsSQL(cohortSQL string, d *DesignSQL, beta []float64, lateral, info bo
 	}
 	levels = append(levels, last)
 
-	sums := []string{"sum(r)"}
+	ss := momentSums(k, info)
+	from := chainLevels(From(q.SQL), "", levels, lateral, q.Partition)
+	return ss.arraySQL(from, partitionRef(q.Partition), ""), b.args
+}
+
+// momentSums lists MomentsSQL's sums in the order SplitMoments reads
+// them: count, treated, log-likelihood, perfect predictions, the k
+// gradient sums, then (info) the upper triangle of the information.
+func momentSums(k int, info bool) *sumSet {
+	ss := &sumSet{}
+	ss.count("")
+	ss.integer("z")
+	ss.sum("ll", designScale)
+	ss.integer("perfect")
+	ss.sum("r", designScale)
 	for j := 1; j < k; j++ {
-		sums = append(sums, fmt.Sprintf("sum(r * x%d)", j))
+		ss.sum(fmt.Sprintf("r * x%d", j), designScale)
 	}
 	if info {
 		for a := range k {
 			for c := a; c < k; c++ {
-				sums = append(sums, fmt.Sprintf("sum(u%d * u%d)", a, c))
+				ss.sum(fmt.Sprintf("u%d * u%d", a, c), designScale)
 			}
 		}
 	}
-	sel := `SELECT CAST(count(*) AS DOUBLE PRECISION), CAST(sum(z) AS DOUBLE PRECISION),
-  CAST(sum(ll) AS DOUBLE PRECISION), CAST(sum(perfect) AS DOUBLE PRECISION),
-  CAST(ARRAY[` + strings.Join(sums, ", ") + `] AS DOUBLE PRECISION[])
-FROM `
-	from := chainLevels(From(cohortSQL), "", levels, lateral)
-	return sel + from, b.args
+	return ss
 }
 
 // fenceText is what closes a derived table that the planner must not
@@ -476,17 +494,16 @@ func fenceText(fence bool) string {
 	return ""
 }
 
-// SplitMoments unpacks MomentsSQL's array into m (k = design columns + 1);
-// info says whether the query had the information sums (m.Info stays nil
-// otherwise).
-func SplitMoments(m *Moments, k int, arr []float64, info bool) error {
-	want := k
-	if info {
-		want += k * (k + 1) / 2
+// SplitMoments decodes MomentsSQL's one column into m (k = design
+// columns + 1); info says whether the query had the information sums
+// (m.Info stays nil otherwise).
+func SplitMoments(m *Moments, k int, text string, info bool) error {
+	vals, err := momentSums(k, info).decode(text)
+	if err != nil {
+		return fmt.Errorf("moments: %w", err)
 	}
-	if len(arr) != want {
-		return fmt.Errorf("moments: %d sums returned, want %d", len(arr), want)
-	}
+	m.N, m.NTreated, m.LogLik, m.Perfect = int(vals[0]), int(vals[1]), vals[2], int(vals[3])
+	arr := vals[4:]
 	m.Grad = append([]float64(nil), arr[:k]...)
 	if !info {
 		return nil
@@ -643,12 +660,14 @@ type ColumnTypes struct {
 	OutcomeBool []bool
 }
 
-// DescribeSQL returns the one aggregate query of Describe: a single
-// DOUBLE PRECISION array holding N, distinct ids, unit NULLs, treated,
+// DescribeSQL returns the one aggregate query of Describe, two columns:
+// a DOUBLE PRECISION array holding N, distinct ids, unit NULLs, treated,
 // treatment NULLs, treatment values not 0/1, then per covariate NULLs,
-// non-finite values, mean and population SD (NaN where not numeric).
+// non-finite values and two unused slots; and the text of describeSums'
+// exact sums, from which NewDescription computes each numeric
+// covariate's mean and population SD exactly (a float avg or stddev
+// would depend on the order the engine adds rows in).
 func DescribeSQL(q CohortQuery, t ColumnTypes) string {
-	nan := "CAST('NaN' AS DOUBLE PRECISION)"
 	u := "c." + Quote(q.Unit)
 	tr := "c." + Quote(q.Treatment)
 	parts := []string{"count(*)", "count(DISTINCT " + u + ")", "count(*) - count(" + u + ")"}
@@ -662,18 +681,66 @@ func DescribeSQL(q CohortQuery, t ColumnTypes) string {
 		col := "c." + Quote(name)
 		parts = append(parts, "count(*) - count("+col+")")
 		if t.Categorical[i] {
-			parts = append(parts, "0", nan, nan)
+			parts = append(parts, "0", "0", "0")
 			continue
 		}
-		x := "CAST(" + col + " AS DOUBLE PRECISION)"
-		parts = append(parts,
-			"sum(CASE WHEN "+x+" = "+nan+" OR abs("+x+") = CAST('Infinity' AS DOUBLE PRECISION) THEN 1 ELSE 0 END)",
-			"coalesce(avg("+x+"), "+nan+")", "coalesce(stddev_pop("+x+"), "+nan+")")
+		parts = append(parts, "sum(CASE WHEN "+nonFinite(numericExpr(name))+" THEN 1 ELSE 0 END)", "0", "0")
 	}
 	for i := range parts {
 		parts[i] = "coalesce(CAST(" + parts[i] + " AS DOUBLE PRECISION), 0)"
 	}
-	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]) FROM " + From(q.SQL)
+	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]),\n  " +
+		describeSums(q, t).arrayExpr() + "\nFROM " + From(q.SQL)
+}
+
+// numericExpr is covariate name of row c as a double.
+func numericExpr(name string) string {
+	return "CAST(c." + Quote(name) + " AS DOUBLE PRECISION)"
+}
+
+// nonFinite is the SQL test for a NaN or infinite double x.
+func nonFinite(x string) string {
+	return x + " = CAST('NaN' AS DOUBLE PRECISION) OR abs(" + x + ") = CAST('Infinity' AS DOUBLE PRECISION)"
+}
+
+// describeSums lists, per numeric covariate over its finite values x,
+// the count, Σx, and Σx² as three exact sums Σh², Σ2hl, Σl² of the
+// Veltkamp split x = h + l (h the high 26 bits; Dekker 1971), whose
+// products are exact in double precision — so the variance is that of
+// the doubles themselves, with no rounding of x² per row.
+func describeSums(q CohortQuery, t ColumnTypes) *sumSet {
+	ss := &sumSet{}
+	for i, name := range q.Covariates {
+		if t.Categorical[i] {
+			continue
+		}
+		x := numericExpr(name)
+		fx := "CASE WHEN " + nonFinite(x) + " THEN NULL ELSE " + x + " END"
+		split := "(" + fx + ") * 134217729"
+		hi := "((" + split + ") - ((" + split + ") - (" + fx + ")))"
+		lo := "((" + fx + ") - " + hi + ")"
+		ss.count("(" + fx + ") IS NOT NULL")
+		ss.sum(fx, rawScale)
+		ss.sum(hi+" * "+hi, rawScale)
+		ss.sum("2 * "+hi+" * "+lo, rawScale)
+		ss.sum(lo+" * "+lo, rawScale)
+	}
+	return ss
+}
+
+// spread returns the mean and population SD from n, Σx and Σx², exact
+// in big.Float before the one rounding of each.
+func spread(n, s1, s2 *big.Float) (mean, sd float64) {
+	if n.Sign() == 0 {
+		return math.NaN(), math.NaN()
+	}
+	m := exactFloat().Quo(s1, n)
+	v := exactFloat().Mul(s1, m) // (Σx)²/n
+	v.Sub(s2, v)
+	v.Quo(v, n)
+	mean, _ = m.Float64()
+	vf, _ := v.Float64()
+	return mean, math.Sqrt(math.Max(vf, 0))
 }
 
 // LevelsSQL returns the distinct non-NULL values of a categorical
@@ -688,9 +755,13 @@ func LevelsSQL(cohortSQL, column string, text bool) string {
 
 // NewDescription unpacks DescribeSQL's array; levels[i] and counts[i]
 // hold covariate i's levels (unsorted) when it is categorical.
-func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, levels [][]string, counts [][]int) (*Description, error) {
+func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, sums string, levels [][]string, counts [][]int) (*Description, error) {
 	if len(arr) != 6+4*len(q.Covariates) {
 		return nil, fmt.Errorf("describe: %d values returned, want %d", len(arr), 6+4*len(q.Covariates))
+	}
+	exact, err := describeSums(q, t).decodeExact(sums)
+	if err != nil {
+		return nil, fmt.Errorf("describe: %w", err)
 	}
 	d := &Description{
 		N: int(arr[0]), Distinct: int(arr[1]), UnitNulls: int(arr[2]), NTreated: int(arr[3]),
@@ -710,7 +781,11 @@ func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, levels [][]stri
 			c.Counts = append([]int(nil), counts[i]...)
 			SortLevels(c.Levels, c.Counts)
 		} else {
-			c.NonFinite, c.Mean, c.SD = int(a[1]), a[2], a[3]
+			s2 := exactFloat().Add(exact[2], exact[3])
+			s2.Add(s2, exact[4])
+			c.NonFinite = int(a[1])
+			c.Mean, c.SD = spread(exact[0], exact[1], s2)
+			exact = exact[5:]
 		}
 		d.Columns = append(d.Columns, c)
 	}

@@ -39,6 +39,13 @@ type RunSums struct {
 	// Outcomes get effect sums under every adjustment but matched (whose
 	// SE needs per-set sums: MatchedSumsSQL).
 	Outcomes []string
+	// Cohort, when set, makes the pass read the cohort query itself
+	// rather than the run's snapshot (no matched adjustment then), with
+	// OutcomeBool flagging its boolean outcomes. With a partition column
+	// this is the pass a distributed engine runs on its nodes; the
+	// snapshot lives on the coordinator.
+	Cohort      *CohortQuery
+	OutcomeBool []bool
 }
 
 // Adjustments is the number of adjustments: unadjusted, matched when
@@ -101,10 +108,19 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		panic(fmt.Sprintf("warehouse: %d level lists for %d covariates", len(r.Levels), len(r.Covariates)))
 	}
 	b := &ScaleSQL{args: []any{nil}}
+	if r.Cohort != nil {
+		if r.Matched {
+			panic("warehouse: matched sums read the snapshot, not the cohort query")
+		}
+		b.args = nil // no run id: the rows are the cohort query's
+	}
 	// Level 0: per snapshot row, the treatment, covariate deltas and level
 	// indicators, outcomes, the weights of unadjusted and matched, and
 	// (for the schemes) the linear predictor.
 	l0 := []col{{"t", "c." + Quote(c.Treatment)}}
+	if r.Cohort != nil {
+		l0[0].expr = "(" + r.Design.TreatmentExpr() + ") = 1"
+	}
 	var bal []string // per-row balance terms, w·term summed
 	k := 0
 	for i, cv := range r.Covariates {
@@ -132,7 +148,11 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		if err := ValidIdent(o); err != nil {
 			return "", nil, fmt.Errorf("cohort.outcomes: %w", err)
 		}
-		l0 = append(l0, col{fmt.Sprintf("y%d", i+1), "CAST(c." + Quote(o) + " AS DOUBLE PRECISION)"})
+		y := "CAST(c." + Quote(o) + " AS DOUBLE PRECISION)"
+		if i < len(r.OutcomeBool) && r.OutcomeBool[i] {
+			y = "CASE WHEN c." + Quote(o) + " THEN 1.0 WHEN NOT c." + Quote(o) + " THEN 0.0 END"
+		}
+		l0 = append(l0, col{fmt.Sprintf("y%d", i+1), y})
 	}
 	l0 = append(l0, col{"w0", "CAST(1 AS DOUBLE PRECISION)"})
 	weights := []string{"w0"} // per adjustment, the column of w
@@ -145,11 +165,13 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		// The snapshot's columns under the design's reading: treatment
 		// boolean, categorical levels as text.
 		d := *r.Design
-		d.Treatment, d.TreatmentBool = c.Treatment, true
-		d.Columns = append([]DesignColumn(nil), r.Design.Columns...)
-		for j := range d.Columns {
-			if d.Columns[j].Categorical {
-				d.Columns[j].Text = true
+		if r.Cohort == nil {
+			d.Treatment, d.TreatmentBool = c.Treatment, true
+			d.Columns = append([]DesignColumn(nil), r.Design.Columns...)
+			for j := range d.Columns {
+				if d.Columns[j].Categorical {
+					d.Columns[j].Text = true
+				}
 			}
 		}
 		// The design's columns on their original scale in level 0 and η
@@ -181,6 +203,12 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		levels = append(levels, ws)
 	}
 	base := QuoteQualified(c.Schema, c.Cohort.Name) + " AS c"
+	if r.Cohort != nil {
+		base = From(r.Cohort.SQL)
+		if r.Cohort.Partition != "" {
+			lateral = false // as in MomentsSQL: nothing a node cannot run
+		}
+	}
 	if r.Matched {
 		unit := Quote(c.Unit)
 		if lateral {
@@ -198,13 +226,38 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 				" WHERE run_id = CAST($1 AS VARCHAR) GROUP BY " + unit + ") AS m ON m.k = c." + unit
 		}
 	}
-	from := chainLevels(base, "c.run_id = CAST($1 AS VARCHAR)", levels, lateral)
+	where, partition := "c.run_id = CAST($1 AS VARCHAR)", ""
+	if r.Cohort != nil {
+		where, partition = "", r.Cohort.Partition
+	}
+	from := chainLevels(base, where, levels, lateral, partition)
+	return runSums(r, len(weights), len(bal)).arraySQL(from, partitionRef(partition), "t"), b.args, nil
+}
 
-	parts := []string{"t"}
+// runSums lists RunSumsSQL's sums in NewSums's order over the level
+// columns it names: w0, wm, ws1… for the adjustments' weights (nw of
+// them), the nbal balance terms bal[j], outcomes y1….
+func runSums(r RunSums, nw, nbal int) *sumSet {
+	weights := []string{"w0"}
+	if r.Matched {
+		weights = append(weights, "wm")
+	}
+	for i := range r.Schemes {
+		weights = append(weights, fmt.Sprintf("ws%d", i+1))
+	}
+	if len(weights) != nw {
+		panic(fmt.Sprintf("warehouse: %d weights for %d adjustments", nw, len(weights)))
+	}
+	bal := balanceTerms(r)
+	if len(bal) != nbal {
+		panic(fmt.Sprintf("warehouse: %d balance terms, want %d", nbal, len(bal)))
+	}
+	ss := &sumSet{}
 	for _, w := range weights {
-		parts = append(parts, "sum("+w+")", "sum("+w+" * "+w+")")
+		ss.sum(w, rawScale)
+		ss.sum(w+" * "+w, rawScale)
 		for _, term := range bal {
-			parts = append(parts, "sum("+w+" * "+term+")")
+			ss.sum(w+" * "+term, rawScale)
 		}
 	}
 	for i := range r.Outcomes {
@@ -214,16 +267,40 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 				continue
 			}
 			pos := w + " > 0"
-			parts = append(parts,
-				"CAST(sum(CASE WHEN "+pos+" AND "+y+" IS NOT NULL THEN 1 ELSE 0 END) AS DOUBLE PRECISION)",
-				"CAST(sum(CASE WHEN "+pos+" AND "+y+" IS NULL THEN 1 ELSE 0 END) AS DOUBLE PRECISION)",
-				"sum(CASE WHEN "+y+" IS NOT NULL THEN "+w+" END)",
-				"sum("+w+" * "+y+")", "sum("+w+" * "+w+" * "+y+" * "+y+")", "sum("+w+" * "+w+" * "+y+")",
-				"sum(CASE WHEN "+y+" IS NOT NULL THEN "+w+" * "+w+" END)",
-				"CAST(sum(CASE WHEN "+pos+" AND "+y+" <> 0 AND "+y+" <> 1 THEN 1 ELSE 0 END) AS DOUBLE PRECISION)")
+			ss.count(pos + " AND " + y + " IS NOT NULL")
+			ss.count(pos + " AND " + y + " IS NULL")
+			ss.sum("CASE WHEN "+y+" IS NOT NULL THEN "+w+" END", rawScale)
+			ss.sum(w+" * "+y, rawScale)
+			ss.sum(w+" * "+w+" * "+y+" * "+y, rawScale)
+			ss.sum(w+" * "+w+" * "+y, rawScale)
+			ss.sum("CASE WHEN "+y+" IS NOT NULL THEN "+w+" * "+w+" END", rawScale)
+			ss.count(pos + " AND " + y + " <> 0 AND " + y + " <> 1")
 		}
 	}
-	return "SELECT " + strings.Join(parts, ",\n  ") + "\nFROM " + from + "\nGROUP BY t", b.args, nil
+	return ss
+}
+
+// balanceTerms names RunSumsSQL's per-row balance terms: per numeric
+// covariate d and d·d, per categorical level its indicator.
+func balanceTerms(r RunSums) []string {
+	var bal []string
+	for i, cv := range r.Covariates {
+		if cv.Kind == Categorical {
+			for j := range r.Levels[i] {
+				bal = append(bal, fmt.Sprintf("i%d_%d", i+1, j))
+			}
+			continue
+		}
+		name := fmt.Sprintf("d%d", i+1)
+		bal = append(bal, name, name+" * "+name)
+	}
+	return bal
+}
+
+// DecodeRunSums decodes the sums column of one RunSumsSQL row.
+func DecodeRunSums(r RunSums, text string) ([]float64, error) {
+	nw := r.Adjustments()
+	return runSums(r, nw, len(balanceTerms(r))).decode(text)
 }
 
 // col is one per-row value of a query level: its name and defining
@@ -245,7 +322,13 @@ type col struct{ name, expr string }
 // that, also stops the aggregate above from running as partial
 // aggregates in parallel workers; a function scan's outputs stay plain
 // columns and keep the parallel plan.
-func chainLevels(base, where string, levels [][]col, lateral bool) string {
+//
+// partition, when set, is a column of base carried into level 0 as
+// partitionKey, for arraySQL's per-partition grouping.
+func chainLevels(base, where string, levels [][]col, lateral bool, partition string) string {
+	if partition != "" {
+		levels = append([][]col{append([]col{{partitionKey, "c." + Quote(partition)}}, levels[0]...)}, levels[1:]...)
+	}
 	if where != "" {
 		where = "\nWHERE " + where
 	}

@@ -3,6 +3,7 @@ package warehouse
 import (
 	"context"
 	"fmt"
+	"math"
 	"strings"
 )
 
@@ -113,29 +114,67 @@ func MatchedSumsSQL(c *Contract, outcomes []string) (string, error) {
 	rows := "SELECT m.set_id AS g, m.treated AS t, CAST(m.set_weight AS DOUBLE PRECISION) AS w, " + strings.Join(ys, ", ") + " FROM " +
 		QuoteQualified(c.Schema, c.Matches.Name) + " m JOIN " + QuoteQualified(c.Schema, c.Cohort.Name) + " c ON c.run_id = m.run_id AND c." + Quote(c.Unit) + " = m." + Quote(c.Unit) +
 		" WHERE m.run_id = CAST($1 AS VARCHAR) AND m.set_weight > 0"
-	var per, outer []string
+	var per []string
 	for i := range outcomes {
 		y := fmt.Sprintf("y%d", i+1)
 		r := func(name string) string { return fmt.Sprintf("%s_%d", name, i+1) }
+		// Per set: counts, and Σw·y and Σw per arm, each an exact sum
+		// turned into a double by a fixed expression (the same whatever
+		// order the set's rows were added in).
+		in := &sumSet{}
+		in.sum("CASE WHEN t THEN w * "+y+" END", rawScale)
+		in.sum("CASE WHEN t AND "+y+" IS NOT NULL THEN w END", rawScale)
+		in.sum("CASE WHEN NOT t THEN w * "+y+" END", rawScale)
+		in.sum("CASE WHEN NOT t AND "+y+" IS NOT NULL THEN w END", rawScale)
 		per = append(per,
 			"sum(CASE WHEN t AND "+y+" IS NOT NULL THEN 1 ELSE 0 END) AS "+r("nt"), "sum(CASE WHEN NOT t AND "+y+" IS NOT NULL THEN 1 ELSE 0 END) AS "+r("nc"),
 			"sum(CASE WHEN t AND "+y+" IS NULL THEN 1 ELSE 0 END) AS "+r("mt"), "sum(CASE WHEN NOT t AND "+y+" IS NULL THEN 1 ELSE 0 END) AS "+r("mc"),
-			"coalesce(sum(CASE WHEN t THEN w * "+y+" END), 0) AS "+r("sat"), "coalesce(sum(CASE WHEN t AND "+y+" IS NOT NULL THEN w END), 0) AS "+r("sbt"),
-			"coalesce(sum(CASE WHEN NOT t THEN w * "+y+" END), 0) AS "+r("sac"), "coalesce(sum(CASE WHEN NOT t AND "+y+" IS NOT NULL THEN w END), 0) AS "+r("sbc"),
+			in.doubleExpr(0)+" AS "+r("sat"), in.doubleExpr(1)+" AS "+r("sbt"),
+			in.doubleExpr(2)+" AS "+r("sac"), in.doubleExpr(3)+" AS "+r("sbc"),
 			"sum(CASE WHEN "+y+" <> 0 AND "+y+" <> 1 THEN 1 ELSE 0 END) AS "+r("nb"))
-		sat, sbt, sac, sbc := r("sat"), r("sbt"), r("sac"), r("sbc")
-		outer = append(outer,
-			"CAST(sum(CASE WHEN "+r("nt")+" + "+r("nc")+" > 0 THEN 1 ELSE 0 END) AS DOUBLE PRECISION)",
-			"CAST(sum("+r("nt")+") AS DOUBLE PRECISION)", "CAST(sum("+r("nc")+") AS DOUBLE PRECISION)",
-			"CAST(sum("+r("mt")+") AS DOUBLE PRECISION)", "CAST(sum("+r("mc")+") AS DOUBLE PRECISION)",
-			"sum("+sbt+")", "sum("+sat+")", "sum("+sbc+")", "sum("+sac+")",
-			"sum("+sat+" * "+sat+")", "sum("+sat+" * "+sbt+")", "sum("+sbt+" * "+sbt+")",
-			"sum("+sac+" * "+sac+")", "sum("+sac+" * "+sbc+")", "sum("+sbc+" * "+sbc+")",
-			"sum("+sat+" * "+sac+")", "sum("+sat+" * "+sbc+")", "sum("+sbt+" * "+sac+")", "sum("+sbt+" * "+sbc+")",
-			"CAST(sum("+r("nb")+") AS DOUBLE PRECISION)")
 	}
 	sets := "SELECT g,\n  " + strings.Join(per, ",\n  ") + "\nFROM (" + rows + ") AS r GROUP BY g"
-	return "SELECT " + strings.Join(outer, ",\n  ") + "\nFROM (" + sets + ") AS s", nil
+	return matchedSums(len(outcomes)).arraySQL("("+sets+") AS s", "", ""), nil
+}
+
+// matchedSums lists MatchedSumsSQL's outer sums: the number of sets,
+// then MatchedWidth per outcome (DecodeMatchedSums).
+func matchedSums(outcomes int) *sumSet {
+	ss := &sumSet{}
+	ss.count("")
+	for i := range outcomes {
+		r := func(name string) string { return fmt.Sprintf("%s_%d", name, i+1) }
+		sat, sbt, sac, sbc := r("sat"), r("sbt"), r("sac"), r("sbc")
+		ss.count(r("nt") + " + " + r("nc") + " > 0")
+		ss.integer(r("nt"))
+		ss.integer(r("nc"))
+		ss.integer(r("mt"))
+		ss.integer(r("mc"))
+		for _, e := range []string{sbt, sat, sbc, sac,
+			sat + " * " + sat, sat + " * " + sbt, sbt + " * " + sbt,
+			sac + " * " + sac, sac + " * " + sbc, sbc + " * " + sbc,
+			sat + " * " + sac, sat + " * " + sbc, sbt + " * " + sac, sbt + " * " + sbc} {
+			ss.sum(e, rawScale)
+		}
+		ss.integer(r("nb"))
+	}
+	return ss
+}
+
+// DecodeMatchedSums decodes MatchedSumsSQL's one column: MatchedWidth
+// values per outcome, all NaN when the run has no sets (as a float sum
+// over no rows is NULL).
+func DecodeMatchedSums(outcomes int, text string) ([]float64, error) {
+	vals, err := matchedSums(outcomes).decode(text)
+	if err != nil {
+		return nil, err
+	}
+	if vals[0] == 0 {
+		for i := range vals {
+			vals[i] = math.NaN()
+		}
+	}
+	return vals[1:], nil
 }
 
 // CovKinds returns the kind of each of q's covariates as d models it.

@@ -105,6 +105,12 @@ type CohortQuery struct {
 	Outcomes    []string
 	Covariates  []string
 	Categorical []string
+	// Partition, when set, is a column of the query's result on which
+	// the cohort's table is partitioned across the nodes of a
+	// distributed engine (cohort.partition_column). Warehouse-scale
+	// passes then aggregate per value of it first and add the
+	// per-partition sums, so that each node aggregates its own rows.
+	Partition string
 }
 
 // IDKind is the type of the unit identifier column.

@@ -78,6 +78,14 @@ type CohortSpec struct {
 	// censoring; Rates lists event counts over unequal exposure.
 	TimeToEvent []TimeToEventSpec `yaml:"time_to_event" json:"time_to_event,omitempty"`
 	Rates       []RateSpec        `yaml:"rates" json:"rates,omitempty"`
+	// PartitionColumn names a column of the query's result on which the
+	// cohort's table is partitioned across the nodes of a distributed
+	// engine. Warehouse-scale passes then sum per partition value first,
+	// which lets a coordinator send each partition's aggregate to the
+	// node holding it (see README, sharded warehouses). It changes no
+	// result; in memory (score.fit_in: memory) the rows are read once
+	// and it is not used.
+	PartitionColumn string `yaml:"partition_column" json:"partition_column,omitempty"`
 }
 
 // TimeToEventSpec is one time-to-event outcome: follow-up time (> 0) and
@@ -581,6 +589,11 @@ func (s *Spec) validate(doc *yaml.Node) error {
 	for _, col := range c.Categorical {
 		if used[col] != "cohort.covariates" {
 			return bad("cohort.categorical", "%q is not listed in cohort.covariates", col)
+		}
+	}
+	if c.PartitionColumn != "" {
+		if err := warehouse.ValidIdent(c.PartitionColumn); err != nil {
+			return bad("cohort.partition_column", "%v", err)
 		}
 	}
 	if err := enum("score.model", &s.Score.Model, "logistic", models); err != nil {

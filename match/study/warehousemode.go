@@ -76,7 +76,8 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	// The snapshot holds every outcome-like column (the time-to-event and
 	// rate columns too); the sums cover the plain outcomes.
 	q := warehouse.CohortQuery{SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
-		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical}
+		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
+		Partition: s.Cohort.PartitionColumn}
 
 	clk.stage("fit")
 	model, err := score.ParseModel(s.Score.Model)
@@ -183,7 +184,7 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	}
 	rs, err := tx.RunSums(ctx, warehouse.RunSums{
 		Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
-		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: s.Cohort.Outcomes})
+		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: s.Cohort.Outcomes, Cohort: &q})
 	if err != nil {
 		return fmt.Errorf("balance: %w", err)
 	}

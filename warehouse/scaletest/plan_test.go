@@ -62,8 +62,8 @@ func TestPostgresAggregatesPlanParallel(t *testing.T) {
 		t.Fatal(err)
 	}
 	runArgs[0] = "r1"
-	full, fullArgs := warehouse.MomentsSQL("SELECT * FROM big", d, beta, true, true)
-	grad, gradArgs := warehouse.MomentsSQL("SELECT * FROM big", d, beta, true, false)
+	full, fullArgs := warehouse.MomentsSQL(warehouse.CohortQuery{SQL: "SELECT * FROM big"}, d, beta, true, true)
+	grad, gradArgs := warehouse.MomentsSQL(warehouse.CohortQuery{SQL: "SELECT * FROM big"}, d, beta, true, false)
 	for _, tc := range []struct {
 		name, query string
 		args        []any

@@ -72,6 +72,11 @@ func (c *Core) scaleTypes(ctx context.Context, q warehouse.CohortQuery) (warehou
 	for _, name := range q.Outcomes {
 		t.OutcomeBool = append(t.OutcomeBool, cls[name] == ClassBool)
 	}
+	if q.Partition != "" {
+		if _, err := get(q.Partition, "cohort.partition_column"); err != nil {
+			return t, err
+		}
+	}
 	return t, nil
 }
 
@@ -85,7 +90,8 @@ func (c *Core) Describe(ctx context.Context, q warehouse.CohortQuery) (*warehous
 			return err
 		}
 		var arr []float64
-		if _, err := c.query(ctx, warehouse.DescribeSQL(q, t), nil, &arr); err != nil {
+		var sums string
+		if _, err := c.query(ctx, warehouse.DescribeSQL(q, t), nil, &arr, &sums); err != nil {
 			return fmt.Errorf("describe cohort: %w", err)
 		}
 		levels := make([][]string, len(q.Covariates))
@@ -105,7 +111,7 @@ func (c *Core) Describe(ctx context.Context, q warehouse.CohortQuery) (*warehous
 				return fmt.Errorf("levels of %s: %w", name, err)
 			}
 		}
-		desc, err = warehouse.NewDescription(q, t, arr, levels, counts)
+		desc, err = warehouse.NewDescription(q, t, arr, sums, levels, counts)
 		return err
 	})
 	return desc, err
@@ -125,14 +131,12 @@ func (c *Core) eachQuery(ctx context.Context, text string, args, dest []any, fn 
 func (c *Core) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, beta []float64, info bool) (*warehouse.Moments, error) {
 	m := &warehouse.Moments{}
 	err := c.readOnly(ctx, q, func() error {
-		text, args := warehouse.MomentsSQL(q.SQL, d, beta, c.D.Inlines, info)
-		var n, nt, ll, perfect *float64
-		var arr []float64
-		if _, err := c.query(ctx, text, args, &n, &nt, &ll, &perfect, &arr); err != nil {
+		text, args := warehouse.MomentsSQL(q, d, beta, c.D.Inlines, info)
+		var sums string
+		if _, err := c.query(ctx, text, args, &sums); err != nil {
 			return fmt.Errorf("moments: %w", err)
 		}
-		m.N, m.NTreated, m.LogLik, m.Perfect = int(deref(n)), int(deref(nt)), deref(ll), int(deref(perfect))
-		return warehouse.SplitMoments(m, len(beta), arr, info)
+		return warehouse.SplitMoments(m, len(beta), sums, info)
 	})
 	if err != nil {
 		return nil, err

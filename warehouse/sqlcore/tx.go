@@ -95,29 +95,9 @@ func (t *scaleTx) RunSums(ctx context.Context, spec warehouse.RunSums) (*warehou
 			return nil, fmt.Errorf("balance levels: %w", err)
 		}
 	}
-	text, args, err := warehouse.RunSumsSQL(ct, spec, c.D.Inlines)
+	arms, err := t.runSums(ctx, ct, spec)
 	if err != nil {
 		return nil, err
-	}
-	args[0] = t.runID
-	width := spec.Adjustments()*spec.BalanceWidth() + len(spec.Outcomes)*spec.EffectAdjustments()*warehouse.EffectWidth
-	var arms [2][]float64
-	var treated bool
-	row := make([]*float64, width)
-	dest := []any{&treated}
-	for j := range row {
-		dest = append(dest, &row[j])
-	}
-	err = c.eachQuery(ctx, text, args, dest, func() error {
-		v := make([]float64, width)
-		for j, x := range row {
-			v[j] = deref(x) // NULL: no row in this arm
-		}
-		arms[b2i(treated)] = v
-		return nil
-	})
-	if err != nil {
-		return nil, fmt.Errorf("balance and effect sums: %w", err)
 	}
 	var matched []float64
 	if spec.Matched && len(spec.Outcomes) > 0 {
@@ -125,20 +105,16 @@ func (t *scaleTx) RunSums(ctx context.Context, spec warehouse.RunSums) (*warehou
 		if err != nil {
 			return nil, err
 		}
-		row := make([]*float64, len(spec.Outcomes)*warehouse.MatchedWidth)
-		dest := make([]any, len(row))
-		for j := range row {
-			dest[j] = &row[j]
-		}
-		found, err := c.query(ctx, text, []any{t.runID}, dest...)
+		var sums string
+		found, err := c.query(ctx, text, []any{t.runID}, &sums)
 		if err == nil && !found {
 			err = fmt.Errorf("no row of sums")
 		}
+		if err == nil {
+			matched, err = warehouse.DecodeMatchedSums(len(spec.Outcomes), sums)
+		}
 		if err != nil {
 			return nil, fmt.Errorf("matched effect sums: %w", err)
-		}
-		for _, x := range row {
-			matched = append(matched, nanDeref(x))
 		}
 	}
 	return warehouse.NewSums(spec, arms, matched), nil
@@ -180,4 +156,86 @@ func (t *scaleTx) Rollback(ctx context.Context) {
 		t.done = true
 		t.c.Rollback(ctx)
 	}
+}
+
+// runSums makes RunSumsSQL's pass, one row of sums per arm. With the
+// cohort partitioned (spec.Cohort.Partition), the unadjusted and
+// weighted sums are made from the cohort query, so that each node of a
+// distributed engine sums its own rows, and the matched sums, which join
+// the run's sets on the coordinator, from the snapshot in a second pass;
+// the rows are the same units with the same values, so the spliced row is
+// the one pass's row.
+func (t *scaleTx) runSums(ctx context.Context, ct *warehouse.Contract, spec warehouse.RunSums) ([2][]float64, error) {
+	if spec.Cohort == nil || spec.Cohort.Partition == "" {
+		spec.Cohort = nil
+		return t.runSumsPass(ctx, ct, spec)
+	}
+	cohort := spec
+	cohort.Matched = false
+	types, err := t.c.scaleTypes(ctx, *spec.Cohort)
+	if err != nil {
+		return [2][]float64{}, err
+	}
+	isBool := map[string]bool{}
+	for i, name := range spec.Cohort.Outcomes {
+		isBool[name] = types.OutcomeBool[i]
+	}
+	cohort.OutcomeBool = make([]bool, len(spec.Outcomes))
+	for i, name := range spec.Outcomes {
+		cohort.OutcomeBool[i] = isBool[name]
+	}
+	arms, err := t.runSumsPass(ctx, ct, cohort)
+	if err != nil || !spec.Matched {
+		return arms, err
+	}
+	matched := spec
+	matched.Cohort, matched.Schemes, matched.Outcomes = nil, nil, nil
+	marms, err := t.runSumsPass(ctx, ct, matched)
+	if err != nil {
+		return arms, err
+	}
+	bw := spec.BalanceWidth()
+	for g := range arms {
+		if arms[g] == nil && marms[g] == nil {
+			continue
+		}
+		if arms[g] == nil {
+			arms[g] = make([]float64, cohort.Adjustments()*bw+len(spec.Outcomes)*spec.EffectAdjustments()*warehouse.EffectWidth)
+		}
+		m := marms[g]
+		if m == nil {
+			m = make([]float64, 2*bw)
+		}
+		// Adjustment order: unadjusted, matched, then the schemes.
+		row := append(append(append([]float64(nil), arms[g][:bw]...), m[bw:2*bw]...), arms[g][bw:]...)
+		arms[g] = row
+	}
+	return arms, nil
+}
+
+// runSumsPass runs one RunSumsSQL pass and decodes its rows by arm.
+func (t *scaleTx) runSumsPass(ctx context.Context, ct *warehouse.Contract, spec warehouse.RunSums) ([2][]float64, error) {
+	c := t.c
+	var arms [2][]float64
+	text, args, err := warehouse.RunSumsSQL(ct, spec, c.D.Inlines)
+	if err != nil {
+		return arms, err
+	}
+	if spec.Cohort == nil {
+		args[0] = t.runID
+	}
+	var treated bool
+	var sums string
+	err = c.eachQuery(ctx, text, args, []any{&treated, &sums}, func() error {
+		v, err := warehouse.DecodeRunSums(spec, sums)
+		if err != nil {
+			return err
+		}
+		arms[b2i(treated)] = v
+		return nil
+	})
+	if err != nil {
+		return arms, fmt.Errorf("balance and effect sums: %w", err)
+	}
+	return arms, nil
 }

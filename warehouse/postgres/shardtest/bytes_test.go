@@ -2,6 +2,7 @@ package shardtest
 
 import (
 	"context"
+	"math"
 	"strings"
 	"testing"
 
@@ -17,7 +18,34 @@ func cohortQuery(table string) warehouse.CohortQuery {
 			"readmit_30d, cost_90d, " + PartitionColumn + " from " + table,
 		Unit: "member_id", Treatment: "coached", Outcomes: []string{"readmit_30d", "cost_90d"},
 		Covariates: []string{"age", "sex", "region", "prior_admits", "charlson", "lives_alone", "ef_reduced"},
+		Partition:  PartitionColumn,
 	}
+}
+
+// runSumsSpec is the run's balance and effect pass of a weighting study
+// over the cohort query q, as warehouse-scale publishing asks for it
+// with a partition column (match/study's RunSums with Cohort set; the
+// matched sums join the run's sets on the coordinator and are not part
+// of it): the design's covariates with the engine's levels, the cohort
+// means as shifts, three weighting schemes at coefficients coef.
+func runSumsSpec(t *testing.T, desc *warehouse.Description, d *warehouse.DesignSQL, q warehouse.CohortQuery, coef []float64) (*warehouse.Contract, warehouse.RunSums) {
+	t.Helper()
+	schemes := []string{"att", "ate", "overlap"}
+	r := warehouse.RunSums{Schemes: schemes, Design: d, Coef: coef, Outcomes: q.Outcomes,
+		Support: warehouse.Support{Low: math.Inf(-1), High: math.Inf(1)}, Cohort: &q, OutcomeBool: make([]bool, len(q.Outcomes))}
+	for _, cd := range desc.Columns {
+		r.Covariates = append(r.Covariates, warehouse.CovariateMeta{Name: cd.Name, Kind: cd.Kind})
+		r.Levels = append(r.Levels, cd.Levels)
+		if cd.Kind == warehouse.Numeric {
+			r.Shifts = append(r.Shifts, cd.Mean)
+		}
+	}
+	c, err := warehouse.NewContract(warehouse.Output{Schema: "public", Prefix: "bytes_", Study: "bytes", Unit: q.Unit, IDKind: warehouse.IDInt,
+		Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: schemes, Covariates: r.Covariates})
+	if err != nil {
+		t.Fatalf("contract: %v", err)
+	}
+	return c, r
 }
 
 // openScale opens the tool's own Postgres engine on the coordinator and

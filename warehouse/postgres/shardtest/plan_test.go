@@ -141,22 +141,37 @@ func TestAggregatesPushedDown(t *testing.T) {
 	}
 	beta := make([]float64, len(d.Columns)+1)
 	plain := q
-	// plain.Partition = "" once CohortQuery carries the partition column.
+	plain.Partition = ""
+	// The Postgres dialect asks for lateral per-row levels (its Inlines,
+	// which the engine passes: true); with a partition column the
+	// builders choose nested derived tables themselves.
+	info, infoArgs := warehouse.MomentsSQL(q, d, beta, true, true)
+	grad, gradArgs := warehouse.MomentsSQL(q, d, beta, true, false)
+	ct, spec := runSumsSpec(t, desc, d, q, beta)
+	sums, sumsArgs, err := warehouse.RunSumsSQL(ct, spec, true)
+	if err != nil {
+		t.Fatalf("run sums: %v", err)
+	}
+	ctrl, ctrlArgs := warehouse.MomentsSQL(plain, d, beta, true, true)
+	_, ctrlSpec := runSumsSpec(t, desc, d, plain, beta)
+	ctrlSums, ctrlSumsArgs, err := warehouse.RunSumsSQL(ct, ctrlSpec, true)
+	if err != nil {
+		t.Fatalf("run sums: %v", err)
+	}
 	for _, tc := range []struct {
 		name   string
-		q      warehouse.CohortQuery
-		info   bool
+		sql    string
+		args   []any
 		pushed bool
 	}{
-		{"moments pass", q, true, true},
-		{"gradient pass", q, false, true},
-		{"control: moments pass without the partition column", plain, true, false},
+		{"moments pass", info, infoArgs, true},
+		{"gradient pass", grad, gradArgs, true},
+		{"run sums", sums, sumsArgs, true},
+		{"control: moments pass without the partition column", ctrl, ctrlArgs, false},
+		{"control: run sums without the partition column", ctrlSums, ctrlSumsArgs, false},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			// true: the Postgres dialect's choice of lateral per-row levels
-			// (its Inlines, which the engine passes).
-			text, args := warehouse.MomentsSQL(tc.q.SQL, d, beta, true, tc.info)
-			plan := explain(t, c.DSN, text, args)
+			plan := explain(t, c.DSN, tc.sql, tc.args)
 			problems := pushdownProblems(plan)
 			if tc.pushed && len(problems) > 0 {
 				t.Errorf("not pushed down to the shards:\n  %s\nplan:\n%s", strings.Join(problems, "\n  "), clip(plan))

@@ -147,8 +147,8 @@ type DesignColumn struct {
 	// Bool marks a boolean column: its levels are tested as the boolean
 	// itself, not through a cast to text, which a foreign-data wrapper
 	// cannot send to the node holding the rows.
-	Bool bool
-	Level       string
+	Bool  bool
+	Level string
 	// Center and Scale standardise the column, x̃ = (x − Center)·Scale,
 	// with the mean and 1/SD (population) over the cohort, as
 	// match/score.FitModel does internally.

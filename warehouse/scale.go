@@ -436,9 +436,10 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 	for j, c := range d.Columns {
 		std = append(std, col{fmt.Sprintf("x%d", j+1), fmt.Sprintf("(%s - %s) * %s", b.rawExpr(c), b.Num(c.Center), b.Num(c.Scale))})
 	}
+	eta := b.Eta(beta)
 	levels := [][]col{
 		std,
-		{{"eta", b.Eta(beta)}},
+		{{"eta", eta}},
 		{{"t", "CASE WHEN abs(eta) > 300 THEN 0 ELSE exp(-abs(eta)) END"}},
 		{
 			{"p", "CASE WHEN eta >= 0 THEN 1 / (1 + t) ELSE t / (1 + t) END"},
@@ -461,10 +462,37 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 		levels[3] = levels[3][:3] // √w only feeds the information sums
 	}
 	levels = append(levels, last)
+	if q.Partition != "" {
+		levels = compactLevels(std, eta)
+	}
 
 	ss := momentSums(k, info, q.Partition != "")
 	from := chainLevels(From(q.SQL), "", levels, lateral, q.Partition)
 	return ss.arraySQL(from, partitionRef(q.Partition), ""), b.args
+}
+
+// compactLevels are MomentsSQL's levels for a partitioned pass. Flattened
+// onto the table (see MomentsSQL), every reference to a per-row value
+// repeats its definition, so the levels above would copy η (k terms)
+// many times into every sum. Here each per-row quantity refers to η once:
+//
+//	r = z − e = z − ½ − ½·tanh(η/2)
+//	w = e(1 − e) = 1/(2 + 2·cosh η)          (cosh overflows to +Inf: w = 0)
+//	ll = z·η − log(1 + e^η) = z·η − η/2 − ln(2·cosh(η/2))
+//
+// and the information sums are Σ w·x̃_a·x̃_b. The values agree with the
+// cancellation-free forms to rounding; the sums stay exact.
+func compactLevels(std []col, eta string) [][]col {
+	return [][]col{
+		std,
+		{{"eta", eta}},
+		{
+			{"r", "z - 0.5 - 0.5 * tanh(eta / 2)"},
+			{"w", "1 / (2 + 2 * cosh(eta))"},
+			{"ll", "z * eta - eta / 2 - ln(2 * cosh(eta / 2))"},
+			{"perfect", "CASE WHEN (z = 1 AND eta > 15) OR (z = 0 AND eta < -15) THEN 1 ELSE 0 END"},
+		},
+	}
 }
 
 // momentSums lists MomentsSQL's sums in the order SplitMoments reads
@@ -483,7 +511,16 @@ func momentSums(k int, info, decimal bool) *sumSet {
 	if info {
 		for a := range k {
 			for c := a; c < k; c++ {
-				ss.sum(fmt.Sprintf("u%d * u%d", a, c), designScale)
+				switch {
+				case !decimal:
+					ss.sum(fmt.Sprintf("u%d * u%d", a, c), designScale)
+				case a == 0 && c == 0:
+					ss.sum("w", designScale)
+				case a == 0:
+					ss.sum(fmt.Sprintf("w * x%d", c), designScale)
+				default:
+					ss.sum(fmt.Sprintf("w * x%d * x%d", a, c), designScale)
+				}
 			}
 		}
 	}
@@ -613,13 +650,21 @@ func ScoreInsertSQL(c *Contract, runID, cohortSQL string, d *DesignSQL, coef []f
 }
 
 // LogitRangeSQL returns min and max of η per arm: one row with
-// min0, max0, min1, max1.
-func LogitRangeSQL(cohortSQL string, d *DesignSQL, coef []float64) (string, []any) {
+// min0, max0, min1, max1. With q.Partition, per partition first (min and
+// max of the partitions' extremes are the extremes).
+func LogitRangeSQL(q CohortQuery, d *DesignSQL, coef []float64) (string, []any) {
 	b := &ScaleSQL{}
-	inner := "SELECT " + d.TreatmentExpr() + " AS z, " + b.RawEta(d, coef) + " AS eta FROM " + From(cohortSQL)
-	q := `SELECT min(CASE WHEN z = 0 THEN eta END), max(CASE WHEN z = 0 THEN eta END),
-  min(CASE WHEN z = 1 THEN eta END), max(CASE WHEN z = 1 THEN eta END) FROM (` + inner + `) AS s`
-	return q, b.args
+	part := ""
+	if q.Partition != "" {
+		part = ", c." + Quote(q.Partition) + " AS " + partitionKey
+	}
+	inner := "SELECT " + d.TreatmentExpr() + " AS z, " + b.RawEta(d, coef) + " AS eta" + part + " FROM " + From(q.SQL)
+	aggs := `min(CASE WHEN z = 0 THEN eta END) AS lo0, max(CASE WHEN z = 0 THEN eta END) AS hi0,
+  min(CASE WHEN z = 1 THEN eta END) AS lo1, max(CASE WHEN z = 1 THEN eta END) AS hi1 FROM (` + inner + `) AS s`
+	if q.Partition == "" {
+		return "SELECT " + aggs, b.args
+	}
+	return "SELECT min(lo0), max(hi0), min(lo1), max(hi1) FROM (SELECT " + aggs + " GROUP BY " + partitionKey + ") AS per", b.args
 }
 
 // MatchInputSQL returns unit, z, stratum, eta, ins per unit; the stratum

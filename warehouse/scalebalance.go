@@ -180,7 +180,7 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 			d.Columns = append([]DesignColumn(nil), r.Design.Columns...)
 			for j := range d.Columns {
 				if d.Columns[j].Categorical {
-					d.Columns[j].Text = true
+					d.Columns[j].Text, d.Columns[j].Bool = true, false
 				}
 			}
 		}
@@ -197,7 +197,11 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 			eta = append(eta, fmt.Sprintf("%s * r%d", b.Num(r.Coef[j+1]), j+1))
 		}
 		levels = append(levels, []col{{"eta", strings.Join(eta, " + ")}})
-		levels = append(levels, []col{{"e", Logistic("eta")}, {"ins", b.InSupport("eta", r.Support)}})
+		e := Logistic("eta")
+		if r.Cohort != nil && r.Cohort.Partition != "" {
+			e = "0.5 + 0.5 * tanh(eta / 2)" // one reference to η (compactLevels)
+		}
+		levels = append(levels, []col{{"e", e}, {"ins", b.InSupport("eta", r.Support)}})
 		var ws []col
 		for i, s := range r.Schemes {
 			if err := ValidIdent(s); err != nil {

@@ -157,7 +157,7 @@ func deref(f *float64) float64 {
 func (c *Core) LogitRange(ctx context.Context, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64) (*warehouse.LogitRange, error) {
 	r := &warehouse.LogitRange{}
 	err := c.readOnly(ctx, q, func() error {
-		text, args := warehouse.LogitRangeSQL(q.SQL, d, coef)
+		text, args := warehouse.LogitRangeSQL(c.partitioned(q), d, coef)
 		if _, err := c.query(ctx, text, args, &r.Min[0], &r.Max[0], &r.Min[1], &r.Max[1]); err != nil {
 			return fmt.Errorf("logit range: %w", err)
 		}

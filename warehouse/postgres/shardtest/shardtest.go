@@ -233,11 +233,14 @@ func New(t testing.TB, n int, seed uint64) *Cluster {
 		// the coordinator as soon as a pass's per-row expressions cost
 		// more than that per row (it counts them twice on the pushed-down
 		// path); 100 says what a network row really costs next to a sum.
+		// options -c jit=off: the shards' own sessions (postgres_fdw's
+		// connections) would JIT-compile the pushed-down pass, whose
+		// flattened per-row expressions make LLVM run for minutes.
 		// sslmode disable: the proxy reads the SQL the shards are sent,
 		// and the counts are the protocol's bytes, not TLS records (the
 		// shard clusters have Debian's default ssl = on).
 		fmt.Fprintf(&ddl, `CREATE SERVER shard%[1]d FOREIGN DATA WRAPPER postgres_fdw
-  OPTIONS (host '127.0.0.1', port '%[2]d', dbname 'shard', sslmode 'disable', async_capable 'true', fetch_size '10000', fdw_tuple_cost '100');
+  OPTIONS (host '127.0.0.1', port '%[2]d', dbname 'shard', sslmode 'disable', async_capable 'true', fetch_size '10000', fdw_tuple_cost '100', options '-c jit=off');
 CREATE USER MAPPING FOR PUBLIC SERVER shard%[1]d OPTIONS (user 'postgres', password_required 'false');
 CREATE FOREIGN TABLE %[3]s_p%[1]d PARTITION OF %[3]s FOR VALUES IN (%[1]d)
   SERVER shard%[1]d OPTIONS (schema_name 'public', table_name '%[4]s');

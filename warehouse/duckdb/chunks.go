@@ -374,7 +374,7 @@ func dateDays(d int32) float64 {
 	if d >= minPlainDay && d <= maxPlainDay {
 		return float64(d)
 	}
-	ds := mapping.FromDate(*(*mapping.Date)(unsafe.Pointer(&d)))
+	ds := mapping.FromDate(mapping.NewDate(d))
 	y, m, day := mapping.DateStructMembers(&ds)
 	t := time.Date(int(y), time.Month(m), int(day), 0, 0, 0, 0, time.UTC)
 	days := t.Unix() / 86400

@@ -150,8 +150,8 @@ func BenchmarkReadPaths1M(b *testing.B) {
 		name string
 		read func() (*warehouse.Cohort, error)
 	}{
-		{"rows", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.streamRows, q) }},
-		{"chunks", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.Stream, q) }},
+		{"rows", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.streamRows, q, false) }},
+		{"chunks", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.Stream, q, false) }},
 		{"ReadCohort", func() (*warehouse.Cohort, error) { return w.ReadCohort(ctx, q) }},
 	} {
 		b.Run(p.name, func(b *testing.B) {

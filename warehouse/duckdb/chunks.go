@@ -146,12 +146,18 @@ type vecReader struct {
 	internal     duckdb.Type
 	scale, width uint8
 	dict         []string
+	// batch is the sink's block interface (nil: value by value); floats
+	// and ints are its reused buffers for converted narrow types.
+	batch  sqlcore.Batch
+	floats []float64
+	ints   []int64
 }
 
 func newVecReader(res *mapping.Result, i int, s sqlcore.Sink) (*vecReader, error) {
 	lt := mapping.ColumnLogicalType(res, mapping.IdxT(i))
 	defer mapping.DestroyLogicalType(&lt)
 	vr := &vecReader{col: i, sink: s, typ: mapping.GetTypeId(lt)}
+	vr.batch, _ = s.(sqlcore.Batch)
 	switch vr.typ {
 	case duckdb.TYPE_BOOLEAN, duckdb.TYPE_TINYINT, duckdb.TYPE_SMALLINT, duckdb.TYPE_INTEGER, duckdb.TYPE_BIGINT,
 		duckdb.TYPE_UTINYINT, duckdb.TYPE_USMALLINT, duckdb.TYPE_UINTEGER, duckdb.TYPE_UBIGINT,
@@ -216,19 +222,24 @@ func (vr *vecReader) read(data, mask unsafe.Pointer, n int) {
 			}
 		}
 	case duckdb.TYPE_TINYINT:
-		readInts[int8](s, data, mask, n)
+		readInts[int8](vr, data, mask, n)
 	case duckdb.TYPE_SMALLINT:
-		readInts[int16](s, data, mask, n)
+		readInts[int16](vr, data, mask, n)
 	case duckdb.TYPE_INTEGER:
-		readInts[int32](s, data, mask, n)
+		readInts[int32](vr, data, mask, n)
 	case duckdb.TYPE_BIGINT:
-		readInts[int64](s, data, mask, n)
+		if vr.batch == nil {
+			readInts[int64](vr, data, mask, n)
+			break
+		}
+		v := unsafe.Slice((*int64)(data), n)
+		eachRun(mask, n, func(lo, hi int) { vr.batch.Ints(v[lo:hi]) }, s.Null)
 	case duckdb.TYPE_UTINYINT:
-		readInts[uint8](s, data, mask, n)
+		readInts[uint8](vr, data, mask, n)
 	case duckdb.TYPE_USMALLINT:
-		readInts[uint16](s, data, mask, n)
+		readInts[uint16](vr, data, mask, n)
 	case duckdb.TYPE_UINTEGER:
-		readInts[uint32](s, data, mask, n)
+		readInts[uint32](vr, data, mask, n)
 	case duckdb.TYPE_UBIGINT:
 		for i, x := range unsafe.Slice((*uint64)(data), n) {
 			switch {
@@ -255,21 +266,33 @@ func (vr *vecReader) read(data, mask unsafe.Pointer, n int) {
 			}
 		}
 	case duckdb.TYPE_FLOAT:
-		for i, f := range unsafe.Slice((*float32)(data), n) {
-			if valid(mask, i) {
-				s.Float(float64(f))
-			} else {
-				s.Null()
-			}
+		v := unsafe.Slice((*float32)(data), n)
+		if vr.batch == nil {
+			eachRun(mask, n, func(lo, hi int) {
+				for _, f := range v[lo:hi] {
+					s.Float(float64(f))
+				}
+			}, s.Null)
+			break
 		}
+		eachRun(mask, n, func(lo, hi int) {
+			vr.floats = vr.floats[:0]
+			for _, f := range v[lo:hi] {
+				vr.floats = append(vr.floats, float64(f))
+			}
+			vr.batch.Floats(vr.floats)
+		}, s.Null)
 	case duckdb.TYPE_DOUBLE:
-		for i, f := range unsafe.Slice((*float64)(data), n) {
-			if valid(mask, i) {
-				s.Float(f)
-			} else {
-				s.Null()
-			}
+		v := unsafe.Slice((*float64)(data), n)
+		if vr.batch == nil {
+			eachRun(mask, n, func(lo, hi int) {
+				for _, f := range v[lo:hi] {
+					s.Float(f)
+				}
+			}, s.Null)
+			break
 		}
+		eachRun(mask, n, func(lo, hi int) { vr.batch.Floats(v[lo:hi]) }, s.Null)
 	case duckdb.TYPE_VARCHAR:
 		for i := range n {
 			if valid(mask, i) {
@@ -326,14 +349,48 @@ func (vr *vecReader) read(data, mask unsafe.Pointer, n int) {
 	}
 }
 
-// readInts feeds a vector of a narrow integer type as int64s.
-func readInts[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32](s sqlcore.Sink, data, mask unsafe.Pointer, n int) {
-	for i, x := range unsafe.Slice((*T)(data), n) {
-		if valid(mask, i) {
-			s.Int(int64(x))
-		} else {
-			s.Null()
+// readInts feeds a vector of an integer type as int64s: runs of them to
+// a Batch, else one by one.
+func readInts[T int8 | int16 | int32 | int64 | uint8 | uint16 | uint32](vr *vecReader, data, mask unsafe.Pointer, n int) {
+	v, s := unsafe.Slice((*T)(data), n), vr.sink
+	if vr.batch == nil {
+		eachRun(mask, n, func(lo, hi int) {
+			for _, x := range v[lo:hi] {
+				s.Int(int64(x))
+			}
+		}, s.Null)
+		return
+	}
+	eachRun(mask, n, func(lo, hi int) {
+		vr.ints = vr.ints[:0]
+		for _, x := range v[lo:hi] {
+			vr.ints = append(vr.ints, int64(x))
 		}
+		vr.batch.Ints(vr.ints)
+	}, s.Null)
+}
+
+// eachRun walks rows 0…n-1 in order: run for each maximal run [lo, hi)
+// of valid rows, null for each NULL row.
+func eachRun(mask unsafe.Pointer, n int, run func(lo, hi int), null func()) {
+	if mask == nil {
+		if n > 0 {
+			run(0, n)
+		}
+		return
+	}
+	for i := 0; i < n; {
+		j := i
+		for j < n && valid(mask, j) {
+			j++
+		}
+		if j > i {
+			run(i, j)
+		}
+		for ; j < n && !valid(mask, j); j++ {
+			null()
+		}
+		i = j
 	}
 }
 

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"math"
 	"reflect"
+	"slices"
 	"strings"
 	"testing"
 
@@ -112,10 +113,11 @@ func TestChunksMatchRows(t *testing.T) {
 	for _, tt := range tests {
 		t.Run(tt.name, func(t *testing.T) {
 			w.testConn(t)
-			rows, rerr := collect(a.streamRows, tt.q)
-			chunks, cerr := collect(a.Stream, tt.q)
-			if fmt.Sprint(rerr) != fmt.Sprint(cerr) {
-				t.Fatalf("rows: %v\nchunks: %v", rerr, cerr)
+			rows, rerr := collect(a.streamRows, tt.q, false)
+			chunks, cerr := collect(a.Stream, tt.q, false)
+			plain, perr := collect(a.Stream, tt.q, true)
+			if fmt.Sprint(rerr) != fmt.Sprint(cerr) || fmt.Sprint(rerr) != fmt.Sprint(perr) {
+				t.Fatalf("rows: %v\nchunks: %v\nchunks value by value: %v", rerr, cerr, perr)
 			}
 			if tt.fail != (rerr != nil) {
 				t.Fatalf("error %v, want failure %v", rerr, tt.fail)
@@ -129,26 +131,42 @@ func TestChunksMatchRows(t *testing.T) {
 			if path, ok := sameBits(reflect.ValueOf(rows), reflect.ValueOf(chunks), "cohort"); !ok {
 				t.Errorf("cohorts differ at %s", path)
 			}
+			if path, ok := sameBits(reflect.ValueOf(rows), reflect.ValueOf(plain), "cohort"); !ok {
+				t.Errorf("value by value, cohorts differ at %s", path)
+			}
 		})
 	}
 }
 
 // collect reads q through stream into a Cohort, as ReadCohort does
-// without its transaction.
-func collect(stream func(context.Context, string, func([]sqlcore.Column) ([]sqlcore.Sink, error)) error, q warehouse.CohortQuery) (*warehouse.Cohort, error) {
+// without its transaction; plain hides the sinks' Batch methods, so the
+// chunks reach them value by value.
+func collect(stream func(context.Context, string, func([]sqlcore.Column) ([]sqlcore.Sink, error)) error, q warehouse.CohortQuery, plain bool) (*warehouse.Cohort, error) {
 	var k *sqlcore.Collector
 	err := stream(context.Background(), q.SQL, func(cols []sqlcore.Column) ([]sqlcore.Sink, error) {
 		var err error
 		if k, err = sqlcore.NewCollector(q, cols); err != nil {
 			return nil, err
 		}
-		return k.Sinks(), nil
+		sinks := k.Sinks()
+		if plain {
+			sinks = slices.Clone(sinks)
+			for i, s := range sinks {
+				if s != nil {
+					sinks[i] = plainSink{s}
+				}
+			}
+		}
+		return sinks, nil
 	})
 	if err != nil {
 		return nil, err
 	}
 	return k.Finish()
 }
+
+// plainSink is a Sink without the Batch methods.
+type plainSink struct{ sqlcore.Sink }
 
 // sameBits is deep equality with floats compared by their bits (NaN
 // equals NaN, 0 differs from -0); on a difference, the path to it.

@@ -235,3 +235,58 @@ func TestResultOf(t *testing.T) {
 		t.Fatal(err)
 	}
 }
+
+// TestChunksCancel: a cancelled context stops the columnar read, before
+// the query runs (with the row path's error) and between chunks.
+func TestChunksCancel(t *testing.T) {
+	w := openTemp(t)
+	execSQL(t, w, fmt.Sprintf("CREATE TABLE t AS SELECT i AS id, i %% 2 = 0 AS tb, i * 0.5 AS x FROM range(%d) r(i)", chunkRows))
+	a := (*adapter)(w)
+	q := warehouse.CohortQuery{SQL: "SELECT * FROM t", Unit: "id", Treatment: "tb", Covariates: []string{"x"}}
+	w.testConn(t)
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	open := func(cols []sqlcore.Column) ([]sqlcore.Sink, error) {
+		k, err := sqlcore.NewCollector(q, cols)
+		if err != nil {
+			return nil, err
+		}
+		return k.Sinks(), nil
+	}
+	rerr, cerr := a.streamRows(ctx, q.SQL, open), a.Stream(ctx, q.SQL, open)
+	if !errors.Is(cerr, context.Canceled) || fmt.Sprint(rerr) != fmt.Sprint(cerr) {
+		t.Errorf("cancelled before the query: rows %v, chunks %v", rerr, cerr)
+	}
+
+	// Cancelled while the first chunk is decoded: no further chunk is read.
+	ctx, cancel = context.WithCancel(context.Background())
+	defer cancel()
+	var k *sqlcore.Collector
+	err := a.Stream(ctx, q.SQL, func(cols []sqlcore.Column) ([]sqlcore.Sink, error) {
+		var err error
+		if k, err = sqlcore.NewCollector(q, cols); err != nil {
+			return nil, err
+		}
+		sinks := k.Sinks()
+		for i, s := range sinks {
+			if s != nil {
+				sinks[i] = cancelSink{s, cancel}
+			}
+		}
+		return sinks, nil
+	})
+	if !errors.Is(err, context.Canceled) || !strings.HasPrefix(err.Error(), "cohort.sql: ") {
+		t.Errorf("cancelled during the read: %v", err)
+	}
+	if n := k.Rows(); n == 0 || n >= chunkRows {
+		t.Errorf("%d rows read before stopping, want one chunk", n)
+	}
+}
+
+// cancelSink cancels its context at the first value it receives.
+type cancelSink struct {
+	sqlcore.Sink
+	cancel func()
+}
+
+func (s cancelSink) Int(x int64) { s.cancel(); s.Sink.Int(x) }

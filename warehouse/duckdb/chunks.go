@@ -21,19 +21,22 @@ import (
 //
 // database/sql hands the analyst's result over one row at a time: every
 // value becomes a driver.Value (an interface, often an allocation: a
-// string copy, a time.Time, a *big.Int) and then passes a type switch
-// before it reaches its sink. That costs about four times what DuckDB
-// needs to produce the columns. Here the same result is read a data chunk
-// (up to 2,048 rows) at a time through DuckDB's C data-chunk interface
-// and each used column's vector is decoded in one loop straight into its
-// sink, with the values the row path would have given it, bit for bit.
+// string copy, a time.Time, a *big.Int), passes a type switch, and the
+// sink formats each number as text in case a message needs it. On the
+// 1M-unit benchmark cohort that is about ten times what reading the
+// columns costs (BenchmarkReadPaths1M). Here the same result is read a
+// data chunk (up to 2,048 rows) at a time through DuckDB's C data-chunk
+// interface; each used column's vector is decoded in one loop straight
+// into its sink, runs of numbers through the sink's sqlcore.Batch, with
+// the values the row path would have given, bit for bit
+// (TestChunksMatchRows).
 //
 // duckdb-go's Arrow interface would do the same but builds only with the
 // duckdb_arrow tag, which neither `go test ./...` nor `go run` sets; its
 // data-chunk interface has no exported way to fetch a query's chunks, so
 // the chunks are fetched from the driver's own result (resultOf). The row
 // path (sqlcore.SQLDecoder) stays as the fallback should a driver upgrade
-// move that result.
+// move that result; TestResultOf fails first, so the slowdown is seen.
 
 // Stream runs text on the dedicated connection and feeds the result's
 // columns to the sinks a data chunk at a time.

@@ -330,26 +330,56 @@ func (vr *vecReader) read(data, mask unsafe.Pointer, n int) {
 			}
 		}
 	case duckdb.TYPE_DECIMAL:
-		for i := range n {
-			if !valid(mask, i) {
-				s.Null()
-				continue
+		if vr.batch == nil {
+			eachRun(mask, n, func(lo, hi int) {
+				for i := lo; i < hi; i++ {
+					d := vr.decimal(data, i)
+					s.Exact(decimalFloat(d), d.String(), false)
+				}
+			}, s.Null)
+			break
+		}
+		eachRun(mask, n, func(lo, hi int) {
+			vr.floats = vr.floats[:0]
+			for i := lo; i < hi; i++ {
+				vr.floats = append(vr.floats, vr.decimalFloat(data, i))
 			}
-			var v *big.Int
-			switch vr.internal {
-			case duckdb.TYPE_SMALLINT:
-				v = big.NewInt(int64(*(*int16)(unsafe.Add(data, 2*i))))
-			case duckdb.TYPE_INTEGER:
-				v = big.NewInt(int64(*(*int32)(unsafe.Add(data, 4*i))))
-			case duckdb.TYPE_BIGINT:
-				v = big.NewInt(*(*int64)(unsafe.Add(data, 8*i)))
-			default:
-				v = wideInt(*(*hugeint)(unsafe.Add(data, 16*i)), false)
-			}
-			d := duckdb.Decimal{Width: vr.width, Scale: vr.scale, Value: v}
-			s.Exact(decimalFloat(d), d.String(), false)
+			vr.batch.Exacts(vr.floats, func(k int) string { return vr.decimal(data, lo+k).String() })
+		}, s.Null)
+	}
+}
+
+// unscaled is row i of a DECIMAL vector stored in 16, 32 or 64 bits.
+func (vr *vecReader) unscaled(data unsafe.Pointer, i int) int64 {
+	switch vr.internal {
+	case duckdb.TYPE_SMALLINT:
+		return int64(*(*int16)(unsafe.Add(data, 2*i)))
+	case duckdb.TYPE_INTEGER:
+		return int64(*(*int32)(unsafe.Add(data, 4*i)))
+	}
+	return *(*int64)(unsafe.Add(data, 8*i))
+}
+
+// decimal is row i of a DECIMAL vector as the driver gives it.
+func (vr *vecReader) decimal(data unsafe.Pointer, i int) duckdb.Decimal {
+	var v *big.Int
+	if vr.internal == duckdb.TYPE_HUGEINT {
+		v = wideInt(*(*hugeint)(unsafe.Add(data, 16*i)), false)
+	} else {
+		v = big.NewInt(vr.unscaled(data, i))
+	}
+	return duckdb.Decimal{Width: vr.width, Scale: vr.scale, Value: v}
+}
+
+// decimalFloat is decimalFloat(vr.decimal(data, i)) without building the
+// big.Int when its fast case applies.
+func (vr *vecReader) decimalFloat(data unsafe.Pointer, i int) float64 {
+	if vr.internal != duckdb.TYPE_HUGEINT && int(vr.scale) < len(pow10) {
+		if v := vr.unscaled(data, i); v > -(1<<53) && v < 1<<53 {
+			return float64(v) / pow10[vr.scale]
 		}
 	}
+	return decimalFloat(vr.decimal(data, i))
 }
 
 // readInts feeds a vector of an integer type as int64s: runs of them to

@@ -14,6 +14,10 @@ type Batch interface {
 	Floats(v []float64)
 	// Ints is Int on each of v.
 	Ints(v []int64)
+	// Exacts is Exact(f[i], text(i), false) on each of f (a DECIMAL run);
+	// text is called only where the column keeps or shows it (treatment,
+	// categorical), so a numeric column costs no formatting.
+	Exacts(f []float64, text func(i int) string)
 }
 
 var _ Batch = (*col)(nil)
@@ -35,6 +39,16 @@ func (c *col) Floats(v []float64) {
 			c.nonFinite++
 		}
 	}
+}
+
+func (c *col) Exacts(f []float64, text func(i int) string) {
+	if c.role != roleNum {
+		for i, x := range f {
+			c.Exact(x, text(i), false)
+		}
+		return
+	}
+	c.Floats(f) // Exact of a numeric column is number, as Float's is
 }
 
 func (c *col) Ints(v []int64) {

@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Whole-run benchmark on DuckDB (issue: foundation, item 13).
 # 1,000,000 units, ~10 % treated, 20 covariates of which 3 categorical.
-# Prints: the floor (plain read into Go), the whole run with seconds per
+# Prints: the floors (plain read into Go: database/sql rows and DuckDB
+# data chunks), the whole run with seconds per
 # stage and peak RSS, and statsmodels' Logit fit on the same design
 # (Debian python3-statsmodels) when it is installed.
 set -euo pipefail
@@ -15,9 +16,11 @@ go run ./testdata/bench/mkwarehouse -out "$out/bench.duckdb" -units "$units" -cs
 go run ./testdata/bench/mkwarehouse -out "$out/bench.duckdb" -study "$out/bench.yaml"
 rss() { grep 'Maximum resident' "$1" | awk '{printf "%.0f MB", $6/1024}'; }
 
-echo "== floor: read the same columns into Go"
-/usr/bin/time -v "$out/readfloor" -db "$out/bench.duckdb" 2> "$out/floor.time"
-grep -E 'Elapsed' "$out/floor.time"; echo "peak RSS $(rss "$out/floor.time")"
+for read in sql chunks; do
+  echo "== floor: read the same columns into Go ($read)"
+  /usr/bin/time -v "$out/readfloor" -db "$out/bench.duckdb" -read "$read" 2> "$out/floor-$read.time"
+  grep -E 'Elapsed' "$out/floor-$read.time"; echo "peak RSS $(rss "$out/floor-$read.time")"
+done
 
 echo "== whole run"
 /usr/bin/time -v "$out/counterpart" run --json "$out/bench.yaml" > "$out/run.json" 2> "$out/run.time" || true

@@ -129,3 +129,42 @@ func BenchmarkDashboard1M(b *testing.B) {
 		return rows.Err()
 	})
 }
+
+// BenchmarkReadPaths1M compares the two ways of reading the benchmark
+// warehouse's cohort (warehousetest.BenchCohortSQLWith: 1,000,000 units,
+// 27 numeric and 3 categorical covariates, two outcomes) into the
+// collector: "rows" through database/sql, "chunks" a data chunk at a
+// time (what Stream does), and "ReadCohort", the chunks inside the whole
+// read (read-only transaction, statement check, canonical order).
+func BenchmarkReadPaths1M(b *testing.B) {
+	w := openTemp(b)
+	warehousetest.Exec(b, w, warehousetest.BenchCohortSQLWith(benchRows, warehousetest.BenchNumeric))
+	q := warehouse.CohortQuery{SQL: "SELECT * FROM synth.cohort", Unit: "unit_id", Treatment: "treated", Outcomes: []string{"y_bin", "y_cont"}}
+	for j := 1; j <= warehousetest.BenchNumeric; j++ {
+		q.Covariates = append(q.Covariates, fmt.Sprintf("x%02d", j))
+	}
+	q.Covariates = append(q.Covariates, "c1", "c2", "c3")
+	a := (*adapter)(w)
+	ctx := context.Background()
+	for _, p := range []struct {
+		name string
+		read func() (*warehouse.Cohort, error)
+	}{
+		{"rows", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.streamRows, q, false) }},
+		{"chunks", func() (*warehouse.Cohort, error) { w.testConn(b); return collect(a.Stream, q, false) }},
+		{"ReadCohort", func() (*warehouse.Cohort, error) { return w.ReadCohort(ctx, q) }},
+	} {
+		b.Run(p.name, func(b *testing.B) {
+			for b.Loop() {
+				c, err := p.read()
+				if err != nil {
+					b.Fatal(err)
+				}
+				if c.N() != benchRows {
+					b.Fatalf("read %d rows", c.N())
+				}
+			}
+			b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/read")
+		})
+	}
+}

@@ -138,11 +138,6 @@ func (a *adapter) Columns(ctx context.Context, text string) ([]sqlcore.Column, e
 	return decoder.Columns(ctx, a.conn, text)
 }
 
-// Stream runs text on the dedicated connection.
-func (a *adapter) Stream(ctx context.Context, text string, open func([]sqlcore.Column) ([]sqlcore.Sink, error)) error {
-	return decoder.Stream(ctx, a.conn, text, open)
-}
-
 // pow10 holds the exactly representable powers of ten.
 var pow10 = [...]float64{1, 1e1, 1e2, 1e3, 1e4, 1e5, 1e6, 1e7, 1e8, 1e9, 1e10,
 	1e11, 1e12, 1e13, 1e14, 1e15, 1e16, 1e17, 1e18, 1e19, 1e20, 1e21, 1e22}

@@ -78,7 +78,8 @@ type Adapter interface {
 	// Columns describes the result columns of text without reading rows.
 	Columns(ctx context.Context, text string) ([]Column, error)
 	// Stream runs text and feeds every row to the sinks open returns
-	// (nil: column unused).
+	// (nil: column unused), in result order; column by column within a
+	// block of rows is fine (each sink sees its column's rows in order).
 	Stream(ctx context.Context, text string, open func([]Column) ([]Sink, error)) error
 	Lock(ctx context.Context, out warehouse.Output) (func() error, error)
 	User(ctx context.Context) string

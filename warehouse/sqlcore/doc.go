@@ -21,6 +21,8 @@
 //     Class values, and its rows fed value by value into the Sinks of the
 //     shared Collector, which holds every decoding rule. A database/sql
 //     driver gets both from an SQLDecoder and decodes only its own types.
+//     An engine that reads column blocks may hand runs of non-NULL numbers
+//     to a sink's Batch methods (batch.go) instead, with the same result.
 //  4. CheckSelect, Lock (warehouse/filelock for a file-backed engine),
 //     User, Close.
 //  5. Register the engine and its embedded dialect SQL with Register in

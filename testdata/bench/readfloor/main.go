@@ -1,6 +1,9 @@
 // Command readfloor times the floor of a run: reading the benchmark
-// cohort's columns from DuckDB into Go slices through database/sql, with
-// nothing else. Run it under /usr/bin/time -v for peak memory.
+// cohort's columns from DuckDB into Go slices, with nothing else, either
+// row by row through database/sql (-read sql, the floor of the old row
+// path) or a data chunk at a time through DuckDB's C data-chunk interface
+// (-read chunks, the floor of warehouse/duckdb's columnar read). Run it
+// under /usr/bin/time -v for peak memory.
 package main
 
 import (
@@ -15,9 +18,22 @@ import (
 
 func main() {
 	path := flag.String("db", "bench.duckdb", "DuckDB file")
+	read := flag.String("read", "sql", "how to read: sql (database/sql, row by row) or chunks (data chunks)")
 	flag.Parse()
+	switch *read {
+	case "sql":
+		readSQL(*path)
+	case "chunks":
+		readChunks(*path)
+	default:
+		fail(fmt.Errorf("-read %q: want sql or chunks", *read))
+	}
+}
+
+// readSQL scans typed destinations row by row.
+func readSQL(path string) {
 	start := time.Now()
-	db, err := sql.Open("duckdb", *path)
+	db, err := sql.Open("duckdb", path)
 	if err != nil {
 		fail(err)
 	}

@@ -5,6 +5,7 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"slices"
 	"time"
 
 	"github.com/schollz/progressbar/v3"
@@ -70,6 +71,11 @@ func (p *progress) stage(name string) {
 	p.finishStage()
 	p.name, p.last, p.start = name, name, time.Now()
 	if p.bar != nil {
+		// An optional stage (skip-check, prior, diagnostics, bootstrap)
+		// lengthens the bar, so that it is not full before publishing.
+		if !slices.Contains(runStages, name) {
+			p.bar.ChangeMax(p.bar.GetMax() + 1)
+		}
 		p.bar.Describe(name)
 	}
 }

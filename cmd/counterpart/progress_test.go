@@ -74,3 +74,16 @@ func TestProgressStageDone(t *testing.T) {
 		t.Fatalf("abort between stages names %q, want the last stage begun, publish", name)
 	}
 }
+
+// TestProgressOptionalStage: a stage outside runStages lengthens the bar
+// by one step, so the bar is full only when the run ends.
+func TestProgressOptionalStage(t *testing.T) {
+	var buf bytes.Buffer
+	p := newProgress(&buf, true, slog.New(discard{}))
+	p.stage("read")
+	p.stageDone("read", 0)
+	p.stage("bootstrap")
+	if got, want := p.bar.GetMax(), len(runStages)+1; got != want {
+		t.Fatalf("bar of %d steps after an optional stage, want %d", got, want)
+	}
+}

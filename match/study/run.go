@@ -38,6 +38,8 @@ type Options struct {
 	// StageDone, when set, is told as a stage (or a quiet part billed to
 	// one) ends, with the stage's own seconds so far: what the summary's
 	// stage_seconds holds, not the time since the previous stage began.
+	// A stage with parts elsewhere (warehouse-scale fit and support) is
+	// reported again after each; the last report holds its total.
 	StageDone func(name string, seconds float64)
 	// SkipUnchanged ends the run without writing anything when the cohort
 	// fingerprint and the study file's hash both equal those of the last

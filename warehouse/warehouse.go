@@ -298,6 +298,13 @@ type Publication struct {
 	// Survival holds the Kaplan–Meier steps of the time-to-event
 	// outcomes, written to {prefix}survival (Output.TimeToEvent).
 	Survival []SurvivalStep
+	// Seal, when set, is called by the publish transaction's last
+	// statement before COMMIT, which stamps the run's finished_at: it
+	// returns that time (the caller's clock, so that it agrees with the
+	// caller's stage timings) and the summary JSON to store with it, the
+	// final one, whose times end at that statement. Nil: the engine's
+	// clock, and Run.SummaryJSON as written.
+	Seal func() (finished time.Time, summaryJSON string)
 }
 
 // SurvivalStep is one row of the survival table: one arm's weighted

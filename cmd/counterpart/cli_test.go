@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
+	"time"
 )
 
 // TestDemoCommand runs the README's first command end to end on a small
@@ -113,5 +114,65 @@ func TestLogFormatJSON(t *testing.T) {
 	}
 	if last["level"] != "ERROR" || last["exit_code"] != float64(exitUnchanged) {
 		t.Errorf("last record %v, want an ERROR with exit_code 5", last)
+	}
+}
+
+// TestLogFormatJSONStages: a published run's "stage done" records name
+// every stage of runStages in order, each with the seconds the --json
+// summary's stage_seconds holds for it, and those seconds add up to no
+// more than the run's wall time (started_at to finished_at).
+func TestLogFormatJSONStages(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	var out, errb bytes.Buffer
+	if code := run(ctx, []string{"counterpart", "demo", "--dir", dir, "--units", "1500"}, &out, &errb); code != exitOK {
+		t.Fatalf("demo: %s", errb.String())
+	}
+	out.Reset()
+	errb.Reset()
+	if code := run(ctx, []string{"counterpart", "--log-format", "json", "run", "--json", filepath.Join(dir, "hf_coaching.yaml")}, &out, &errb); code != exitOK {
+		t.Fatalf("run exit %d: %s", code, errb.String())
+	}
+	var sum struct {
+		StartedAt  time.Time          `json:"started_at"`
+		FinishedAt time.Time          `json:"finished_at"`
+		Timings    map[string]float64 `json:"stage_seconds"`
+	}
+	if err := json.Unmarshal(out.Bytes(), &sum); err != nil {
+		t.Fatal(err)
+	}
+	var stages []string
+	for _, l := range strings.Split(strings.TrimSpace(errb.String()), "\n") {
+		var rec struct {
+			Msg     string  `json:"msg"`
+			Stage   string  `json:"stage"`
+			Seconds float64 `json:"seconds"`
+		}
+		if err := json.Unmarshal([]byte(l), &rec); err != nil {
+			t.Fatalf("stderr line is not JSON: %q", l)
+		}
+		if rec.Msg != "stage done" {
+			continue
+		}
+		stages = append(stages, rec.Stage)
+		if sec, ok := sum.Timings[rec.Stage]; !ok || sec != rec.Seconds {
+			t.Errorf("stage done %s: %v s, stage_seconds has %v (%v)", rec.Stage, rec.Seconds, sec, ok)
+		}
+	}
+	k := 0
+	for _, st := range stages {
+		if k < len(runStages) && st == runStages[k] {
+			k++
+		}
+	}
+	if k != len(runStages) {
+		t.Errorf("stage done records %v do not hold %v in order", stages, runStages)
+	}
+	total := 0.0
+	for _, sec := range sum.Timings {
+		total += sec
+	}
+	if wall := sum.FinishedAt.Sub(sum.StartedAt).Seconds(); total > wall+1e-9 {
+		t.Errorf("stages sum to %v s, more than the run's wall time %v s", total, wall)
 	}
 }

@@ -235,7 +235,7 @@ func execute(ctx context.Context, spec *study.Spec, f runFlags, stdout, stderr i
 			if stageHook != nil {
 				stageHook(ctx, name)
 			}
-		}, Pass: prog.pass, SkipUnchanged: f.skip})
+		}, StageDone: prog.stageDone, Pass: prog.pass, SkipUnchanged: f.skip})
 	if err != nil && ctx.Err() != nil {
 		// Whatever error the stage or the engine made of it, a run that
 		// ends after a signal was cancelled.

@@ -5,14 +5,18 @@ import (
 	"fmt"
 	"io"
 	"log/slog"
+	"slices"
 	"time"
 
 	"github.com/schollz/progressbar/v3"
 )
 
-// runStages are the stages a run reports, in order; the bar advances one
-// step per stage (a stage's own progress is not observable cheaply).
-var runStages = []string{"read", "fit", "match", "weight", "estimate", "publish"}
+// runStages are the stages every in-memory run reports, in order; the bar
+// advances one step per stage (a stage's own progress is not observable
+// cheaply). Some runs add stages (skip-check, prior, diagnostics,
+// bootstrap) or report fewer (warehouse-scale mode: design, fit, support,
+// match, estimate, publish); the bar fills when the run ends either way.
+var runStages = []string{"read", "design", "fit", "support", "match", "weight", "balance", "estimate", "publish"}
 
 // newLogger picks the log output: JSON lines when asked (for schedulers
 // that parse logs), text on a terminal, nothing otherwise, so that an
@@ -38,9 +42,12 @@ func (d discard) WithGroup(string) slog.Handler           { return d }
 // progress shows a run's stages: a bar on a terminal, log records
 // everywhere logging is on.
 type progress struct {
-	bar   *progressbar.ProgressBar
-	log   *slog.Logger
-	name  string
+	bar  *progressbar.ProgressBar
+	log  *slog.Logger
+	name string
+	// last is the stage begun last, open or not: what a cancellation
+	// between two stages reports.
+	last  string
 	start time.Time
 }
 
@@ -58,25 +65,43 @@ func newProgress(stderr io.Writer, tty bool, log *slog.Logger) *progress {
 	return p
 }
 
-// stage is study.Options.Stage: it closes the previous stage and opens
-// the next.
+// stage is study.Options.Stage: it opens the next stage (closing one
+// left open, which stageDone normally closed).
 func (p *progress) stage(name string) {
 	p.finishStage()
-	p.name, p.start = name, time.Now()
+	p.name, p.last, p.start = name, name, time.Now()
 	if p.bar != nil {
+		// An optional stage (skip-check, prior, diagnostics, bootstrap)
+		// lengthens the bar, so that it is not full before publishing.
+		if !slices.Contains(runStages, name) {
+			p.bar.ChangeMax(p.bar.GetMax() + 1)
+		}
 		p.bar.Describe(name)
 	}
 }
 
-func (p *progress) finishStage() {
-	if p.name == "" {
+// stageDone is study.Options.StageDone: the "stage done" record carries
+// the run's own seconds for the stage (the summary's stage_seconds), not
+// the time since it was announced, which would include the work between
+// stages. A quiet part billed to another stage (warehouse-scale balance
+// inside publish) is logged but leaves the bar alone.
+func (p *progress) stageDone(name string, seconds float64) {
+	p.log.Info("stage done", "stage", name, "seconds", seconds)
+	if name != p.name {
 		return
 	}
-	p.log.Info("stage done", "stage", p.name, "seconds", time.Since(p.start).Seconds())
 	if p.bar != nil {
 		_ = p.bar.Add(1)
 	}
 	p.name = ""
+}
+
+// finishStage closes a stage the run did not report done.
+func (p *progress) finishStage() {
+	if p.name == "" {
+		return
+	}
+	p.stageDone(p.name, time.Since(p.start).Seconds())
 }
 
 // passLogAfter is how long a fit runs silently: past it, every IRLS pass
@@ -95,9 +120,13 @@ func (p *progress) pass(n int, deviance float64) {
 }
 
 // abort ends the display of a run that was stopped: the interrupted
-// stage is not reported done. It returns that stage's name.
+// stage is not reported done. It returns that stage's name (the last one
+// begun, when the signal came between two).
 func (p *progress) abort() string {
 	name := p.name
+	if name == "" {
+		name = p.last
+	}
 	p.name = ""
 	if p.bar != nil {
 		_ = p.bar.Exit()

@@ -34,7 +34,7 @@ func (p *page) timings() {
 	if len(t) == 0 {
 		return
 	}
-	order := []string{"read", "fit", "match", "weight", "estimate", "publish"}
+	order := []string{"read", "skip-check", "prior", "design", "fit", "support", "match", "weight", "balance", "diagnostics", "estimate", "bootstrap", "publish"}
 	var names []string
 	for _, n := range order {
 		if _, ok := t[n]; ok {
@@ -52,6 +52,16 @@ func (p *page) timings() {
 	p.f("<section aria-labelledby=\"h-time\">\n<h2 id=\"h-time\">Stage timings</h2>\n<table>\n<tr><th>stage</th><th class=\"n\">seconds</th></tr>\n")
 	for _, n := range names {
 		p.f("<tr><td>%s</td><td class=\"n\">%.2f</td></tr>\n", esc(n), t[n])
+	}
+	// Work beside the stages (the fingerprint hash during the fit) is
+	// listed apart: it is not part of the stages' sum.
+	var beside []string
+	for n := range p.s.Overlapping {
+		beside = append(beside, n)
+	}
+	slices.Sort(beside)
+	for _, n := range beside {
+		p.f("<tr><td>%s (beside the stages)</td><td class=\"n\">%.2f</td></tr>\n", esc(n), p.s.Overlapping[n])
 	}
 	p.f("</table>\n</section>\n")
 }

@@ -25,9 +25,14 @@ const Caution = "Observational estimates rest on no unmeasured confounding and a
 // aggregates only, never a unit's row.
 func Terminal(w io.Writer, s *study.Summary, o TerminalOptions) {
 	p := printer{w: w, color: o.Color}
+	// The run's wall time when it was published (the stages are disjoint
+	// and leave out the lock and the COMMIT); else the stages' sum.
 	total := 0.0
 	for _, v := range s.Timings {
 		total += v
+	}
+	if !s.StartedAt.IsZero() && s.FinishedAt.After(s.StartedAt) {
+		total = s.FinishedAt.Sub(s.StartedAt).Seconds()
 	}
 	status := s.Status
 	switch status {

@@ -27,25 +27,19 @@ import (
 // iteration hands over). Both converge to the same maximum.
 // Errors wrap warehouse.ErrBadInput where the data are at fault.
 func FitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, opt score.Options) (*score.Fit, *warehouse.DesignSQL, error) {
-	return fitInWarehouse(ctx, iw, q, opt, nil)
+	return fitInWarehouse(ctx, iw, q, opt, nil, nil)
 }
 
 // fitInWarehouse is FitInWarehouse with a guard that sees the cohort's
-// description before any design is built (the run's width check).
-func fitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, opt score.Options, guard func(*warehouse.Description) error) (*score.Fit, *warehouse.DesignSQL, error) {
-	desc, err := iw.Describe(ctx, q)
+// description before any design is built (the run's width check), timed
+// on clk (nil: untimed) as the design stage (Describe, guard, design SQL)
+// and the fit stage (the seed and the aggregate passes).
+func fitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, opt score.Options, guard func(*warehouse.Description) error, clk *clock) (*score.Fit, *warehouse.DesignSQL, error) {
+	desc, d, err := designInWarehouse(ctx, iw, q, guard, clk)
 	if err != nil {
-		return nil, nil, fmt.Errorf("describe cohort: %w", err)
+		return nil, nil, err
 	}
-	if guard != nil {
-		if err := guard(desc); err != nil {
-			return nil, nil, err
-		}
-	}
-	d, err := warehouse.NewDesignSQL(desc)
-	if err != nil {
-		return nil, nil, fmt.Errorf("design: %w", err)
-	}
+	defer clk.begin("fit")()
 	k := len(d.Columns) + 1
 	moments := func(beta []float64, info bool) (*warehouse.Moments, error) {
 		m, err := iw.Moments(ctx, q, d, beta, info)
@@ -92,6 +86,26 @@ func fitInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.C
 		return fit, d, badInput("fit score", err)
 	}
 	return fit, d, nil
+}
+
+// designInWarehouse describes the cohort, runs the guard on the
+// description and builds the design SQL: the design stage.
+func designInWarehouse(ctx context.Context, iw warehouse.InWarehouse, q warehouse.CohortQuery, guard func(*warehouse.Description) error, clk *clock) (*warehouse.Description, *warehouse.DesignSQL, error) {
+	defer clk.begin("design")()
+	desc, err := iw.Describe(ctx, q)
+	if err != nil {
+		return nil, nil, fmt.Errorf("describe cohort: %w", err)
+	}
+	if guard != nil {
+		if err := guard(desc); err != nil {
+			return nil, nil, err
+		}
+	}
+	d, err := warehouse.NewDesignSQL(desc)
+	if err != nil {
+		return nil, nil, fmt.Errorf("design: %w", err)
+	}
+	return desc, d, nil
 }
 
 // SeedSampleSize is about how many units seedInWarehouse fits in memory to

@@ -4,6 +4,7 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"sync"
 	"time"
 
 	"counterpart/match/assign"
@@ -17,33 +18,155 @@ import (
 // that a run's clock, model summary, support counts, matches rows, gate,
 // runs row and failure handling are written once.
 
-// clock times a run's stages: stage announces one (progress display),
-// timed records the seconds since the previous mark under a name.
+// clock times a run's stages, each by itself. A stage is opened with
+// begin (announced to the progress display) or part (a quiet stretch of
+// work billed to a stage while another is open, such as the balance sums
+// computed inside the warehouse-scale publish transaction); opening one
+// pauses the stage that was running, and closing it resumes that stage.
+// So at any moment at most one stage is billed, the recorded intervals
+// are disjoint, and their sum is at most the run's wall time: the gaps are
+// work no stage owns (the lock, engine tuning, the COMMIT after the end is
+// stamped). Work running beside the stages (the cohort fingerprint's hash)
+// is recorded by overlap, apart from the stage sum.
+//
+// The clock reads wall time truncated to microseconds, as both engines
+// store timestamps, so that started_at, finished_at and the stage
+// intervals in the summary agree to the microsecond.
 type clock struct {
+	mu      sync.Mutex
 	now     func() time.Time
 	onStage func(string)
-	lap     time.Time
+	onDone  func(string, float64)
+	start   time.Time
 	sum     *Summary
+	// open is the stack of open stages: the top one runs, the others
+	// are paused.
+	open []*openStage
 }
 
+// openStage is a stage begun and not yet ended; from is when its current
+// interval started.
+type openStage struct {
+	name string
+	from time.Time
+}
+
+// newClock starts the run's clock and stamps the summary's start with it.
 func newClock(opt Options, sum *Summary) *clock {
 	now := opt.Now
 	if now == nil {
 		now = time.Now
 	}
-	return &clock{now: now, onStage: opt.Stage, lap: now(), sum: sum}
+	c := &clock{now: now, onStage: opt.Stage, onDone: opt.StageDone, sum: sum}
+	c.start = c.read()
+	sum.StartedAt = c.start
+	if sum.Timings == nil {
+		sum.Timings = map[string]float64{}
+	}
+	return c
 }
 
-func (c *clock) stage(name string) {
+func (c *clock) read() time.Time { return c.now().UTC().Truncate(time.Microsecond) }
+
+// begin announces a stage and opens it; the returned function ends it
+// (once; later calls return the same end) and returns its end time. A nil
+// clock times nothing.
+func (c *clock) begin(name string) func() time.Time {
+	if c == nil {
+		return noEnd
+	}
+	// Announced before the clock starts: the display (and a test's pause
+	// at a stage's start) is not the stage's work.
 	if c.onStage != nil {
 		c.onStage(name)
 	}
+	return c.openStage(name)
 }
 
-func (c *clock) timed(name string) {
-	t := c.now()
-	c.sum.Timings[name] = t.Sub(c.lap).Seconds()
-	c.lap = t
+// part opens a quiet stretch billed to name, pausing the running stage.
+func (c *clock) part(name string) func() time.Time {
+	if c == nil {
+		return noEnd
+	}
+	return c.openStage(name)
+}
+
+func noEnd() time.Time { return time.Time{} }
+
+func (c *clock) openStage(name string) func() time.Time {
+	c.mu.Lock()
+	t := c.read()
+	if n := len(c.open); n > 0 {
+		c.record(c.open[n-1].name, c.open[n-1].from, t, false)
+	}
+	st := &openStage{name: name, from: t}
+	c.open = append(c.open, st)
+	c.mu.Unlock()
+	var once sync.Once
+	var end time.Time
+	return func() time.Time {
+		once.Do(func() { end = c.close(st) })
+		return end
+	}
+}
+
+// close ends st: the running interval (st's, or a stage opened inside st
+// and left open by an error return) is recorded, st and anything above it
+// leave the stack, and the stage below resumes.
+func (c *clock) close(st *openStage) time.Time {
+	c.mu.Lock()
+	t := c.read()
+	i := len(c.open) - 1
+	for i >= 0 && c.open[i] != st {
+		i--
+	}
+	if i < 0 {
+		c.mu.Unlock()
+		return t
+	}
+	top := c.open[len(c.open)-1]
+	c.record(top.name, top.from, t, top == st)
+	c.open = c.open[:i]
+	if n := len(c.open); n > 0 {
+		c.open[n-1].from = t
+	}
+	total := c.sum.Timings[st.name]
+	c.mu.Unlock()
+	if c.onDone != nil {
+		c.onDone(st.name, total)
+	}
+	return t
+}
+
+// record bills [from, to) to name. A paused stage's empty interval (a
+// part opened right after it resumed) is not listed.
+func (c *clock) record(name string, from, to time.Time, closing bool) {
+	d := max(to.Sub(from), 0).Seconds()
+	c.sum.Timings[name] += d
+	if d > 0 || closing {
+		c.sum.Stages = append(c.sum.Stages, StageTime{Name: name, Start: from.Sub(c.start).Seconds(), Seconds: d})
+	}
+}
+
+// overlap times work running beside the stages (safe from any
+// goroutine): it goes to the summary's overlapping seconds and its stage
+// list, marked, never into the stage sum.
+func (c *clock) overlap(name string) func() {
+	if c == nil {
+		return func() {}
+	}
+	from := c.read()
+	return func() {
+		c.mu.Lock()
+		defer c.mu.Unlock()
+		to := c.read()
+		d := max(to.Sub(from), 0).Seconds()
+		if c.sum.Overlapping == nil {
+			c.sum.Overlapping = map[string]float64{}
+		}
+		c.sum.Overlapping[name] += d
+		c.sum.Stages = append(c.sum.Stages, StageTime{Name: name, Start: from.Sub(c.start).Seconds(), Seconds: d, Overlaps: true})
+	}
 }
 
 // modelSummary is the summary's record of a fitted score model; the
@@ -197,9 +320,26 @@ func settleRecord(r *warehouse.RunRecord, s *Spec, sum *Summary, now time.Time) 
 		Adjustments []AdjustmentBalance `json:"adjustments"`
 	}{sum.Gate, sum.Balance})
 	r.EffectsJSON = mustJSON(sum.Effects)
+	// Provisional: the publish transaction's last statement replaces the
+	// finish time and the summary with those of sealRun.
 	r.FinishedAt = now.UTC()
 	sum.FinishedAt = r.FinishedAt
 	r.SummaryJSON = mustJSON(sum)
+}
+
+// sealRun is the publication's Seal, called by the publish transaction's
+// last statement before COMMIT: it ends the publish stage on the run's
+// clock and returns that instant as the run's finished_at with the
+// summary to store beside it. So the stored summary's finished_at equals
+// the runs row's, its publish seconds run up to that statement, and the
+// row's duration includes publishing; only the COMMIT comes after (a
+// summary cannot record the commit of the transaction that stores it).
+func sealRun(sum *Summary, endPublish func() time.Time) func() (time.Time, string) {
+	return func() (time.Time, string) {
+		end := endPublish()
+		sum.FinishedAt = end
+		return end, mustJSON(sum)
+	}
 }
 
 // failPublish marks the run failed after a publish error — or cancelled,

@@ -35,6 +35,12 @@ type Options struct {
 	Now func() time.Time
 	// Stage, when set, is told as each stage starts (progress display).
 	Stage func(name string)
+	// StageDone, when set, is told as a stage (or a quiet part billed to
+	// one) ends, with the stage's own seconds so far: what the summary's
+	// stage_seconds holds, not the time since the previous stage began.
+	// A stage with parts elsewhere (warehouse-scale fit and support) is
+	// reported again after each; the last report holds its total.
+	StageDone func(name string, seconds float64)
 	// SkipUnchanged ends the run without writing anything when the cohort
 	// fingerprint and the study file's hash both equal those of the last
 	// succeeded run.
@@ -56,18 +62,15 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	if err != nil {
 		return nil, fmt.Errorf("run id: %w", err)
 	}
-	now := opt.Now
-	if now == nil {
-		now = time.Now
-	}
-	started := now()
 	sum := &Summary{
 		Study: s.Study, RunID: id.String(), Engine: wh.Engine(), DryRun: opt.DryRun,
 		Primary: s.Primary(), Estimand: s.Estimate.Estimand, Timings: map[string]float64{},
 		ToolVersion: opt.ToolVersion, SpecSHA256: s.SHA256,
-		StartedAt: started.UTC(),
 	}
-	r := &run{s: s, wh: wh, opt: opt, sum: sum, clock: &clock{now: now, onStage: opt.Stage, lap: started, sum: sum}}
+	// The clock stamps StartedAt: the run's start is the origin of every
+	// stage interval.
+	clk := newClock(opt, sum)
+	r := &run{s: s, wh: wh, opt: opt, sum: sum, clock: clk}
 	r.out = warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays}
 	if !opt.DryRun {
 		unlock, err := wh.Lock(ctx, r.out)
@@ -78,7 +81,7 @@ func Run(ctx context.Context, s *Spec, wh warehouse.Warehouse, opt Options) (*Su
 	}
 	if s.Score.FitIn == "warehouse" {
 		iw, _ := wh.(warehouse.InWarehouse)
-		return runInWarehouse(ctx, s, wh, iw, opt, sum)
+		return runInWarehouse(ctx, s, wh, iw, opt, sum, clk)
 	}
 	for _, step := range []func(context.Context) error{r.read, r.skipUnchanged, r.readPrior} {
 		if err := step(ctx); err != nil {
@@ -111,7 +114,7 @@ type run struct {
 // read reads the cohort and completes the output contract from it.
 func (r *run) read(ctx context.Context) error {
 	s := r.s
-	r.stage("read")
+	defer r.begin("read")()
 	c, err := r.wh.ReadCohort(ctx, warehouse.CohortQuery{
 		SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
 		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
@@ -119,7 +122,6 @@ func (r *run) read(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("read cohort: %w", err)
 	}
-	r.timed("read")
 	r.sum.Pooled = poolRare(c, s.Cohort.RareLevels)
 	r.cohort = c
 	r.out.Unit, r.out.IDKind, r.out.Treatment = c.Unit, c.IDKind, c.Treatment
@@ -140,6 +142,7 @@ func (r *run) skipUnchanged(ctx context.Context) error {
 	if !r.opt.SkipUnchanged {
 		return nil
 	}
+	defer r.begin("skip-check")()
 	last, ok, err := r.wh.LatestSucceeded(ctx, r.out)
 	if err != nil {
 		return fmt.Errorf("skip unchanged: %w", err)
@@ -148,7 +151,9 @@ func (r *run) skipUnchanged(ctx context.Context) error {
 		return nil
 	}
 	// Kept in the summary, so the analysis does not hash again.
+	endHash := r.part("fingerprint")
 	r.sum.Fingerprint = fingerprint(r.cohort)
+	endHash()
 	if r.sum.Fingerprint != last.CohortFingerprint {
 		return nil
 	}
@@ -164,6 +169,7 @@ func (r *run) readPrior(ctx context.Context) error {
 	if !s.Matching.KeepPrior || s.Matching.Algorithm == "off" || r.opt.DryRun {
 		return nil
 	}
+	defer r.begin("prior")()
 	last, ok, err := r.wh.LatestSucceeded(ctx, r.out)
 	if err != nil || !ok {
 		return wrapStep("keep prior", err)
@@ -180,7 +186,9 @@ func (r *run) readPrior(ctx context.Context) error {
 // table in one transaction that settles the status.
 func (r *run) publish(ctx context.Context, res *results) error {
 	s, sum := r.s, r.sum
-	r.stage("publish")
+	endPublish := r.begin("publish")
+	// Ended by Publish's last statement (Seal); on an error, here.
+	defer endPublish()
 	rec := newRunRecord(ctx, s, r.wh, r.opt, sum)
 	if err := r.wh.StartRun(ctx, r.out, rec); err != nil {
 		return startFailed(ctx, r.wh, r.out, sum, err)
@@ -189,13 +197,13 @@ func (r *run) publish(ctx context.Context, res *results) error {
 	pub := &warehouse.Publication{
 		Run: rec, Cohort: r.cohort, PS: res.ps, LogitPS: res.logit, InSupport: res.inSupport,
 		Matches: res.matches, Weights: res.weights, Effects: effectRecords(sum.Effects), Survival: res.survival,
+		Seal: sealRun(sum, endPublish),
 	}
 	if err := r.wh.Publish(ctx, r.out, pub); err != nil {
 		return failPublish(ctx, r.wh, r.out, sum, err)
 	}
 	// The runs row's finish time is the end of the publish transaction.
 	sum.FinishedAt = pub.Run.FinishedAt
-	r.timed("publish")
 	return finishRun(sum)
 }
 
@@ -255,8 +263,13 @@ type analysis struct {
 	prep   *balance.Prepared
 	scoreP *balance.Prepared
 	diag   []NamedWeights
-	adjs   []adjustment
-	mr     *matchedRows
+	// pending are the adjustments whose balance the balance stage
+	// records, in order.
+	pending []NamedWeights
+	// plain is the cohort with its plain outcomes only (estimate's).
+	plain *warehouse.Cohort
+	adjs  []adjustment
+	mr    *matchedRows
 }
 
 // analyse runs every statistical stage on the cohort and fills the
@@ -264,24 +277,31 @@ type analysis struct {
 // fit's passes, matching, the bootstrap) through their check functions.
 func analyse(ctx context.Context, s *Spec, c *warehouse.Cohort, sum *Summary, clk *clock, opt Options, prior *priorRun) (*results, error) {
 	a := &analysis{ctx: ctx, opt: opt, s: s, c: c, sum: sum, clk: clk, prior: prior}
-	if err := a.checkArms(); err != nil {
-		return nil, err
-	}
-	if err := checkWidth(s, cohortLevels(c), c.N()); err != nil {
+	if err := a.design(); err != nil {
 		return nil, err
 	}
 	// The fingerprint only needs the cohort: hash it while the model fits
-	// (unless the skip-unchanged check already did).
+	// (unless the skip-unchanged check already did). It runs beside the
+	// stages, so it is timed apart from them (clock.overlap), never as
+	// part of the fit.
 	if sum.Fingerprint == "" {
 		fp := make(chan string, 1)
-		go func() { fp <- fingerprint(c) }()
+		go func() {
+			end := clk.overlap("fingerprint")
+			f := fingerprint(c)
+			end()
+			fp <- f
+		}()
 		defer func() { sum.Fingerprint = <-fp }()
 	}
-	steps := []func() error{a.fitScore, a.support, a.match, a.weight}
+	steps := []func() error{a.fitScore, a.support, a.match, a.weight, a.balance}
 	if opt.Diagnostics {
 		steps = append(steps, a.diagnose)
 	}
 	steps = append(steps, a.estimate)
+	if s.Estimate.Bootstrap > 0 {
+		steps = append(steps, a.bootstrap)
+	}
 	for _, step := range steps {
 		if err := ctx.Err(); err != nil {
 			return nil, fmt.Errorf("analyse: %w", err)
@@ -291,6 +311,24 @@ func analyse(ctx context.Context, s *Spec, c *warehouse.Cohort, sum *Summary, cl
 		}
 	}
 	return a.res, nil
+}
+
+// design checks the cohort (both arms, text numbers, the design's width)
+// and builds the design matrix.
+func (a *analysis) design() error {
+	defer a.clk.begin("design")()
+	if err := a.checkArms(); err != nil {
+		return err
+	}
+	if err := checkWidth(a.s, cohortLevels(a.c), a.c.N()); err != nil {
+		return err
+	}
+	d, err := buildDesign(a.c)
+	if err != nil {
+		return fmt.Errorf("design: %w", err)
+	}
+	a.d = d
+	return nil
 }
 
 // checkArms counts the arms and refuses a cohort without both.
@@ -312,15 +350,10 @@ func (a *analysis) checkArms() error {
 	return checkTextNumbers(a.s, a.c, a.sum)
 }
 
-// fitScore builds the design and fits the propensity score.
+// fitScore fits the propensity score on the design.
 func (a *analysis) fitScore() error {
-	s, z := a.s, a.c.Treated
-	d, err := buildDesign(a.c)
-	if err != nil {
-		return fmt.Errorf("design: %w", err)
-	}
-	a.d = d
-	a.clk.stage("fit")
+	s, z, d := a.s, a.c.Treated, a.d
+	defer a.clk.begin("fit")()
 	model, err := score.ParseModel(s.Score.Model)
 	if err != nil {
 		return badInput("fit score", err)
@@ -333,14 +366,13 @@ func (a *analysis) fitScore() error {
 	a.fit = fit
 	a.sum.Model = modelSummary(s.Score.Model, fit)
 	a.sum.Model.CStatistic = Num(score.CStatistic(fit.PS, z))
-	a.clk.timed("fit")
 	return nil
 }
 
-// support applies the common-support rule and records the unadjusted
-// balance.
+// support applies the common-support rule.
 func (a *analysis) support() error {
 	s, z, fit := a.s, a.c.Treated, a.fit
+	defer a.clk.begin("support")()
 	a.res = &results{ps: fit.PS, logit: fit.Logit}
 	low, high := score.SupportBounds(s.Support, fit.PS, z)
 	a.res.inSupport = score.SupportMask(s.Support, fit.PS, z)
@@ -349,15 +381,27 @@ func (a *analysis) support() error {
 		return err
 	}
 	a.keptT = keptT
+	a.pending = append(a.pending, NamedWeights{Name: "unadjusted"})
+	a.adjs = []adjustment{{name: "unadjusted", estimand: "none"}}
+	return nil
+}
+
+// balance records every adjustment's balance, in the order the stages
+// before it queued them (unadjusted, matched, the schemes): kept out of
+// support, match and weight so that their times are their own.
+func (a *analysis) balance() error {
+	z := a.c.Treated
+	defer a.clk.begin("balance")()
 	// Balance denominators are fixed from the unadjusted cohort so that
 	// before/after SMDs are comparable (Austin & Stuart 2015).
 	a.prep = balance.Prepare(a.d.vars, z, false)
 	// The score itself is reported beside the covariates (its SMD and
 	// variance ratio show residual imbalance along the propensity) but
 	// not gated: the gate judges the covariates the analyst chose.
-	a.scoreP = balance.Prepare([]balance.Variable{{Name: "logit_ps", Values: fit.Logit}}, z, false)
-	a.adjust("unadjusted", nil)
-	a.adjs = []adjustment{{name: "unadjusted", estimand: "none"}}
+	a.scoreP = balance.Prepare([]balance.Variable{{Name: "logit_ps", Values: a.fit.Logit}}, z, false)
+	for _, p := range a.pending {
+		a.adjust(p.Name, p.W)
+	}
 	return nil
 }
 
@@ -384,7 +428,7 @@ func (a *analysis) match() error {
 	if s.Matching.Algorithm == "off" {
 		return nil
 	}
-	a.clk.stage("match")
+	defer a.clk.begin("match")()
 	sd := pooledSD(fit.Logit, z)
 	width := s.Matching.Caliper * sd
 	st, nstrata := strata(c, s.Matching.ExactOn)
@@ -437,9 +481,7 @@ func (a *analysis) match() error {
 		return badInput("match", err)
 	}
 	a.res.matches = f.rows
-	err = recordMatching(a.sum, &ms, f, len(groups), a.keptT)
-	a.clk.timed("match")
-	if err != nil {
+	if err := recordMatching(a.sum, &ms, f, len(groups), a.keptT); err != nil {
 		return err
 	}
 	mw := f.unitWeight
@@ -447,7 +489,7 @@ func (a *analysis) match() error {
 		// One treated unit per set: the set weights are weights.FromSets.
 		mw = weights.FromSets(c.N(), setTreated, setControls)
 	}
-	a.adjust("matched", mw)
+	a.pending = append(a.pending, NamedWeights{Name: "matched", W: mw})
 	mr := &matchedRows{unit: f.rows.Unit, z: f.rows.Treated, w: f.rows.SetWeight,
 		reuse: s.Matching.Reuse && s.Matching.Algorithm == "greedy", setTreated: setTreated, setControls: setControls}
 	mr.cluster = make([]int, len(f.rows.SetID))
@@ -469,7 +511,7 @@ func (a *analysis) match() error {
 // weight computes every weighting scheme's weights and their balance.
 func (a *analysis) weight() error {
 	s, z := a.s, a.c.Treated
-	a.clk.stage("weight")
+	defer a.clk.begin("weight")()
 	for _, scheme := range s.Schemes() {
 		fn, err := weights.ByName(scheme)
 		if err != nil {
@@ -480,18 +522,17 @@ func (a *analysis) weight() error {
 			return badInput("weights "+scheme, err)
 		}
 		a.res.weights = append(a.res.weights, w)
-		a.adjust(scheme, w)
+		a.pending = append(a.pending, NamedWeights{Name: scheme, W: w})
 		a.adjs = append(a.adjs, adjustment{name: scheme, estimand: weights.Estimand(scheme), w: w})
 	}
-	a.clk.timed("weight")
 	return nil
 }
 
 // diagnose computes the report's distribution pictures.
 func (a *analysis) diagnose() error {
+	defer a.clk.begin("diagnostics")()
 	dg := balance.Diagnose(a.fit.PS, a.c.Treated, a.res.inSupport, a.d.vars, a.diag, balance.DefaultWorst)
 	a.sum.Diagnostics = &dg
-	a.clk.timed("diagnostics")
 	return nil
 }
 
@@ -500,8 +541,8 @@ func (a *analysis) diagnose() error {
 // outcomes.
 func (a *analysis) estimate() error {
 	s, sum := a.s, a.sum
+	defer a.clk.begin("estimate")()
 	judgeGate(s, sum)
-	a.clk.stage("estimate")
 	// The reader also fetched the time-to-event and rate columns; the
 	// plain estimators see only the plain outcomes.
 	plain := *a.c
@@ -539,15 +580,15 @@ func (a *analysis) estimate() error {
 			return err
 		}
 	}
-	if s.Estimate.Bootstrap > 0 {
-		a.clk.stage("bootstrap")
-		if err := bootstrapAll(a.ctx, s, &plain, a.d, sum); err != nil {
-			return err
-		}
-		a.clk.timed("bootstrap")
-	}
-	a.clk.timed("estimate")
+	a.plain = &plain
 	return nil
+}
+
+// bootstrap runs the bootstrap replicates: a stage of its own, after
+// estimate, since it refits the whole pipeline per replicate.
+func (a *analysis) bootstrap() error {
+	defer a.clk.begin("bootstrap")()
+	return bootstrapAll(a.ctx, a.s, a.plain, a.d, a.sum)
 }
 
 func joinFirst(xs []string, k int) string {

@@ -24,21 +24,40 @@ type Summary struct {
 	Fingerprint string    `json:"cohort_fingerprint,omitempty"`
 	// Pooled lists the categorical covariates whose rare levels
 	// cohort.rare_levels pooled.
-	Pooled      []PooledLevels      `json:"pooled_levels,omitempty"`
-	Counts      Counts              `json:"counts"`
-	Model       ModelSummary        `json:"model"`
-	Support     Support             `json:"support"`
-	Matching    *MatchingSummary    `json:"matching,omitempty"`
-	Balance     []AdjustmentBalance `json:"balance"`
-	Gate        Gate                `json:"gate"`
-	Primary     string              `json:"headline_adjustment"`
-	Estimand    string              `json:"estimand"`
-	Effects     []EffectRow         `json:"effects"`
-	Timings     map[string]float64  `json:"stage_seconds"`
-	Diagnostics *Diagnostics        `json:"diagnostics,omitempty"`
+	Pooled   []PooledLevels      `json:"pooled_levels,omitempty"`
+	Counts   Counts              `json:"counts"`
+	Model    ModelSummary        `json:"model"`
+	Support  Support             `json:"support"`
+	Matching *MatchingSummary    `json:"matching,omitempty"`
+	Balance  []AdjustmentBalance `json:"balance"`
+	Gate     Gate                `json:"gate"`
+	Primary  string              `json:"headline_adjustment"`
+	Estimand string              `json:"estimand"`
+	Effects  []EffectRow         `json:"effects"`
+	// Timings are each stage's own seconds: disjoint, so they sum to at
+	// most the wall time (FinishedAt − StartedAt).
+	Timings map[string]float64 `json:"stage_seconds"`
+	// Overlapping are the seconds of work done beside the stages (the
+	// cohort fingerprint's hash during the fit), apart from Timings.
+	Overlapping map[string]float64 `json:"overlapping_seconds,omitempty"`
+	// Stages lists every timed interval in the order it ended, with its
+	// start from StartedAt: a stage paused by another (the warehouse-scale
+	// balance sums inside publish) has several.
+	Stages      []StageTime  `json:"stages,omitempty"`
+	Diagnostics *Diagnostics `json:"diagnostics,omitempty"`
 	// Survival holds the Kaplan–Meier curves of every time-to-event
 	// outcome, arm and adjustment, on a grid.
 	Survival []SurvivalCurve `json:"survival,omitempty"`
+}
+
+// StageTime is one interval of a stage on the run's clock.
+type StageTime struct {
+	Name string `json:"name"`
+	// Start is the interval's start, in seconds after StartedAt.
+	Start   float64 `json:"start"`
+	Seconds float64 `json:"seconds"`
+	// Overlaps marks work that ran beside the stages, not in their sum.
+	Overlaps bool `json:"overlaps,omitempty"`
 }
 
 // Counts is the attrition of the run.

@@ -6,7 +6,6 @@ import (
 	"math"
 	"runtime/debug"
 	"sort"
-	"time"
 
 	"counterpart/match/assign"
 	"counterpart/match/balance"
@@ -48,7 +47,15 @@ const ScaleGoMemoryLimit = 160 << 20
 //
 // The summary carries no cohort fingerprint (it would need every row);
 // options needing per-unit data in the process are refused by the spec.
-func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw warehouse.InWarehouse, opt Options, sum *Summary) (*Summary, error) {
+//
+// Stages: design (Describe, the width check, the design SQL), fit (the
+// seed and the aggregate passes), support (LogitRange), match (MatchInput
+// and matching), estimate (the time-to-event and rate outcomes read per
+// unit) and publish (the transaction's writes). Inside publish, the one
+// aggregate pass over the rows just written is billed to balance — it
+// gives the balance and the effects' sums together — and turning those
+// sums into effects to estimate, each pausing publish (clock.part).
+func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw warehouse.InWarehouse, opt Options, sum *Summary, clk *clock) (*Summary, error) {
 	if iw == nil {
 		return sum, fmt.Errorf("score.fit_in: %w: engine %s does not run warehouse-scale mode; use fit_in: memory", warehouse.ErrBadInput, wh.Engine())
 	}
@@ -72,20 +79,18 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		debug.SetMemoryLimit(ScaleGoMemoryLimit)
 		defer debug.SetMemoryLimit(prev)
 	}
-	clk := newClock(opt, sum)
 	// The snapshot holds every outcome-like column (the time-to-event and
 	// rate columns too); the sums cover the plain outcomes.
 	q := warehouse.CohortQuery{SQL: s.Cohort.SQL, Unit: s.Cohort.Unit, Treatment: s.Cohort.Treatment,
 		Outcomes: s.Cohort.ReadColumns(), Covariates: s.Cohort.Covariates, Categorical: s.Cohort.Categorical,
 		Partition: s.Cohort.PartitionColumn}
 
-	clk.stage("fit")
 	model, err := score.ParseModel(s.Score.Model)
 	if err != nil {
 		return sum, badInput("fit score", err)
 	}
 	guard := func(desc *warehouse.Description) error { return checkWidth(s, describedLevels(desc), desc.N) }
-	fit, d, err := fitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter, OnPass: opt.Pass}, guard)
+	fit, d, err := fitInWarehouse(ctx, iw, q, score.Options{Model: model, Lambda: s.Score.Lambda, MaxIter: s.Score.MaxIter, OnPass: opt.Pass}, guard, clk)
 	if err != nil {
 		return sum, err
 	}
@@ -99,39 +104,23 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		}
 	}
 	sum.Model = modelSummary(s.Score.Model, fit)
+	endSupport := clk.begin("support")
 	sup, err := SupportInWarehouse(ctx, iw, q, d, fit.Coef, s.Support)
+	endSupport()
 	if err != nil {
 		return sum, err
 	}
-	clk.timed("fit")
 
-	clk.stage("match")
-	mi, err := iw.MatchInput(ctx, q, d, fit.Coef, sup, s.Matching.ExactOn)
-	if err != nil {
-		return sum, fmt.Errorf("match input: %w", err)
-	}
-	if len(mi.Treated) != n {
-		return sum, fmt.Errorf("match input: %d rows, the fit saw %d: the data changed during the run", len(mi.Treated), n)
-	}
-	sum.Model.CStatistic = Num(score.CStatistic(mi.Logit, mi.Treated))
-	keptT, err := recordSupport(sum, s.Support, logistic(sup.Low), logistic(sup.High), mi.Treated, mi.InSupport)
+	mi, thin, rows, err := matchStage(ctx, s, iw, q, d, fit.Coef, sup, n, sum, clk)
 	if err != nil {
 		return sum, err
-	}
-	// thin is the cohort as matching and the matches rows need it: ids
-	// and treatment only.
-	thin := &warehouse.Cohort{Unit: q.Unit, IDKind: mi.IDKind, IntIDs: mi.IntIDs, TextIDs: mi.TextIDs, Treatment: q.Treatment, Treated: mi.Treated}
-	var rows warehouse.MatchRows
-	if s.Matching.Algorithm != "off" {
-		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum, checker(ctx)); err != nil {
-			return sum, err
-		}
-		clk.timed("match")
 	}
 	// Time-to-event and rate outcomes read their few columns per unit and
 	// are estimated exactly as in memory; bad values stop the run here,
 	// before anything is written.
+	endEstimate := clk.begin("estimate")
 	ev, err := eventsInWarehouse(ctx, s, iw, q, mi, rows)
+	endEstimate()
 	if err != nil {
 		return sum, err
 	}
@@ -140,7 +129,9 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 		return sum, nil
 	}
 
-	clk.stage("publish")
+	endPublish := clk.begin("publish")
+	// Ended by the transaction's last statement (Seal); on an error, here.
+	defer endPublish()
 	out := warehouse.Output{Schema: s.Output.Schema, Prefix: s.Output.Prefix, Study: s.Study, KeepRuns: s.Output.KeepRuns, KeepFailedDays: s.Output.KeepFailedDays,
 		Unit: q.Unit, IDKind: d.IDKind, Treatment: q.Treatment, Outcomes: q.Outcomes, Schemes: s.Schemes(),
 		TimeToEvent: len(s.Cohort.TimeToEvent) > 0}
@@ -154,12 +145,45 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 	if err := wh.StartRun(ctx, out, rec); err != nil {
 		return sum, startFailed(ctx, wh, out, sum, err)
 	}
-	pub := &warehouse.Publication{Run: rec, Survival: ev.steps}
-	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, ev, clk.now); err != nil {
+	pub := &warehouse.Publication{Run: rec, Survival: ev.steps, Seal: sealRun(sum, endPublish)}
+	if err := publishInWarehouse(ctx, sp, out, s, q, d, fit.Coef, sup, thin, rows, sum, pub, ev, clk); err != nil {
 		return sum, failPublish(ctx, wh, out, sum, err)
 	}
-	clk.timed("publish")
 	return sum, finishRun(sum)
+}
+
+// matchStage reads the scores matching needs (MatchInput) and matches on
+// them. The c-statistic and the support counts, computed from the same
+// slices, are billed to fit and support.
+func matchStage(ctx context.Context, s *Spec, iw warehouse.InWarehouse, q warehouse.CohortQuery, d *warehouse.DesignSQL, coef []float64,
+	sup warehouse.Support, n int, sum *Summary, clk *clock) (*warehouse.MatchInput, *warehouse.Cohort, warehouse.MatchRows, error) {
+	defer clk.begin("match")()
+	var rows warehouse.MatchRows
+	mi, err := iw.MatchInput(ctx, q, d, coef, sup, s.Matching.ExactOn)
+	if err != nil {
+		return nil, nil, rows, fmt.Errorf("match input: %w", err)
+	}
+	if len(mi.Treated) != n {
+		return nil, nil, rows, fmt.Errorf("match input: %d rows, the fit saw %d: the data changed during the run", len(mi.Treated), n)
+	}
+	endFit := clk.part("fit")
+	sum.Model.CStatistic = Num(score.CStatistic(mi.Logit, mi.Treated))
+	endFit()
+	endSupport := clk.part("support")
+	keptT, err := recordSupport(sum, s.Support, logistic(sup.Low), logistic(sup.High), mi.Treated, mi.InSupport)
+	endSupport()
+	if err != nil {
+		return nil, nil, rows, err
+	}
+	// thin is the cohort as matching and the matches rows need it: ids
+	// and treatment only.
+	thin := &warehouse.Cohort{Unit: q.Unit, IDKind: mi.IDKind, IntIDs: mi.IntIDs, TextIDs: mi.TextIDs, Treatment: q.Treatment, Treated: mi.Treated}
+	if s.Matching.Algorithm != "off" {
+		if rows, err = matchInWarehouse(s, thin, mi, keptT, sum, checker(ctx)); err != nil {
+			return nil, nil, rows, err
+		}
+	}
+	return mi, thin, rows, nil
 }
 
 // publishInWarehouse drives the publish transaction in order: matches,
@@ -167,7 +191,7 @@ func runInWarehouse(ctx context.Context, s *Spec, wh warehouse.Warehouse, iw war
 // settle the balance, the effects and the run's status), the final runs
 // row, commit. Any error rolls all of it back.
 func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out warehouse.Output, s *Spec, q warehouse.CohortQuery, d *warehouse.DesignSQL,
-	coef []float64, sup warehouse.Support, thin *warehouse.Cohort, rows warehouse.MatchRows, sum *Summary, pub *warehouse.Publication, ev eventResults, now func() time.Time) error {
+	coef []float64, sup warehouse.Support, thin *warehouse.Cohort, rows warehouse.MatchRows, sum *Summary, pub *warehouse.Publication, ev eventResults, clk *clock) error {
 	tx, err := sp.BeginScale(ctx, out, sum.RunID)
 	if err != nil {
 		return err
@@ -182,6 +206,7 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 	if err := tx.WriteScores(ctx, q, d, coef, sup, s.Schemes()); err != nil {
 		return err
 	}
+	endBalance := clk.part("balance")
 	rs, err := tx.RunSums(ctx, warehouse.RunSums{
 		Covariates: out.Covariates, Shifts: balanceShifts(d, out.Covariates), Matched: s.Matching.Algorithm != "off",
 		Schemes: s.Schemes(), Design: d, Coef: coef, Support: sup, Outcomes: s.Cohort.Outcomes, Cohort: &q})
@@ -189,12 +214,16 @@ func publishInWarehouse(ctx context.Context, sp warehouse.ScalePublisher, out wa
 		return fmt.Errorf("balance: %w", err)
 	}
 	balanceInWarehouse(rs, s, sum)
-	if err := effectsInWarehouse(s, sum, rs); err != nil {
-		return err
+	endBalance()
+	endEstimate := clk.part("estimate")
+	err = effectsInWarehouse(s, sum, rs)
+	endEstimate()
+	if err != nil {
+		return fmt.Errorf("estimate: %w", err)
 	}
 	sum.Effects = append(sum.Effects, ev.effects...)
 	sum.Survival = ev.curves
-	settleRecord(&pub.Run, s, sum, now())
+	settleRecord(&pub.Run, s, sum, clk.read())
 	pub.Effects = effectRecords(sum.Effects)
 	if err := tx.Finish(ctx, pub); err != nil {
 		return fmt.Errorf("run %s: %w", sum.RunID, err)

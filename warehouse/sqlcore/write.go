@@ -462,13 +462,25 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 // stampFinished sets the run's finished_at as the last statement before
 // COMMIT, so that it is the end of the run and its duration in the runs
 // table includes writing the tables; p.Run.FinishedAt gets the same
-// time, for the run's summary.
+// time, for the run's summary. With p.Seal the time comes from the run's
+// own clock and the same statement stores the final summary, whose
+// publish stage ends at this statement: the row's finished_at, its
+// duration and its summary's times then agree.
 func (c *Core) stampFinished(ctx context.Context, o *warehouse.Objects, p *warehouse.Publication) error {
 	// Both engines keep microseconds: the summary then shows the stored
 	// value exactly.
 	end := time.Now().UTC().Truncate(time.Microsecond)
 	q := "UPDATE " + o.Runs + " SET finished_at = $2 WHERE run_id = $1"
-	if _, err := c.Exec(ctx, "stamp the end of run "+p.Run.RunID, q, p.Run.RunID, end); err != nil {
+	args := []any{p.Run.RunID, end}
+	if p.Seal != nil {
+		var summary string
+		end, summary = p.Seal()
+		end = end.UTC().Truncate(time.Microsecond)
+		q = "UPDATE " + o.Runs + " SET finished_at = $2, summary = $3 WHERE run_id = $1"
+		args = []any{p.Run.RunID, end, nullText(summary)}
+		p.Run.SummaryJSON = summary
+	}
+	if _, err := c.Exec(ctx, "stamp the end of run "+p.Run.RunID, q, args...); err != nil {
 		return err
 	}
 	p.Run.FinishedAt = end

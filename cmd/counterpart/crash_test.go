@@ -54,7 +54,10 @@ func crashEngines() []crashEngine {
 				return path
 			},
 			query: func(t *testing.T, dsn, q string) [][]any {
-				db, err := sql.Open("duckdb", dsn+"?access_mode=READ_ONLY")
+				// Read-write, as the next run opens the file: that open
+				// replays the write-ahead log of the killed process (its
+				// committed runs row), which a read-only open does not.
+				db, err := sql.Open("duckdb", dsn)
 				if err != nil {
 					t.Fatal(err)
 				}
@@ -112,13 +115,15 @@ func TestCrashSafety(t *testing.T) {
 			// A complete first run gives the previous run and the timing
 			// of the publish window.
 			wall, publish := runToEnd(t, bin, spec)
-			before := wall - publish
 			t.Logf("%s: run %.2fs, publish %.2fs", e.name, wall.Seconds(), publish.Seconds())
 
-			// The kill moment is drawn uniformly over the publish stage's
-			// length after an offset that adapts: a kill that came before
-			// StartRun moves it later, one after the commit earlier.
-			offset := before
+			// The kill moment is drawn uniformly between the latest delay
+			// that came too early (before StartRun) and the earliest that
+			// came too late (after the commit): a bracket that closes in on
+			// the running window from both sides, however narrow it is
+			// next to the process's start-up jitter. A contradiction
+			// (jitter put an early kill after a late one) reopens it.
+			lo, hi := time.Duration(0), wall+publish
 			landed, early, late := 0, 0, 0
 			prev, _, _ := currentRun(t, e, dsn)
 			for attempt := 0; landed < crashKills; attempt++ {
@@ -128,7 +133,10 @@ func TestCrashSafety(t *testing.T) {
 				if attempt == 6*crashKills {
 					t.Fatalf("only %d of %d attempts killed a run inside publish (%d early, %d late)", landed, attempt, early, late)
 				}
-				delay := offset + time.Duration(r.Float64()*float64(publish))
+				if lo >= hi {
+					lo, hi = max(0, hi-publish), lo+publish
+				}
+				delay := lo + time.Duration(r.Float64()*float64(hi-lo))
 				cmd := exec.Command(bin, "run", spec)
 				if err := cmd.Start(); err != nil {
 					t.Fatal(err)
@@ -146,13 +154,13 @@ func TestCrashSafety(t *testing.T) {
 					}
 				case status == "succeeded" && latest != prev: // the kill came after the commit: the run is whole
 					late++
-					offset -= publish / 4
+					hi = delay
 					if now != latest {
 						t.Fatalf("a committed run %s is not current (%s)", latest, now)
 					}
 				case latest == prev: // killed before StartRun
 					early++
-					offset += publish / 4
+					lo = delay
 				default:
 					t.Fatalf("latest run %s has status %s", latest, status)
 				}

@@ -72,7 +72,10 @@ func (w *Warehouse) dialect() *sqlcore.Dialect {
 		RunIndex: func(schema, table string) string {
 			return "CREATE INDEX IF NOT EXISTS " + warehouse.Quote(table+"_run_id") + " ON " + warehouse.QuoteQualified(schema, table) + " (run_id)"
 		},
-		Privileges: privileges,
+		// Retention drops a run's partitions instead of deleting its
+		// rows (sqlcore/partition.go).
+		RunPartitions: true,
+		Privileges:    privileges,
 	}
 }
 

@@ -129,7 +129,8 @@ func (c *Core) createPartitions(ctx context.Context, o *warehouse.Objects, runID
 		}
 		part := warehouse.QuoteQualified(o.C.Schema, name)
 		for _, stmt := range []string{
-			"CREATE TABLE " + part + " (LIKE " + t.quoted + " INCLUDING DEFAULTS)",
+			"CREATE TABLE " + part + " (LIKE " + t.quoted + " INCLUDING DEFAULTS INCLUDING COMMENTS)",
+			"COMMENT ON TABLE " + part + " IS " + sqltext.Literal("The rows of run "+runID+" in "+t.name+"; dropped with the run by retention."),
 			"ALTER TABLE " + t.quoted + " ATTACH PARTITION " + part + " FOR VALUES IN (" + sqltext.Literal(runID) + ")",
 		} {
 			if _, err := c.Exec(ctx, "create partition "+name+" of "+t.name+" for run "+runID, stmt); err != nil {

@@ -40,6 +40,14 @@ import (
 // instead, as before; the emptied partitions, whose runs are gone from
 // the runs table, are dropped by a later publish that gets the lock.
 // Readers thus never wait longer than partitionLockWait for a publish.
+//
+// One reader-visible difference from the plain layout: a read-committed
+// transaction that read a run table before a publish committed, and so
+// already holds its lock, may plan its next statement with the partition
+// list it had, and see the new current run without its rows for that
+// statement (Postgres's rule for partitions attached concurrently). A
+// dashboard that needs one consistent picture across statements uses
+// REPEATABLE READ, which sees the previous run throughout.
 
 // partitionLockWait bounds how long retention waits for the run tables'
 // ACCESS EXCLUSIVE lock before falling back to DELETE. Longer than

@@ -3,13 +3,10 @@ package postgres
 import (
 	"context"
 	"fmt"
-	"os"
-	"strconv"
 	"testing"
 
 	"github.com/jackc/pgx/v5"
 
-	"counterpart/warehouse"
 	"counterpart/warehouse/postgres/pgtest"
 	"counterpart/warehouse/warehousetest"
 )
@@ -79,45 +76,20 @@ func BenchmarkDashboard1M(b *testing.B) {
 	}
 }
 
-// BenchmarkPublishRetention: Publish of a COUNTERPART_RETENTION_UNITS
-// cohort (default 200k units) without retention (keep_runs 0: every run
-// kept) and with keep_runs 1 (each publish removes the previous run's
-// rows), on the partitioned layout (retention drops partitions) and on
-// the plain one of earlier versions (retention deletes rows).
+// BenchmarkPublishRetention: warehousetest.BenchRetention without and
+// with retention, on the partitioned layout (retention drops
+// partitions) and on the plain one of earlier versions (retention
+// deletes rows, with the run_id indexes).
 func BenchmarkPublishRetention(b *testing.B) {
-	ctx := context.Background()
-	n := 200_000
-	if v, err := strconv.Atoi(os.Getenv("COUNTERPART_RETENTION_UNITS")); err == nil && v > 0 {
-		n = v
-	}
 	w := openScratch(b)
-	warehousetest.Exec(b, w, fmt.Sprintf(`CREATE TABLE big AS SELECT CAST(i AS BIGINT) AS id, random() < 0.3 AS treated,
-		random() * 100 AS x1, random() AS x2, random() AS y1 FROM generate_series(0, %d) AS g(i)`, n-1))
-	c, err := w.ReadCohort(ctx, warehouse.CohortQuery{SQL: "SELECT * FROM big", Unit: "id", Treatment: "treated",
-		Covariates: []string{"x1", "x2"}, Outcomes: []string{"y1"}})
-	if err != nil {
-		b.Fatal(err)
-	}
+	c := warehousetest.RetentionCohort(b, w)
 	partitions := w.Core.D.RunPartitions
 	defer func() { w.Core.D.RunPartitions = partitions }()
 	for _, layout := range []string{"partitioned", "plain"} {
 		for _, keep := range []int{0, 1} {
 			b.Run(fmt.Sprintf("%s/keep_runs=%d", layout, keep), func(b *testing.B) {
 				w.Core.D.RunPartitions = layout == "partitioned"
-				out, p := warehousetest.BenchPublication(c, "public")
-				out.Outcomes, out.KeepRuns = []string{"y1"}, keep
-				out.Prefix = fmt.Sprintf("%s_k%d_", layout, keep)
-				run := 0
-				next := func() {
-					run++
-					warehousetest.PublishAgain(b, w, out, p, fmt.Sprintf("r%04d", run))
-				}
-				next() // the run the first timed publish expires
-				b.ResetTimer()
-				for b.Loop() {
-					next()
-				}
-				b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/publish")
+				warehousetest.BenchRetention(b, w, c, "public", fmt.Sprintf("%s_k%d_", layout, keep), keep)
 			})
 		}
 	}

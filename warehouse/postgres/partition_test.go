@@ -2,7 +2,9 @@ package postgres
 
 import (
 	"context"
+	"errors"
 	"fmt"
+	"os"
 	"strings"
 	"testing"
 	"time"
@@ -226,5 +228,31 @@ func TestUpgradeUnpartitioned(t *testing.T) {
 	}
 	if got := fmt.Sprint(queryRows(t, w, "SELECT count(*) FROM st_analysis")); got != "[[200]]" {
 		t.Errorf("analysis view: %s rows", got)
+	}
+}
+
+// TestPartitionOwnerPreflight: a role that may insert into and delete
+// from a study's partitioned run tables but does not own them is refused
+// at the lock, before the read, with the ALTER TABLE … OWNER TO that
+// fixes it: attaching and dropping a run's partition needs the owner.
+func TestPartitionOwnerPreflight(t *testing.T) {
+	ctx := context.Background()
+	w := openScratch(t)
+	out, p := partStudy(t, w, 2)
+	publish(t, w, out, p, "r1")
+	role := fmt.Sprintf("cp_publisher_%d", os.Getpid())
+	execSQL(t, w, "DROP ROLE IF EXISTS "+role+"; CREATE ROLE "+role+" LOGIN; GRANT USAGE, CREATE ON SCHEMA public TO "+role+
+		"; GRANT SELECT, INSERT, DELETE, UPDATE ON ALL TABLES IN SCHEMA public TO "+role)
+	t.Cleanup(func() { execSQL(t, w, "DROP OWNED BY "+role+"; DROP ROLE "+role) })
+	dsn := w.cfg.ConnString()
+	dsn += map[bool]string{true: "&", false: "?"}[strings.Contains(dsn, "?")] + "user=" + role
+	o, err := Open(ctx, dsn)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer o.Close()
+	_, err = o.Lock(ctx, out)
+	if !errors.Is(err, warehouse.ErrBadInput) || !strings.Contains(err.Error(), "does not own the partitioned table public.st_") || !strings.Contains(err.Error(), "OWNER TO "+role) {
+		t.Errorf("lock by a role that does not own the run tables: %v", err)
 	}
 }

@@ -31,7 +31,18 @@ import (
 // Locks. A new run's partition is created as a plain table and then
 // attached, which takes SHARE UPDATE EXCLUSIVE on the parent (CREATE
 // TABLE … PARTITION OF would take ACCESS EXCLUSIVE until commit and make
-// every reader of the current views wait for the whole publish).
+// every reader of the current views wait for the whole publish). Because
+// that lock does not exclude readers, a reader's statement can plan with
+// the partitions it saw and then take its snapshot after a concurrent
+// attach committed. Were the attach part of the publishing transaction,
+// such a statement would see the new run current but not its partition
+// — an empty current view (TestFaultReadersDuringRepublish caught it).
+// So StartRun attaches the run's empty partitions, in its own
+// transaction, long before the publish makes the run current; only a
+// study's first run, whose tables the publishing transaction creates,
+// attaches them there (no earlier run is current then). A run that never
+// publishes rows (failed, cancelled, abandoned, skipped) leaves empty
+// partitions, which the next publish drops with the expired ones.
 // Detaching or dropping a partition needs ACCESS EXCLUSIVE on the parent;
 // retention takes it on all the parents at once, as the last writes
 // before the commit, and waits at most partitionLockWait for it. If a
@@ -41,13 +52,12 @@ import (
 // the runs table, are dropped by a later publish that gets the lock.
 // Readers thus never wait longer than partitionLockWait for a publish.
 //
-// One reader-visible difference from the plain layout: a read-committed
-// transaction that read a run table before a publish committed, and so
-// already holds its lock, may plan its next statement with the partition
-// list it had, and see the new current run without its rows for that
-// statement (Postgres's rule for partitions attached concurrently). A
-// dashboard that needs one consistent picture across statements uses
-// REPEATABLE READ, which sees the previous run throughout.
+// What remains: a read-committed transaction that holds a run table's
+// lock from a statement before StartRun's attach and reads again after
+// the publish may plan that one statement with its old partition list
+// and see the new current run without rows. A dashboard that keeps one
+// transaction open across a whole run uses REPEATABLE READ, which sees
+// the previous run throughout.
 
 // partitionLockWait bounds how long retention waits for the run tables'
 // ACCESS EXCLUSIVE lock before falling back to DELETE. Longer than
@@ -115,12 +125,29 @@ func (c *Core) partitions(ctx context.Context, schema, table string) (map[string
 	return parts, nil
 }
 
+// startPartitions attaches run runID's partitions to the partitioned run
+// tables that exist, in StartRun's transaction (see the top of the file).
+func (c *Core) startPartitions(ctx context.Context, o *warehouse.Objects, runID string) error {
+	var tables []runTable
+	for t := range partitionedTables(o) {
+		kind, err := c.tableKind(ctx, o.C.Schema, t.Name)
+		if err != nil {
+			return err
+		}
+		if kind == "p" {
+			tables = append(tables, runTable{name: t.Name, quoted: warehouse.QuoteQualified(o.C.Schema, t.Name), partitioned: true})
+		}
+	}
+	return c.createPartitions(ctx, o, runID, tables)
+}
+
 // createPartitions creates and attaches run runID's partition of each
-// partitioned run table, in the open publishing transaction and before
-// any of the run's rows are written (the warehouse-scale INSERTs write
-// through the parent). A rollback removes them with the run's rows.
-func (c *Core) createPartitions(ctx context.Context, o *warehouse.Objects, runID string) error {
-	for _, t := range c.runTables {
+// partitioned table of tables that lacks one. In the publishing
+// transaction (for tables it created) it runs before any of the run's
+// rows are written (the warehouse-scale INSERTs write through the
+// parent), and a rollback removes the partitions with the rows.
+func (c *Core) createPartitions(ctx context.Context, o *warehouse.Objects, runID string, tables []runTable) error {
+	for _, t := range tables {
 		if !t.partitioned {
 			continue
 		}
@@ -149,9 +176,9 @@ func (c *Core) createPartitions(ctx context.Context, o *warehouse.Objects, runID
 	return nil
 }
 
-// retainPartitions drops the partitions of the expired runs ids and any
-// partition whose run the runs table no longer holds (left by a
-// fallback), after taking ACCESS EXCLUSIVE on every partitioned run
+// retainPartitions drops the partitions of the expired runs ids, the
+// empty ones of runs that never published, and any partition whose run
+// the runs table no longer holds (left by a fallback), after taking ACCESS EXCLUSIVE on every partitioned run
 // table at once under a savepoint. It reports whether it did; false (and
 // no error) when the lock was not granted within partitionLockWait, the
 // transaction then being as it was before the call, so that the caller
@@ -166,12 +193,15 @@ func (c *Core) retainPartitions(ctx context.Context, o *warehouse.Objects, ids [
 	if len(parents) == 0 {
 		return true, nil
 	}
-	// Partitions to keep: those of the runs the runs table still holds,
-	// less the expired ones.
+	// Partitions to keep: those of the runs the runs table still holds
+	// that may have rows (only a committed publish writes rows, and it
+	// leaves its run succeeded or rejected; the run being published is
+	// still running here), less the expired ones.
 	expired := map[string]bool{}
 	for _, id := range ids {
 		expired[id.(string)] = true
 	}
+	var status string
 	type target struct {
 		parent runTable
 		part   string
@@ -179,8 +209,9 @@ func (c *Core) retainPartitions(ctx context.Context, o *warehouse.Objects, ids [
 	var drop []target
 	keep := map[string]bool{}
 	var id string
-	if err := c.Each(ctx, "SELECT run_id FROM "+o.Runs, nil, []any{&id}, func() error {
-		if !expired[id] {
+	if err := c.Each(ctx, "SELECT run_id, status FROM "+o.Runs, nil, []any{&id, &status}, func() error {
+		rows := status == warehouse.StatusSucceeded || status == warehouse.StatusRejected || status == warehouse.StatusRunning
+		if rows && !expired[id] {
 			for _, t := range parents {
 				name, err := PartitionName(t.name, id)
 				if err != nil {

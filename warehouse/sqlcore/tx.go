@@ -24,7 +24,7 @@ func (c *Core) BeginScale(ctx context.Context, out warehouse.Output, runID strin
 		c.Rollback(ctx)
 		return nil, err
 	}
-	if err := c.createPartitions(ctx, o, runID); err != nil {
+	if err := c.createPartitions(ctx, o, runID, c.runTables); err != nil {
 		c.Rollback(ctx)
 		return nil, err
 	}

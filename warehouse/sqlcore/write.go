@@ -47,6 +47,11 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 	if err := c.D.StatusCheck(ctx, c, o); err != nil {
 		return err
 	}
+	if c.D.RunPartitions {
+		if err := c.startPartitions(ctx, o, run.RunID); err != nil {
+			return err
+		}
+	}
 	started := run.StartedAt
 	if started.IsZero() {
 		started = time.Now().UTC()
@@ -398,7 +403,7 @@ func (c *Core) Publish(ctx context.Context, out warehouse.Output, p *warehouse.P
 	if err == nil && (p.Cohort != nil || len(p.Survival) > 0) {
 		// Only a run that writes rows gets partitions: a skipped run,
 		// which may never expire, must not leave empty ones behind.
-		err = c.createPartitions(ctx, o, p.Run.RunID)
+		err = c.createPartitions(ctx, o, p.Run.RunID, c.runTables)
 	}
 	if err == nil {
 		err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
@@ -462,6 +467,10 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 		if err := c.step("retention"); err != nil {
 			return err
 		}
+	} else if _, err := c.retainPartitions(ctx, o, nil); err != nil {
+		// No retention: only the empty partitions of runs that never
+		// published go (partition.go).
+		return err
 	}
 	// A changed table (a new covariate or scheme, whatever the run's
 	// status) gets views over its new columns; a covariate the current

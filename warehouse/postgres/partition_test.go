@@ -256,3 +256,30 @@ func TestPartitionOwnerPreflight(t *testing.T) {
 		t.Errorf("lock by a role that does not own the run tables: %v", err)
 	}
 }
+
+// TestPartitionsAttachedAtStart: a run's partitions are attached by
+// StartRun (committed before the publish makes the run current, so that
+// no reader sees the run without its partition); a run that fails leaves
+// them empty, and the next publish drops them even without retention.
+func TestPartitionsAttachedAtStart(t *testing.T) {
+	ctx := context.Background()
+	w := openScratch(t)
+	out, p := partStudy(t, w, 0)
+	publish(t, w, out, p, "r1")
+	if err := w.StartRun(ctx, out, warehouse.RunRecord{RunID: "r2", Study: "st", StartedAt: time.Now()}); err != nil {
+		t.Fatal(err)
+	}
+	if got := partitionsOf(t, w, "st_scores"); len(got) != 2 || got[partName(t, "st_scores", "r2")] != 0 {
+		t.Fatalf("partitions after StartRun r2: %v", got)
+	}
+	if err := w.FailRun(ctx, out, "r2", "boom"); err != nil {
+		t.Fatal(err)
+	}
+	publish(t, w, out, p, "r3")
+	for _, table := range []string{"st_cohort", "st_scores", "st_matches", "st_weights"} {
+		got := partitionsOf(t, w, table)
+		if len(got) != 2 || got[partName(t, table, "r1")] == 0 || got[partName(t, table, "r3")] == 0 {
+			t.Errorf("%s after r3: %v, want r1's and r3's", table, got)
+		}
+	}
+}

@@ -21,6 +21,19 @@ func BenchmarkReadCohort1M(b *testing.B) { warehousetest.BenchReadCohort(b, open
 
 func BenchmarkPublish1M(b *testing.B) { warehousetest.BenchPublish(b, openTemp(b), "main") }
 
+// BenchmarkPublishRetention: warehousetest.BenchRetention without and
+// with retention (DELETE of the previous run's rows), to tell whether
+// DuckDB needs per-run tables as Postgres got partitions.
+func BenchmarkPublishRetention(b *testing.B) {
+	w := openTemp(b)
+	c := warehousetest.RetentionCohort(b, w)
+	for _, keep := range []int{0, 1} {
+		b.Run(fmt.Sprintf("keep_runs=%d", keep), func(b *testing.B) {
+			warehousetest.BenchRetention(b, w, c, "main", fmt.Sprintf("k%d_", keep), keep)
+		})
+	}
+}
+
 // BenchmarkAppender1Mx25 measures DuckDB's row appender alone: 1,000,000
 // rows of 25 DOUBLE columns inside a transaction.
 func BenchmarkAppender1Mx25(b *testing.B) {

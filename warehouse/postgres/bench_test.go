@@ -75,3 +75,22 @@ func BenchmarkDashboard1M(b *testing.B) {
 		b.Run(name+"/publishing", publishing)
 	}
 }
+
+// BenchmarkPublishRetention: warehousetest.BenchRetention without and
+// with retention, on the partitioned layout (retention drops
+// partitions) and on the plain one of earlier versions (retention
+// deletes rows, with the run_id indexes).
+func BenchmarkPublishRetention(b *testing.B) {
+	w := openScratch(b)
+	c := warehousetest.RetentionCohort(b, w)
+	partitions := w.Core.D.RunPartitions
+	defer func() { w.Core.D.RunPartitions = partitions }()
+	for _, layout := range []string{"partitioned", "plain"} {
+		for _, keep := range []int{0, 1} {
+			b.Run(fmt.Sprintf("%s/keep_runs=%d", layout, keep), func(b *testing.B) {
+				w.Core.D.RunPartitions = layout == "partitioned"
+				warehousetest.BenchRetention(b, w, c, "public", fmt.Sprintf("%s_k%d_", layout, keep), keep)
+			})
+		}
+	}
+}

@@ -72,13 +72,17 @@ func (w *Warehouse) dialect() *sqlcore.Dialect {
 		RunIndex: func(schema, table string) string {
 			return "CREATE INDEX IF NOT EXISTS " + warehouse.Quote(table+"_run_id") + " ON " + warehouse.QuoteQualified(schema, table) + " (run_id)"
 		},
-		Privileges: privileges,
+		// Retention drops a run's partitions instead of deleting its
+		// rows (sqlcore/partition.go).
+		RunPartitions: true,
+		Privileges:    privileges,
 	}
 }
 
 // privileges checks the schema's USAGE and CREATE rights and, on the
 // contract's tables that exist already, INSERT and DELETE (publish and
-// retention), naming the first right missing and the GRANT that gives it.
+// retention) and the ownership of the partitioned ones, naming the first
+// right missing and the GRANT that gives it.
 func privileges(ctx context.Context, c *sqlcore.Core, out warehouse.Output) error {
 	var what, object string
 	found, err := c.QueryRow(ctx, c.Render("privileges.sql", nil), []any{out.Schema, out.Prefix}, &what, &object)
@@ -92,6 +96,12 @@ func privileges(ctx context.Context, c *sqlcore.Core, out warehouse.Output) erro
 	if what == "USAGE" || what == "CREATE" {
 		return fmt.Errorf("pre-flight: %w: role %s lacks %s on output.schema %s; GRANT %s ON SCHEMA %s TO %s, or name another schema",
 			warehouse.ErrBadInput, user, what, out.Schema, what, warehouse.Quote(out.Schema), user)
+	}
+	if what == "OWNERSHIP" {
+		// A run attaches and drops partitions of its run tables
+		// (sqlcore/partition.go), which only the owner may do.
+		return fmt.Errorf("pre-flight: %w: role %s does not own the partitioned table %s.%s, which publishing needs (a run adds and drops its partitions); ALTER TABLE %s OWNER TO %s, or GRANT the owner's role to %s",
+			warehouse.ErrBadInput, user, out.Schema, object, warehouse.QuoteQualified(out.Schema, object), user, user)
 	}
 	return fmt.Errorf("pre-flight: %w: role %s lacks %s on table %s.%s; GRANT %s ON %s TO %s",
 		warehouse.ErrBadInput, user, what, out.Schema, object, what, warehouse.QuoteQualified(out.Schema, object), user)

@@ -63,6 +63,12 @@ type Dialect struct {
 	// publishing transaction; nil when the engine's layout already
 	// serves a filter on run_id.
 	RunIndex func(schema, table string) string
+	// RunPartitions is true when the per-unit run tables are created
+	// PARTITION BY LIST (run_id), one partition per run, so that
+	// retention drops partitions instead of deleting rows
+	// (partition.go; Postgres). Run tables an earlier version created
+	// plain keep their layout.
+	RunPartitions bool
 	// Privileges, when set, checks before the cohort is read that the
 	// session may create, insert and drop in the output schema, with a
 	// message that names the missing right (the probe covers the rest).
@@ -100,6 +106,9 @@ type Core struct {
 	// stale says the open publishing transaction changed a table, so
 	// that the balance and analysis views are rebuilt (ensureObjects).
 	stale bool
+	// runTables are the run tables of the open publishing transaction
+	// with their layout (ensureObjects; partition.go).
+	runTables []runTable
 }
 
 var (

@@ -177,6 +177,18 @@ func (c *Core) ScoreInto(ctx context.Context, out warehouse.Output, runID string
 	if err != nil {
 		return err
 	}
+	if c.D.RunPartitions {
+		// Called on its own (not through BeginScale, which attached
+		// them), the run may lack its partitions of the scores and
+		// weights tables the INSERTs write through.
+		o, err := warehouse.NewObjects(out)
+		if err != nil {
+			return err
+		}
+		if err := c.startPartitions(ctx, o, runID); err != nil {
+			return err
+		}
+	}
 	stmts, err := warehouse.ScoreInsertSQL(ct, runID, q.SQL, d, coef, sup, schemes, c.D.Inlines)
 	if err != nil {
 		return err

@@ -24,6 +24,10 @@ func (c *Core) BeginScale(ctx context.Context, out warehouse.Output, runID strin
 		c.Rollback(ctx)
 		return nil, err
 	}
+	if err := c.createPartitions(ctx, o, runID, c.runTables); err != nil {
+		c.Rollback(ctx)
+		return nil, err
+	}
 	return &scaleTx{c: c, o: o, out: out, runID: runID}, nil
 }
 

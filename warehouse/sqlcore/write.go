@@ -47,6 +47,11 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 	if err := c.D.StatusCheck(ctx, c, o); err != nil {
 		return err
 	}
+	if c.D.RunPartitions {
+		if err := c.startPartitions(ctx, o, run.RunID); err != nil {
+			return err
+		}
+	}
 	started := run.StartedAt
 	if started.IsZero() {
 		started = time.Now().UTC()
@@ -82,17 +87,31 @@ func (c *Core) startRun(ctx context.Context, o *warehouse.Objects, out warehouse
 // queried. A column whose existing type differs from what the study
 // needs is an error wrapping ErrBadInput.
 func (c *Core) ensureObjects(ctx context.Context, o *warehouse.Objects, out warehouse.Output) error {
-	c.stale = false
+	c.stale, c.runTables = false, nil
+	parted := partitionedTables(o)
 	for _, t := range o.C.Tables() {
 		if t == &o.C.Runs {
 			continue
 		}
-		changed, err := c.ensureTable(ctx, o.C.Schema, t, false)
+		rt := runTable{name: t.Name, quoted: warehouse.QuoteQualified(o.C.Schema, t.Name)}
+		if c.D.RunPartitions && parted[t] {
+			// New tables get one partition per run; an existing table
+			// keeps the layout it was created with (partition.go).
+			kind, err := c.tableKind(ctx, o.C.Schema, t.Name)
+			if err != nil {
+				return err
+			}
+			rt.partitioned = kind == "" || kind == "p"
+		}
+		c.runTables = append(c.runTables, rt)
+		changed, err := c.ensureTable(ctx, o.C.Schema, t, false, rt.partitioned)
 		if err != nil {
 			return err
 		}
 		c.stale = c.stale || changed
-		if c.D.RunIndex != nil {
+		// A partition holds one run: an index on run_id would serve no
+		// filter and cost every publish its upkeep.
+		if c.D.RunIndex != nil && !rt.partitioned {
 			q := c.D.RunIndex(o.C.Schema, t.Name)
 			if _, err := c.Exec(ctx, "index "+t.Name+" by run_id", q); err != nil {
 				return err
@@ -164,13 +183,14 @@ type tableCol struct {
 // EnsureTable creates t or adds the columns it lacks. The runs table gets
 // its key and the check on status.
 func (c *Core) EnsureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) error {
-	_, err := c.ensureTable(ctx, schema, t, runs)
+	_, err := c.ensureTable(ctx, schema, t, runs, false)
 	return err
 }
 
 // ensureTable is EnsureTable, saying whether it created the table or
-// added a column.
-func (c *Core) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs bool) (changed bool, err error) {
+// added a column; a table it creates with partitioned set is PARTITION
+// BY LIST (run_id) (partition.go).
+func (c *Core) ensureTable(ctx context.Context, schema string, t *warehouse.Table, runs, partitioned bool) (changed bool, err error) {
 	qt := warehouse.QuoteQualified(schema, t.Name)
 	existing, err := c.tableColumns(ctx, schema, t.Name)
 	if err != nil {
@@ -181,7 +201,8 @@ func (c *Core) ensureTable(ctx context.Context, schema string, t *warehouse.Tabl
 			Table, Comment string
 			Columns        []tableCol
 			Checks         []string
-		}{Table: qt, Comment: t.Comment}
+			PartitionBy    bool
+		}{Table: qt, Comment: t.Comment, PartitionBy: partitioned}
 		for i, col := range t.Columns {
 			tc := tableCol{Name: warehouse.Quote(col.Name), Type: c.D.Types[col.Type], ColComment: col.Comment}
 			if col.Name == "run_id" && i == 0 {
@@ -379,6 +400,11 @@ func (c *Core) Publish(ctx context.Context, out warehouse.Output, p *warehouse.P
 		return err
 	}
 	err = c.ensureObjects(ctx, o, out)
+	if err == nil && (p.Cohort != nil || len(p.Survival) > 0) {
+		// Only a run that writes rows gets partitions: a skipped run,
+		// which may never expire, must not leave empty ones behind.
+		err = c.createPartitions(ctx, o, p.Run.RunID, c.runTables)
+	}
 	if err == nil {
 		err = c.finish(ctx, o, out, p, func() error { return c.writeAll(ctx, o, out, p) })
 	}
@@ -441,6 +467,10 @@ func (c *Core) finish(ctx context.Context, o *warehouse.Objects, out warehouse.O
 		if err := c.step("retention"); err != nil {
 			return err
 		}
+	} else if _, err := c.retainPartitions(ctx, o, nil); err != nil {
+		// No retention: only the empty partitions of runs that never
+		// published go (partition.go).
+		return err
 	}
 	// A changed table (a new covariate or scheme, whatever the run's
 	// status) gets views over its new columns; a covariate the current
@@ -487,14 +517,29 @@ func (c *Core) stampFinished(ctx context.Context, o *warehouse.Objects, p *wareh
 	return nil
 }
 
-// retain deletes the runs retention expires, child tables first.
+// retain removes the runs retention expires: their partitions of the
+// partitioned run tables are dropped (partition.go), their rows of the
+// other tables deleted, child tables first and the runs table last. When
+// the partitions cannot be locked in time, the rows are deleted from
+// the partitioned tables too.
 func (c *Core) retain(ctx context.Context, o *warehouse.Objects, runID string, out warehouse.Output) error {
 	ids, err := c.ExpiredRuns(ctx, o, runID, out.KeepRuns, out.KeepFailedDays)
+	if err != nil {
+		return err
+	}
+	dropped, err := c.retainPartitions(ctx, o, ids)
 	if err != nil || len(ids) == 0 {
 		return err
 	}
+	skip := map[string]bool{}
+	for _, t := range c.runTables {
+		skip[t.quoted] = t.partitioned && dropped
+	}
 	params := warehouse.Placeholders(len(ids))
 	for _, t := range o.RetentionTables() {
+		if skip[t] {
+			continue
+		}
 		q := c.Render("retention.sql", map[string]string{"Table": t, "Params": params})
 		if _, err := c.Exec(ctx, "retention on "+t, q, ids...); err != nil {
 			return err

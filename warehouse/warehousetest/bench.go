@@ -188,3 +188,63 @@ func BenchDashboard(b *testing.B, query func(q string) error) {
 	}
 	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/query")
 }
+
+// RetentionRows is the cohort size of BenchRetention:
+// COUNTERPART_RETENTION_UNITS when set, else 200k.
+func RetentionRows() int {
+	if n, err := strconv.Atoi(os.Getenv("COUNTERPART_RETENTION_UNITS")); err == nil && n > 0 {
+		return n
+	}
+	return 200_000
+}
+
+// RetentionCohort makes table big of RetentionRows units and reads it.
+func RetentionCohort(b *testing.B, w warehouse.Warehouse) *warehouse.Cohort {
+	b.Helper()
+	Exec(b, w, fmt.Sprintf(`CREATE TABLE big AS SELECT CAST(i AS BIGINT) AS id, random() < 0.3 AS treated,
+		random() * 100 AS x1, random() AS x2, random() AS y1 FROM generate_series(0, %d) AS g(i)`, RetentionRows()-1))
+	c, err := w.ReadCohort(context.Background(), warehouse.CohortQuery{SQL: "SELECT * FROM big", Unit: "id", Treatment: "treated",
+		Covariates: []string{"x1", "x2"}, Outcomes: []string{"y1"}})
+	if err != nil {
+		b.Fatal(err)
+	}
+	return c
+}
+
+// BenchRetention measures Publish of c under prefix with keep_runs keep
+// (0: no retention; 1: each publish removes the previous run), after
+// one untimed publish, reporting seconds per publish and, with
+// retention, the retention step alone (between the publish's "effects"
+// and "retention" steps, through the fault hook).
+func BenchRetention(b *testing.B, w warehouse.Warehouse, c *warehouse.Cohort, schema, prefix string, keep int) {
+	b.Helper()
+	out, p := BenchPublication(c, schema)
+	out.Outcomes, out.KeepRuns, out.Prefix = []string{"y1"}, keep, prefix
+	run := 0
+	next := func() {
+		run++
+		PublishAgain(b, w, out, p, fmt.Sprintf("r%04d", run))
+	}
+	next()
+	cr := core(b, w)
+	var start time.Time
+	var retention time.Duration
+	cr.Fault = func(step string) error {
+		switch step {
+		case "effects":
+			start = time.Now()
+		case "retention":
+			retention += time.Since(start)
+		}
+		return nil
+	}
+	defer func() { cr.Fault = nil }()
+	b.ResetTimer()
+	for b.Loop() {
+		next()
+	}
+	b.ReportMetric(b.Elapsed().Seconds()/float64(b.N), "s/publish")
+	if keep > 0 {
+		b.ReportMetric(retention.Seconds()/float64(b.N), "s/retention")
+	}
+}

@@ -466,7 +466,7 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 		levels = compactLevels(std, eta)
 	}
 
-	ss := momentSums(k, info, q.Partition != "")
+	ss := momentSums(k, info, q.Partition != "", lateral || q.Partition != "")
 	from := chainLevels(From(q.SQL), "", levels, lateral, q.Partition)
 	return ss.arraySQL(from, partitionRef(q.Partition), ""), b.args
 }
@@ -498,7 +498,11 @@ func compactLevels(std []col, eta string) [][]col {
 // momentSums lists MomentsSQL's sums in the order SplitMoments reads
 // them: count, treated, log-likelihood, perfect predictions, the k
 // gradient sums, then (info) the upper triangle of the information.
-func momentSums(k int, info, decimal bool) *sumSet {
+//
+// compact names compactLevels' columns; decimal sums NUMERICs (Postgres:
+// one aggregate per value, where the integer parts' two would pass its
+// limit of 1,664 result columns at about 40 design columns).
+func momentSums(k int, info, compact, decimal bool) *sumSet {
 	ss := &sumSet{decimal: decimal}
 	ss.count("")
 	ss.integer("z")
@@ -512,7 +516,7 @@ func momentSums(k int, info, decimal bool) *sumSet {
 		for a := range k {
 			for c := a; c < k; c++ {
 				switch {
-				case !decimal:
+				case !compact:
 					ss.sum(fmt.Sprintf("u%d * u%d", a, c), designScale)
 				case a == 0 && c == 0:
 					ss.sum("w", designScale)
@@ -544,9 +548,10 @@ func fenceText(fence bool) string {
 
 // SplitMoments decodes MomentsSQL's one column into m (k = design
 // columns + 1); info says whether the query had the information sums
-// (m.Info stays nil otherwise), partitioned whether q.Partition was set.
-func SplitMoments(m *Moments, k int, text string, info, partitioned bool) error {
-	vals, err := momentSums(k, info, partitioned).decode(text)
+// (m.Info stays nil otherwise), decimal whether the sums were NUMERICs
+// (lateral or q.Partition set in MomentsSQL).
+func SplitMoments(m *Moments, k int, text string, info, decimal bool) error {
+	vals, err := momentSums(k, info, false, decimal).decode(text)
 	if err != nil {
 		return fmt.Errorf("moments: %w", err)
 	}
@@ -767,7 +772,7 @@ func DescribeSQL(q CohortQuery, t ColumnTypes, lateral bool) string {
 		}
 	}
 	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]),\n  " +
-		describeSums(q, t).arrayExpr() + "\nFROM " + chainLevels(From(q.SQL), "", levels, lateral, "")
+		describeSums(q, t, lateral).arrayExpr() + "\nFROM " + chainLevels(From(q.SQL), "", levels, lateral, "")
 }
 
 // numericExpr is covariate name of row c as a double.
@@ -785,14 +790,23 @@ func nonFinite(x string) string {
 // Σ2hl, Σl² of the Veltkamp split x = h + l (h the high 26 bits; Dekker
 // 1971), whose products are exact in double precision — so the variance
 // is that of the doubles themselves, with no rounding of x² per row.
-func describeSums(q CohortQuery, t ColumnTypes) *sumSet {
-	ss := &sumSet{}
+//
+// decimal (Postgres) sums NUMERICs instead, Σx² as the exact square of
+// each value's NUMERIC, so three aggregates per covariate, the third
+// holding Σx² and the fourth and fifth left out.
+func describeSums(q CohortQuery, t ColumnTypes, decimal bool) *sumSet {
+	ss := &sumSet{decimal: decimal}
 	for i := range q.Covariates {
 		if t.Categorical[i] {
 			continue
 		}
 		fx, hi, lo := fmt.Sprintf("fx%d", i+1), fmt.Sprintf("hi%d", i+1), fmt.Sprintf("lo%d", i+1)
 		ss.count(fx + " IS NOT NULL")
+		if decimal {
+			ss.sum(fx, rawScale)
+			ss.parts = append(ss.parts, []sumPart{{"sum(CAST(" + fx + " AS NUMERIC) * CAST(" + fx + " AS NUMERIC))", 0}})
+			continue
+		}
 		ss.sum(fx, rawScale)
 		ss.sum(hi+" * "+hi, rawScale)
 		ss.sum("2 * "+hi+" * "+lo, rawScale)
@@ -828,11 +842,11 @@ func LevelsSQL(cohortSQL, column string, text bool) string {
 
 // NewDescription unpacks DescribeSQL's array; levels[i] and counts[i]
 // hold covariate i's levels (unsorted) when it is categorical.
-func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, sums string, levels [][]string, counts [][]int) (*Description, error) {
+func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, sums string, decimal bool, levels [][]string, counts [][]int) (*Description, error) {
 	if len(arr) != 6+4*len(q.Covariates) {
 		return nil, fmt.Errorf("describe: %d values returned, want %d", len(arr), 6+4*len(q.Covariates))
 	}
-	exact, err := describeSums(q, t).decodeExact(sums)
+	exact, err := describeSums(q, t, decimal).decodeExact(sums)
 	if err != nil {
 		return nil, fmt.Errorf("describe: %w", err)
 	}
@@ -855,11 +869,16 @@ func NewDescription(q CohortQuery, t ColumnTypes, arr []float64, sums string, le
 			c.Counts = append([]int(nil), counts[i]...)
 			SortLevels(c.Levels, c.Counts)
 		} else {
-			s2 := exactFloat().Add(exact[2], exact[3])
-			s2.Add(s2, exact[4])
 			c.NonFinite = int(a[1])
-			c.Mean, c.SD = spread(exact[0], exact[1], s2)
-			exact = exact[5:]
+			if decimal {
+				c.Mean, c.SD = spread(exact[0], exact[1], exact[2])
+				exact = exact[3:]
+			} else {
+				s2 := exactFloat().Add(exact[2], exact[3])
+				s2.Add(s2, exact[4])
+				c.Mean, c.SD = spread(exact[0], exact[1], s2)
+				exact = exact[5:]
+			}
 		}
 		d.Columns = append(d.Columns, c)
 	}

@@ -46,6 +46,9 @@ type RunSums struct {
 	// snapshot lives on the coordinator.
 	Cohort      *CohortQuery
 	OutcomeBool []bool
+	// Decimal sums NUMERICs, one aggregate per value (Postgres, whose
+	// result rows hold at most 1,664 columns; see sumSet.decimal).
+	Decimal bool
 }
 
 // Adjustments is the number of adjustments: unadjusted, matched when
@@ -266,7 +269,7 @@ func runSums(r RunSums, nw, nbal int) *sumSet {
 	if len(bal) != nbal {
 		panic(fmt.Sprintf("warehouse: %d balance terms, want %d", nbal, len(bal)))
 	}
-	ss := &sumSet{decimal: r.Cohort != nil && r.Cohort.Partition != ""}
+	ss := &sumSet{decimal: r.Decimal || r.Cohort != nil && r.Cohort.Partition != ""}
 	for _, w := range weights {
 		ss.sum(w, rawScale)
 		ss.sum(w+" * "+w, rawScale)

@@ -95,3 +95,59 @@ func compareRuns(t *testing.T, what string, a, b *Summary, same func(x, y Num) b
 		}
 	}
 }
+
+// TestWideDesignPostgres fits a 45-column design in warehouse-scale mode
+// on Postgres: the information pass then has 1,081 sums, which as integer
+// parts would be 2,162 aggregates, past Postgres's limit of 1,664 result
+// columns ("number of columns exceeds limit"); as NUMERICs it is one per
+// sum. The coefficients must equal the in-memory fit's (1e-8, relative).
+func TestWideDesignPostgres(t *testing.T) {
+	const p = 45
+	dsn := pgtest.NewDatabase(t)
+	cols, names := "", ""
+	for j := 1; j <= p; j++ {
+		cols += fmt.Sprintf(", sin(i * %d.37) + 0.1 * cos(i * %d) AS x%d", j, j+3, j)
+		names += fmt.Sprintf(", x%d", j)
+	}
+	pgtest.Exec(t, dsn, "CREATE TABLE wide AS SELECT i AS unit_id, (sin(i * 0.91) + 0.3 * cos(i * 1.7) > 0.2) AS treated, cos(i * 0.5) AS y"+cols+" FROM generate_series(1, 2000) AS g(i)")
+	ctx := context.Background()
+	runs := map[string]*Summary{}
+	for _, mode := range []string{"memory", "warehouse"} {
+		text := fmt.Sprintf(`study: wide_%s
+warehouse: {engine: postgres, dsn: "%s"}
+cohort:
+  sql: select * from wide
+  unit: unit_id
+  treatment: treated
+  outcomes: [y]
+  covariates: [%s]
+score: {fit_in: %s}
+matching: {algorithm: off}
+weighting: [ate]
+balance: {on_fail: warn}
+`, mode, dsn, names[2:], mode)
+		s, err := Parse("wide.yaml", []byte(text), nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		wh, err := postgres.Open(ctx, s.Warehouse.DSN)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sum, err := Run(ctx, s, wh, Options{})
+		wh.Close()
+		if err != nil {
+			t.Fatalf("%s: %v", mode, err)
+		}
+		runs[mode] = sum
+	}
+	mem, wh := runs["memory"], runs["warehouse"]
+	if len(mem.Model.Terms) != p+1 || len(wh.Model.Terms) != p+1 {
+		t.Fatalf("%d and %d terms, want %d", len(mem.Model.Terms), len(wh.Model.Terms), p+1)
+	}
+	for j, tm := range mem.Model.Terms {
+		if tw := wh.Model.Terms[j]; relDiff(float64(tm.Coef), float64(tw.Coef)) > 1e-8 {
+			t.Errorf("term %s: memory %v, warehouse %v", tm.Name, tm.Coef, tw.Coef)
+		}
+	}
+}

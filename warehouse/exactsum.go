@@ -51,7 +51,19 @@ var (
 	// outcomes, weights and their products): |x| < 2^102 ≈ 5e30,
 	// resolution 2^-61 · 2^-50 = 2^-111 ≈ 4e-34.
 	rawScale = exactKind{e0: 40, steps: []int{50, 50}}
+	// designScaleOne is designScale in one part, for Postgres, whose
+	// result rows hold at most 1,664 columns (about 57 design columns
+	// at one aggregate per sum, 40 at two): |x| < 2^32, resolution 2^-31.
+	// A sum's rounding error is then about √n·2^-31 — at a million rows
+	// 5e-7 absolute on sums of order 10^5, far inside the fit's
+	// tolerance, and still exact, hence order-free.
+	designScaleOne = exactKind{e0: -30}
 )
+
+// MaxAggregates is how many aggregates a pass may hold on Postgres
+// before its sums switch to one NUMERIC each (sumSet.decimal): its
+// limit of 1,664 result columns, less room for the others.
+const MaxAggregates = 1600
 
 // sumPart is one integer aggregate of a sumSet and the power of two its
 // units are worth.
@@ -101,8 +113,11 @@ func (s *sumSet) sum(x string, k exactKind) int {
 		return len(s.parts) - 1
 	}
 	scaled := "(" + x + ")"
-	if k.e0 > 0 {
+	switch {
+	case k.e0 > 0:
 		scaled = "(" + x + ") / " + pow2(k.e0)
+	case k.e0 < 0:
+		scaled = "(" + x + ") * " + pow2(-k.e0)
 	}
 	var ps []sumPart
 	cur, exp := scaled, k.e0

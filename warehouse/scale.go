@@ -466,7 +466,7 @@ func MomentsSQL(q CohortQuery, d *DesignSQL, beta []float64, lateral, info bool)
 		levels = compactLevels(std, eta)
 	}
 
-	ss := momentSums(k, info, q.Partition != "", lateral || q.Partition != "")
+	ss := momentSums(k, info, q.Partition != "", lateral)
 	from := chainLevels(From(q.SQL), "", levels, lateral, q.Partition)
 	return ss.arraySQL(from, partitionRef(q.Partition), ""), b.args
 }
@@ -499,11 +499,21 @@ func compactLevels(std []col, eta string) [][]col {
 // them: count, treated, log-likelihood, perfect predictions, the k
 // gradient sums, then (info) the upper triangle of the information.
 //
-// compact names compactLevels' columns; decimal sums NUMERICs (Postgres:
-// one aggregate per value, where the integer parts' two would pass its
-// limit of 1,664 result columns at about 40 design columns).
-func momentSums(k int, info, compact, decimal bool) *sumSet {
-	ss := &sumSet{decimal: decimal}
+// compact names compactLevels' columns; postgres chooses one integer
+// part per sum, where two would pass Postgres's limit of 1,664 result
+// columns at about 40 design columns.
+func momentSums(k int, info, compact, postgres bool) *sumSet {
+	// Partitioned: NUMERIC (one reference per value, see sumSet.decimal).
+	// Otherwise integer parts: two for the log-likelihood and gradient,
+	// whose precision decides the solution (its sums cancel towards 0);
+	// for the k(k+1)/2 information sums, which only steer Newton's steps
+	// and give the SEs, one part on Postgres (designScaleOne, relative
+	// error about 1e-12), keeping the pass under its column limit.
+	ss := &sumSet{decimal: compact}
+	infoScale := designScale
+	if postgres {
+		infoScale = designScaleOne
+	}
 	ss.count("")
 	ss.integer("z")
 	ss.sum("ll", designScale)
@@ -517,13 +527,13 @@ func momentSums(k int, info, compact, decimal bool) *sumSet {
 			for c := a; c < k; c++ {
 				switch {
 				case !compact:
-					ss.sum(fmt.Sprintf("u%d * u%d", a, c), designScale)
+					ss.sum(fmt.Sprintf("u%d * u%d", a, c), infoScale)
 				case a == 0 && c == 0:
-					ss.sum("w", designScale)
+					ss.sum("w", infoScale)
 				case a == 0:
-					ss.sum(fmt.Sprintf("w * x%d", c), designScale)
+					ss.sum(fmt.Sprintf("w * x%d", c), infoScale)
 				default:
-					ss.sum(fmt.Sprintf("w * x%d * x%d", a, c), designScale)
+					ss.sum(fmt.Sprintf("w * x%d * x%d", a, c), infoScale)
 				}
 			}
 		}
@@ -548,10 +558,10 @@ func fenceText(fence bool) string {
 
 // SplitMoments decodes MomentsSQL's one column into m (k = design
 // columns + 1); info says whether the query had the information sums
-// (m.Info stays nil otherwise), decimal whether the sums were NUMERICs
-// (lateral or q.Partition set in MomentsSQL).
-func SplitMoments(m *Moments, k int, text string, info, decimal bool) error {
-	vals, err := momentSums(k, info, false, decimal).decode(text)
+// (m.Info stays nil otherwise); lateral and partitioned as MomentsSQL
+// had them.
+func SplitMoments(m *Moments, k int, text string, info, lateral, partitioned bool) error {
+	vals, err := momentSums(k, info, partitioned, lateral).decode(text)
 	if err != nil {
 		return fmt.Errorf("moments: %w", err)
 	}
@@ -772,7 +782,14 @@ func DescribeSQL(q CohortQuery, t ColumnTypes, lateral bool) string {
 		}
 	}
 	return "SELECT CAST(ARRAY[" + strings.Join(parts, ",\n ") + "] AS DOUBLE PRECISION[]),\n  " +
-		describeSums(q, t, lateral).arrayExpr() + "\nFROM " + chainLevels(From(q.SQL), "", levels, lateral, "")
+		describeSums(q, t, DescribeDecimal(q, t)).arrayExpr() + "\nFROM " + chainLevels(From(q.SQL), "", levels, lateral, "")
+}
+
+// DescribeDecimal says whether the describe pass sums NUMERICs: only
+// when its integer parts would pass MaxAggregates (about 120 numeric
+// covariates).
+func DescribeDecimal(q CohortQuery, t ColumnTypes) bool {
+	return len(describeSums(q, t, false).aggs()) > MaxAggregates
 }
 
 // numericExpr is covariate name of row c as a double.

@@ -46,8 +46,9 @@ type RunSums struct {
 	// snapshot lives on the coordinator.
 	Cohort      *CohortQuery
 	OutcomeBool []bool
-	// Decimal sums NUMERICs, one aggregate per value (Postgres, whose
-	// result rows hold at most 1,664 columns; see sumSet.decimal).
+	// Decimal sums NUMERICs, one aggregate per value: on Postgres, when
+	// the integer parts would pass its 1,664 result columns
+	// (RunSumsAggregates > MaxAggregates).
 	Decimal bool
 }
 
@@ -312,6 +313,11 @@ func balanceTerms(r RunSums) []string {
 		bal = append(bal, name, name+" * "+name)
 	}
 	return bal
+}
+
+// RunSumsAggregates is the number of aggregates of r's pass.
+func RunSumsAggregates(r RunSums) int {
+	return len(runSums(r, r.Adjustments(), len(balanceTerms(r))).aggs())
 }
 
 // DecodeRunSums decodes the sums column of one RunSumsSQL row.

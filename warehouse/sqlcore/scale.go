@@ -112,7 +112,7 @@ func (c *Core) Describe(ctx context.Context, q warehouse.CohortQuery) (*warehous
 				return fmt.Errorf("levels of %s: %w", name, err)
 			}
 		}
-		desc, err = warehouse.NewDescription(q, t, arr, sums, c.D.Inlines, levels, counts)
+		desc, err = warehouse.NewDescription(q, t, arr, sums, warehouse.DescribeDecimal(q, t), levels, counts)
 		return err
 	})
 	return desc, err
@@ -138,7 +138,7 @@ func (c *Core) Moments(ctx context.Context, q warehouse.CohortQuery, d *warehous
 		if _, err := c.query(ctx, text, args, &sums); err != nil {
 			return fmt.Errorf("moments: %w", err)
 		}
-		return warehouse.SplitMoments(m, len(beta), sums, info, c.D.Inlines || pq.Partition != "")
+		return warehouse.SplitMoments(m, len(beta), sums, info, c.D.Inlines, pq.Partition != "")
 	})
 	if err != nil {
 		return nil, err

@@ -220,7 +220,8 @@ func (t *scaleTx) runSums(ctx context.Context, ct *warehouse.Contract, spec ware
 // runSumsPass runs one RunSumsSQL pass and decodes its rows by arm.
 func (t *scaleTx) runSumsPass(ctx context.Context, ct *warehouse.Contract, spec warehouse.RunSums) ([2][]float64, error) {
 	c := t.c
-	spec.Decimal = c.D.Inlines
+	spec.Decimal = false
+	spec.Decimal = c.D.Inlines && warehouse.RunSumsAggregates(spec) > warehouse.MaxAggregates
 	var arms [2][]float64
 	text, args, err := warehouse.RunSumsSQL(ct, spec, c.D.Inlines)
 	if err != nil {

@@ -125,8 +125,8 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 	if r.Cohort != nil {
 		l0[0].expr = "(" + r.Design.TreatmentExpr() + ") = 1"
 	}
-	var bal []string // per-row balance terms, w·term summed
-	k := 0
+	// The columns are named as balanceTerms names them for runSums.
+	k := 0 // next numeric covariate's shift
 	for i, cv := range r.Covariates {
 		if err := ValidIdent(cv.Name); err != nil {
 			return "", nil, fmt.Errorf("cohort.covariates: %w", err)
@@ -142,11 +142,9 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 						test = "NOT " + src
 					}
 					l0 = append(l0, col{name, "CAST(CASE WHEN " + test + " THEN 1 ELSE 0 END AS DOUBLE PRECISION)"})
-					bal = append(bal, name)
 					continue
 				}
 				l0 = append(l0, col{name, fmt.Sprintf("CAST(CASE WHEN CAST(%s AS VARCHAR) = %s THEN 1 ELSE 0 END AS DOUBLE PRECISION)", src, b.Str(l))})
-				bal = append(bal, name)
 			}
 			continue
 		}
@@ -156,7 +154,6 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		name := fmt.Sprintf("d%d", i+1)
 		l0 = append(l0, col{name, fmt.Sprintf("CAST(%s AS DOUBLE PRECISION) - %s", src, b.Num(r.Shifts[k]))})
 		k++
-		bal = append(bal, name, name+" * "+name)
 	}
 	for i, o := range r.Outcomes {
 		if err := ValidIdent(o); err != nil {
@@ -169,10 +166,8 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		l0 = append(l0, col{fmt.Sprintf("y%d", i+1), y})
 	}
 	l0 = append(l0, col{"w0", "CAST(1 AS DOUBLE PRECISION)"})
-	weights := []string{"w0"} // per adjustment, the column of w
 	if r.Matched {
 		l0 = append(l0, col{"wm", "CAST(coalesce(m.w, 0) AS DOUBLE PRECISION)"})
-		weights = append(weights, "wm")
 	}
 	levels := [][]col{l0}
 	if len(r.Schemes) > 0 {
@@ -216,7 +211,6 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 				return "", nil, err
 			}
 			ws = append(ws, col{fmt.Sprintf("ws%d", i+1), w})
-			weights = append(weights, fmt.Sprintf("ws%d", i+1))
 		}
 		levels = append(levels, ws)
 	}
@@ -249,13 +243,13 @@ func RunSumsSQL(c *Contract, r RunSums, lateral bool) (string, []any, error) {
 		where, partition = "", r.Cohort.Partition
 	}
 	from := chainLevels(base, where, levels, lateral, partition)
-	return runSums(r, len(weights), len(bal)).arraySQL(from, partitionRef(partition), "t"), b.args, nil
+	return runSums(r).arraySQL(from, partitionRef(partition), "t"), b.args, nil
 }
 
 // runSums lists RunSumsSQL's sums in NewSums's order over the level
-// columns it names: w0, wm, ws1… for the adjustments' weights (nw of
-// them), the nbal balance terms bal[j], outcomes y1….
-func runSums(r RunSums, nw, nbal int) *sumSet {
+// columns it names: w0, wm, ws1… for the adjustments' weights, the
+// balance terms of balanceTerms, outcomes y1….
+func runSums(r RunSums) *sumSet {
 	weights := []string{"w0"}
 	if r.Matched {
 		weights = append(weights, "wm")
@@ -263,13 +257,7 @@ func runSums(r RunSums, nw, nbal int) *sumSet {
 	for i := range r.Schemes {
 		weights = append(weights, fmt.Sprintf("ws%d", i+1))
 	}
-	if len(weights) != nw {
-		panic(fmt.Sprintf("warehouse: %d weights for %d adjustments", nw, len(weights)))
-	}
 	bal := balanceTerms(r)
-	if len(bal) != nbal {
-		panic(fmt.Sprintf("warehouse: %d balance terms, want %d", nbal, len(bal)))
-	}
 	ss := &sumSet{decimal: r.Decimal || r.Cohort != nil && r.Cohort.Partition != ""}
 	for _, w := range weights {
 		ss.sum(w, rawScale)
@@ -317,13 +305,12 @@ func balanceTerms(r RunSums) []string {
 
 // RunSumsAggregates is the number of aggregates of r's pass.
 func RunSumsAggregates(r RunSums) int {
-	return len(runSums(r, r.Adjustments(), len(balanceTerms(r))).aggs())
+	return len(runSums(r).aggs())
 }
 
 // DecodeRunSums decodes the sums column of one RunSumsSQL row.
 func DecodeRunSums(r RunSums, text string) ([]float64, error) {
-	nw := r.Adjustments()
-	return runSums(r, nw, len(balanceTerms(r))).decode(text)
+	return runSums(r).decode(text)
 }
 
 // col is one per-row value of a query level: its name and defining

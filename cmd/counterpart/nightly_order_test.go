@@ -53,15 +53,7 @@ func TestNightlyReshuffleDuckDB(t *testing.T) {
 		}
 	}
 	exec(t, membersSQL("range(1, 2501) t(i)"))
-	q := func(t *testing.T, query string) [][]any {
-		t.Helper()
-		db, err := sql.Open("duckdb", path+"?access_mode=READ_ONLY")
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer db.Close()
-		return sqlRows(t, db, query)
-	}
+	q := duckQuerier(path)
 	nightlyReshuffle(t, "duckdb", func(bool) string { return path }, exec, q,
 		[]reshuffle{{"n1", false}, {"n2", false}})
 }

@@ -66,6 +66,20 @@ output:
 // querier runs a query on the engine under test and returns its rows.
 type querier func(t *testing.T, q string) [][]any
 
+// duckQuerier queries the DuckDB file at path, read-only, one open per
+// query (the CLI under test opens the file between them).
+func duckQuerier(path string) querier {
+	return func(t *testing.T, query string) [][]any {
+		t.Helper()
+		db, err := sql.Open("duckdb", path+"?access_mode=READ_ONLY")
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer db.Close()
+		return sqlRows(t, db, query)
+	}
+}
+
 // TestNightlyDuckDB and TestNightlyPostgres simulate 30 nights on an
 // evolving cohort (units join and leave, a covariate drifts). Every night
 // must publish atomically (the current views show exactly that night's
@@ -88,15 +102,7 @@ func TestNightlyDuckDB(t *testing.T) {
 		t.Fatal(err)
 	}
 	db.Close()
-	q := func(t *testing.T, query string) [][]any {
-		t.Helper()
-		db, err := sql.Open("duckdb", path+"?access_mode=READ_ONLY")
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer db.Close()
-		return sqlRows(t, db, query)
-	}
+	q := duckQuerier(path)
 	nightly(t, "duckdb", path, q)
 }
 

@@ -124,15 +124,7 @@ func TestRowOrderDuckDB(t *testing.T) {
 		}
 	}
 	db.Close()
-	q := func(t *testing.T, query string) [][]any {
-		t.Helper()
-		db, err := sql.Open("duckdb", path+"?access_mode=READ_ONLY")
-		if err != nil {
-			t.Fatal(err)
-		}
-		defer db.Close()
-		return sqlRows(t, db, query)
-	}
+	q := duckQuerier(path)
 	variants := []orderVariant{{"natural", "hf_members", false}, {"natural_rerun", "hf_members", false}}
 	for _, s := range orderSeeds {
 		variants = append(variants, orderVariant{s, "hf_" + s, false})

@@ -1,12 +1,10 @@
 package study
 
 import (
-	"context"
 	"fmt"
 	"math"
 	"testing"
 
-	"counterpart/warehouse/postgres"
 	"counterpart/warehouse/postgres/pgtest"
 )
 
@@ -25,7 +23,6 @@ func TestPartitionColumnChangesNothing(t *testing.T) {
 	dsn := pgtest.NewDatabase(t)
 	pgtest.Exec(t, dsn, pgSourceSQL)
 	pgtest.Exec(t, dsn, "CREATE TABLE wm_shuf AS SELECT * FROM wm_src ORDER BY md5(unit_id::text)")
-	ctx := context.Background()
 	runs := map[string]*Summary{}
 	for _, v := range []struct{ name, part, table string }{
 		{"plain", "", "wm_src"}, {"region", "region", "wm_src"}, {"shuffled", "region", "wm_shuf"},
@@ -47,23 +44,11 @@ matching: {algorithm: greedy, caliper: 0.2}
 weighting: [att, ate, overlap]
 balance: {on_fail: warn}
 `, v.name, dsn, v.table, part)
-		s, err := Parse("part.yaml", []byte(text), nil)
-		if err != nil {
-			t.Fatal(err)
-		}
-		if s.Cohort.PartitionColumn != part {
-			t.Fatalf("partition column parsed as %q, want %q", s.Cohort.PartitionColumn, part)
-		}
-		wh, err := postgres.Open(ctx, s.Warehouse.DSN)
-		if err != nil {
-			t.Fatal(err)
-		}
-		sum, err := Run(ctx, s, wh, Options{})
-		wh.Close()
-		if err != nil {
-			t.Fatalf("partition %q: %v", part, err)
-		}
-		runs[v.name] = sum
+		runs[v.name] = runPostgresStudy(t, v.name, text, func(s *Spec) {
+			if s.Cohort.PartitionColumn != part {
+				t.Fatalf("partition column parsed as %q, want %q", s.Cohort.PartitionColumn, part)
+			}
+		})
 	}
 	compareRuns(t, "per partition vs plain", runs["plain"], runs["region"], func(x, y Num) bool { return relDiff(float64(x), float64(y)) <= 1e-8 })
 	compareRuns(t, "per partition, shuffled table", runs["region"], runs["shuffled"], func(x, y Num) bool { return math.Float64bits(float64(x)) == math.Float64bits(float64(y)) })
@@ -111,7 +96,6 @@ func TestWideDesignPostgres(t *testing.T) {
 		names += fmt.Sprintf(", x%d", j)
 	}
 	pgtest.Exec(t, dsn, "CREATE TABLE wide AS SELECT i AS unit_id, (sin(i * 0.91) + 0.3 * cos(i * 1.7) > 0.2) AS treated, cos(i * 0.5) AS y"+cols+" FROM generate_series(1, 2000) AS g(i)")
-	ctx := context.Background()
 	runs := map[string]*Summary{}
 	for _, mode := range []string{"memory", "warehouse"} {
 		text := fmt.Sprintf(`study: wide_%s
@@ -127,20 +111,7 @@ matching: {algorithm: off}
 weighting: [ate]
 balance: {on_fail: warn}
 `, mode, dsn, names[2:], mode)
-		s, err := Parse("wide.yaml", []byte(text), nil)
-		if err != nil {
-			t.Fatal(err)
-		}
-		wh, err := postgres.Open(ctx, s.Warehouse.DSN)
-		if err != nil {
-			t.Fatal(err)
-		}
-		sum, err := Run(ctx, s, wh, Options{})
-		wh.Close()
-		if err != nil {
-			t.Fatalf("%s: %v", mode, err)
-		}
-		runs[mode] = sum
+		runs[mode] = runPostgresStudy(t, mode, text, nil)
 	}
 	mem, wh := runs["memory"], runs["warehouse"]
 	if len(mem.Model.Terms) != p+1 || len(wh.Model.Terms) != p+1 {

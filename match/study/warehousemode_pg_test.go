@@ -37,7 +37,6 @@ FROM generate_series(1, 3000) AS g(i)`
 func TestWarehouseModeMatchesMemoryPostgres(t *testing.T) {
 	dsn := pgtest.NewDatabase(t)
 	pgtest.Exec(t, dsn, pgSourceSQL)
-	ctx := context.Background()
 	runs := map[string]*Summary{}
 	for _, mode := range []string{"memory", "warehouse"} {
 		text := fmt.Sprintf(`study: pg_%s
@@ -56,20 +55,7 @@ matching: {algorithm: greedy, caliper: 0.2}
 weighting: [att, ate, overlap]
 balance: {on_fail: warn}
 `, mode, dsn, mode)
-		s, err := Parse("pg.yaml", []byte(text), nil)
-		if err != nil {
-			t.Fatal(err)
-		}
-		wh, err := postgres.Open(ctx, s.Warehouse.DSN)
-		if err != nil {
-			t.Fatal(err)
-		}
-		sum, err := Run(ctx, s, wh, Options{})
-		wh.Close()
-		if err != nil {
-			t.Fatalf("%s: %v", mode, err)
-		}
-		runs[mode] = sum
+		runs[mode] = runPostgresStudy(t, mode, text, nil)
 	}
 	mem, wh := runs["memory"], runs["warehouse"]
 	for j, tm := range mem.Model.Terms {
@@ -107,4 +93,29 @@ balance: {on_fail: warn}
 	if n, worst := fmt.Sprint(got[0][0]), got[0][1]; n != "3000" || worst == nil || worst.(float64) > 1e-10 {
 		t.Errorf("weights: %s units joined, worst relative difference %v", n, worst)
 	}
+}
+
+// runPostgresStudy parses a study file's text, runs it on its Postgres
+// warehouse and returns the summary; check, when set, sees the parsed
+// spec first. label names the run in a failure.
+func runPostgresStudy(t *testing.T, label, text string, check func(*Spec)) *Summary {
+	t.Helper()
+	s, err := Parse(label+".yaml", []byte(text), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if check != nil {
+		check(s)
+	}
+	ctx := context.Background()
+	wh, err := postgres.Open(ctx, s.Warehouse.DSN)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer wh.Close()
+	sum, err := Run(ctx, s, wh, Options{})
+	if err != nil {
+		t.Fatalf("%s: %v", label, err)
+	}
+	return sum
 }

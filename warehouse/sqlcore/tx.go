@@ -131,8 +131,6 @@ func b2i(b bool) int {
 	return 0
 }
 
-func nanDeref(f *float64) float64 { return nanNull(f) }
-
 // Finish writes the final runs row (p.Run), the effects, retention and
 // the views.
 func (t *scaleTx) Finish(ctx context.Context, p *warehouse.Publication) error {
@@ -220,7 +218,7 @@ func (t *scaleTx) runSums(ctx context.Context, ct *warehouse.Contract, spec ware
 // runSumsPass runs one RunSumsSQL pass and decodes its rows by arm.
 func (t *scaleTx) runSumsPass(ctx context.Context, ct *warehouse.Contract, spec warehouse.RunSums) ([2][]float64, error) {
 	c := t.c
-	spec.Decimal = false
+	spec.Decimal = false // count the integer parts' aggregates
 	spec.Decimal = c.D.Inlines && warehouse.RunSumsAggregates(spec) > warehouse.MaxAggregates
 	var arms [2][]float64
 	text, args, err := warehouse.RunSumsSQL(ct, spec, c.D.Inlines)
